@@ -1,0 +1,28 @@
+# One-command set-up: every target creates .venv and installs what it needs.
+PY ?= python3
+VENV := .venv
+BIN := $(VENV)/bin
+STAMP := $(VENV)/.installed
+
+.PHONY: demo test bench fuzz clean
+
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PY) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet -e '.[test]'
+	touch $(STAMP)
+
+demo: $(STAMP)
+	$(BIN)/crystalview demo
+
+test: $(STAMP)
+	$(BIN)/python -m pytest
+
+bench: $(STAMP)
+	for f in bench/bench_*.py; do echo "== $$f"; $(BIN)/python $$f || exit 1; done
+
+fuzz: $(STAMP)
+	CRYSTALVIEW_FUZZ_EXAMPLES=20000 $(BIN)/python -m pytest tests/test_fuzz.py -q
+
+clean:
+	rm -rf $(VENV) build *.egg-info

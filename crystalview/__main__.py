@@ -1,0 +1,5 @@
+import sys
+
+from crystalview.cli import main
+
+sys.exit(main())

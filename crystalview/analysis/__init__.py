@@ -1,0 +1,2 @@
+"""Analyses of a Crystal: neighbours, engineering numbers, sites, fit, slip.
+Nothing here imports the renderer."""

@@ -1,0 +1,81 @@
+"""The command line.  Thin: parses, calls the API, prints.
+
+Each command lives in its own module ``crystalview/cli/cmd_<name>.py`` with
+``register(subparsers)``; a command's module imports heavy libraries (vtk,
+pyvista) only inside its run function, so commands that draw nothing start
+fast.
+"""
+from __future__ import annotations
+
+import argparse
+import importlib
+import os
+import sys
+
+COMMANDS = ["info", "build", "sites", "fit", "slip", "render", "show", "print", "export", "run", "demo"]
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with one-line errors and exit status 2."""
+
+    def error(self, message):
+        sys.stderr.write(f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+        sys.exit(2)
+
+
+def make_parser():
+    p = _Parser(prog="crystalview",
+                description="Supercells, defects, hole sizes, report figures and printable models of metal lattices.")
+    from crystalview import __version__
+
+    p.add_argument("--version", action="version", version=f"crystalview {__version__}")
+    p.add_argument("--debug", action="store_true", help="show the full traceback on errors")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name in COMMANDS:
+        try:
+            mod = importlib.import_module(f"crystalview.cli.cmd_{name}")
+        except ModuleNotFoundError as exc:
+            if exc.name == f"crystalview.cli.cmd_{name}":
+                continue          # command not built yet
+            raise
+        mod.register(sub)
+    return p
+
+
+def main(argv=None):
+    from crystalview.errors import UserError
+
+    argv = list(sys.argv[1:] if argv is None else argv)
+    debug = "--debug" in argv or bool(os.environ.get("CRYSTALVIEW_DEBUG"))
+    try:
+        parser = make_parser()
+        args = parser.parse_args(argv)
+        if not getattr(args, "func", None):
+            parser.print_help()
+            return 2
+        rc = args.func(args)
+        return int(rc or 0)
+    except UserError as exc:
+        if debug:
+            raise
+        msg = " ".join(str(exc).split())
+        sys.stderr.write(f"crystalview: error: {msg}\n")
+        return 2
+    except KeyboardInterrupt:
+        sys.stderr.write("crystalview: interrupted\n")
+        return 130
+    except BrokenPipeError:
+        return 0
+    except MemoryError:
+        sys.stderr.write("crystalview: error: out of memory; make the crystal or the output smaller\n")
+        return 2
+    except Exception as exc:  # an internal fault
+        if debug:
+            raise
+        sys.stderr.write(f"crystalview: internal error: {type(exc).__name__}: {exc} "
+                         f"(rerun with --debug and report it with the traceback)\n")
+        return 1
+
+
+if __name__ == "__main__":  # pragma: no cover
+    sys.exit(main())

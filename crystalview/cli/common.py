@@ -1,0 +1,128 @@
+"""Shared command-line pieces: the SPEC arguments, JSON output, file targets."""
+from __future__ import annotations
+
+import json
+import math
+import sys
+from pathlib import Path
+
+from ..errors import UserError
+
+#: Extra option groups other modules add to every SPEC-taking command, as
+#: (add_arguments(parser), apply(crystal, args) -> crystal).  The defects
+#: module registers its options here, so `info`, `export`, `render` and
+#: `print` all take the same defect options.
+SPEC_EXTENSIONS = []
+
+
+def _positive_float(text):
+    try:
+        v = float(text)
+    except ValueError:
+        raise UserError(f"'{text}' is not a number") from None
+    return v
+
+
+def add_spec_arguments(p, defects=True):
+    p.add_argument("spec", metavar="SPEC",
+                   help="element (Cu), compound (Ni3Al), lattice type (fcc, bcc, hcp, sc, hex, diamond, "
+                        "B2, L1_2, L1_0), a .cif file or a .toml scene file")
+    g = p.add_argument_group("structure")
+    g.add_argument("--phase", help="named phase of the element, e.g. alpha, gamma, delta")
+    g.add_argument("--lattice", help="use the element's phase with this lattice type (e.g. --lattice fcc)")
+    g.add_argument("--element", help="element(s) for a lattice-type SPEC: Ni, or Ni,Al for ordered types")
+    g.add_argument("-a", type=_positive_float, metavar="A", help="lattice parameter a in angstrom")
+    g.add_argument("-c", type=_positive_float, metavar="C", help="lattice parameter c in angstrom (hexagonal, tetragonal)")
+    g.add_argument("--repeat", nargs=3, metavar=("NX", "NY", "NZ"), help="diagonal supercell, e.g. --repeat 3 3 3")
+    g.add_argument("--supercell", nargs=9, metavar="P", help="supercell matrix rows, 9 whole numbers")
+    g.add_argument("--orient", nargs=3, metavar=("X", "Y", "Z"),
+                   help="crystal directions for x, y, z, e.g. --orient [1-10] [11-2] [111]")
+    g.add_argument("--max-atoms", type=float, metavar="N", help="atom cap (default 50 million)")
+    if defects:
+        for add, _apply in SPEC_EXTENSIONS:
+            add(p)
+
+
+def _ints(values, what, example):
+    out = []
+    for v in values:
+        try:
+            f = float(v)
+        except ValueError:
+            raise UserError(f"{what} '{' '.join(values)}' must be whole numbers, e.g. {example}") from None
+        if not math.isfinite(f) or f != int(f):
+            raise UserError(f"{what} '{' '.join(values)}' must be whole numbers, e.g. {example}")
+        out.append(int(f))
+    return out
+
+
+def crystal_from_args(args):
+    """Build the crystal a command's SPEC arguments describe (defects applied)."""
+    from ..build import build
+
+    spec = args.spec
+    low = spec.lower()
+    if low.endswith(".toml"):
+        from ..scene import load_crystal
+
+        crystal = load_crystal(spec)
+    else:
+        if low.endswith(".cif") and not Path(spec).is_file():
+            raise UserError(f"CIF file '{spec}' not found")
+        kw = {}
+        if args.element:
+            parts = [x.strip() for x in args.element.split(",") if x.strip()]
+            if len(parts) == 1:
+                kw["element"] = parts[0]
+            else:
+                kw["elements"] = tuple(parts)
+        if args.repeat:
+            kw["repeat"] = _ints(args.repeat, "--repeat", "--repeat 3 3 3")
+        if args.supercell:
+            m = _ints(args.supercell, "--supercell", "--supercell 1 -1 0 1 1 0 0 0 1")
+            kw["supercell"] = [m[0:3], m[3:6], m[6:9]]
+        if args.orient:
+            kw["orient"] = list(args.orient)
+        if args.max_atoms is not None:
+            kw["max_atoms"] = int(args.max_atoms)
+        crystal = build(spec, phase=args.phase, lattice=args.lattice, a=args.a, c=args.c, **kw)
+    for _add, apply in SPEC_EXTENSIONS:
+        crystal = apply(crystal, args)
+    return crystal
+
+
+def print_json(obj):
+    sys.stdout.write(json.dumps(obj, indent=2, default=_json_default) + "\n")
+
+
+def _json_default(o):
+    import numpy as np
+
+    if isinstance(o, np.integer):
+        return int(o)
+    if isinstance(o, np.floating):
+        return float(o)
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, (set, tuple)):
+        return list(o)
+    return str(o)
+
+
+def fmt(x, nd=4):
+    if x is None:
+        return "-"
+    if isinstance(x, float):
+        return f"{x:.{nd}f}"
+    return str(x)
+
+
+def table(rows, headers):
+    """Plain-text table (no colour: pipes and files read it the same)."""
+    cols = [[str(h)] + [str(r[i]) for r in rows] for i, h in enumerate(headers)]
+    widths = [max(len(v) for v in c) for c in cols]
+    lines = ["  ".join(h.ljust(w) for h, w in zip(headers, widths)).rstrip(),
+             "  ".join("-" * w for w in widths)]
+    for r in rows:
+        lines.append("  ".join(str(v).ljust(w) for v, w in zip(r, widths)).rstrip())
+    return "\n".join(lines)

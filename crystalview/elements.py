@@ -1,0 +1,213 @@
+"""Element, phase and compound data.
+
+Lattice parameters, radii, electronegativities and valences come from
+``data/elements.toml`` (each value with its source); atomic masses and numbers
+come from the ``periodictable`` package.
+"""
+from __future__ import annotations
+
+import functools
+from dataclasses import dataclass, field
+from importlib import resources
+
+try:
+    import tomllib
+except ModuleNotFoundError:  # Python < 3.11
+    import tomli as tomllib
+
+from .errors import UserError, suggest
+
+
+@functools.lru_cache(maxsize=None)
+def _data():
+    text = resources.files("crystalview").joinpath("data/elements.toml").read_text("utf-8")
+    return tomllib.loads(text)
+
+
+def _source(entry, fieldname):
+    d = _data()
+    key = entry.get(f"{fieldname}_source") or entry.get("source") or d["field_sources"].get(fieldname)
+    return d["sources"].get(key, key)
+
+
+@dataclass(frozen=True)
+class Phase:
+    element: str
+    name: str
+    lattice: str
+    a: float
+    c: float | None
+    temperature_K: float | None
+    source: str
+    note: str = ""
+
+
+@dataclass(frozen=True)
+class Element:
+    symbol: str
+    metallic_radius: float | None
+    electronegativity: float | None
+    valence: int | None
+    reference_phase: str | None
+    phases: dict = field(default_factory=dict)
+    sources: dict = field(default_factory=dict)
+
+    @property
+    def phase(self):
+        return self.phases[self.reference_phase]
+
+
+@dataclass(frozen=True)
+class Interstitial:
+    symbol: str
+    radius: float
+    source: str
+    covalent_radius: float | None = None
+
+
+@dataclass(frozen=True)
+class Compound:
+    name: str
+    lattice: str
+    elements: tuple
+    a: float
+    c: float | None
+    source: str
+    note: str = ""
+
+
+def metal_symbols():
+    return sorted(_data()["elements"])
+
+
+def interstitial_symbols():
+    return sorted(_data()["interstitials"])
+
+
+def compound_names():
+    return sorted(_data()["compounds"])
+
+
+@functools.lru_cache(maxsize=None)
+def element(symbol) -> Element:
+    """The data for one metal, by symbol (case as usual: 'Fe')."""
+    d = _data()["elements"]
+    sym = _canon(symbol)
+    if sym not in d:
+        known = ", ".join(metal_symbols())
+        raise UserError(
+            f"no lattice data for element '{symbol}'{suggest(symbol, list(d))}; "
+            f"known elements: {known}"
+        )
+    e = d[sym]
+    phases = {}
+    for name, p in e.get("phases", {}).items():
+        phases[name] = Phase(
+            element=sym, name=name, lattice=p["lattice"], a=float(p["a"]),
+            c=float(p["c"]) if "c" in p else None,
+            temperature_K=p.get("temperature_K"), source=_source(p, "a"), note=p.get("note", ""),
+        )
+    sources = {f: _source(e, f) for f in ("metallic_radius", "electronegativity", "valence")}
+    return Element(
+        symbol=sym, metallic_radius=e.get("metallic_radius"),
+        electronegativity=e.get("electronegativity"), valence=e.get("valence"),
+        reference_phase=e.get("reference_phase"), phases=phases, sources=sources,
+    )
+
+
+def phase(symbol, name=None) -> Phase:
+    """A named phase of an element, or its reference phase."""
+    e = element(symbol)
+    if name is None:
+        return e.phase
+    key = str(name).lower().strip()
+    aliases = {"α": "alpha", "β": "beta", "γ": "gamma", "δ": "delta", "ε": "epsilon"}
+    key = aliases.get(key, key)
+    if key not in e.phases:
+        raise UserError(
+            f"{e.symbol} has no phase '{name}'{suggest(name, list(e.phases))}; "
+            f"known phases of {e.symbol}: {', '.join(e.phases)}"
+        )
+    return e.phases[key]
+
+
+@functools.lru_cache(maxsize=None)
+def interstitial(symbol) -> Interstitial:
+    d = _data()["interstitials"]
+    sym = _canon(symbol)
+    if sym not in d:
+        raise UserError(
+            f"no interstitial radius for '{symbol}'{suggest(symbol, list(d))}; "
+            f"known interstitial solutes: {', '.join(sorted(d))}"
+        )
+    e = d[sym]
+    return Interstitial(sym, float(e["radius"]), _source(e, "radius"), e.get("covalent_radius"))
+
+
+@functools.lru_cache(maxsize=None)
+def compound(name) -> Compound:
+    d = _data()["compounds"]
+    if name not in d:
+        raise UserError(f"unknown compound '{name}'{suggest(name, list(d))}; known: {', '.join(sorted(d))}")
+    e = d[name]
+    return Compound(name, e["lattice"], tuple(e["elements"]), float(e["a"]),
+                    float(e["c"]) if "c" in e else None, _source(e, "a"), e.get("note", ""))
+
+
+def is_compound(name):
+    return name in _data()["compounds"]
+
+
+def _canon(symbol):
+    s = str(symbol).strip()
+    return s[:1].upper() + s[1:].lower()
+
+
+@functools.lru_cache(maxsize=None)
+def atomic_number(symbol) -> int:
+    import periodictable
+
+    sym = _canon(symbol)
+    el = getattr(periodictable, sym, None)
+    if el is None or not hasattr(el, "number") or sym == "D" or sym == "T":
+        raise UserError(f"'{symbol}' is not a chemical element symbol{suggest(symbol, _all_symbols())}")
+    return int(el.number)
+
+
+@functools.lru_cache(maxsize=None)
+def _all_symbols():
+    import periodictable
+
+    return [e.symbol for e in periodictable.elements if e.number > 0]
+
+
+@functools.lru_cache(maxsize=None)
+def symbol_of(number) -> str:
+    import periodictable
+
+    return periodictable.elements[int(number)].symbol
+
+
+@functools.lru_cache(maxsize=None)
+def atomic_mass(symbol) -> float:
+    """Standard atomic weight (g/mol), from periodictable."""
+    import periodictable
+
+    return float(periodictable.elements[atomic_number(symbol)].mass)
+
+
+def solute_radius(symbol):
+    """(radius in A, kind, source) for a solute: interstitial radius for the
+    small interstitial formers, CN12 metallic radius for metals."""
+    sym = _canon(symbol)
+    if sym in _data()["interstitials"]:
+        i = interstitial(sym)
+        return i.radius, "interstitial", i.source
+    if sym in _data()["elements"]:
+        e = element(sym)
+        if e.metallic_radius is not None:
+            return e.metallic_radius, "substitutional", e.sources["metallic_radius"]
+    raise UserError(
+        f"no radius data for solute '{symbol}'; known interstitial solutes: "
+        f"{', '.join(interstitial_symbols())}; known metals: {', '.join(metal_symbols())}"
+    )

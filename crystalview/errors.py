@@ -1,0 +1,21 @@
+"""Error types.  A ``UserError`` is the user's to fix: the command line prints
+its one-line message and exits with status 2.  Anything else is our fault."""
+
+
+class UserError(ValueError):
+    """Bad input: the message says what was wrong and what would be right."""
+
+
+class LimitError(UserError):
+    """A request over a resource cap, refused before any memory is allocated."""
+
+
+def suggest(name, choices, n=3):
+    """' (did you mean X, Y?)' for a mistyped name, or ''."""
+    import difflib
+
+    lowered = {c.lower(): c for c in choices}
+    close = difflib.get_close_matches(str(name).lower(), list(lowered), n=n, cutoff=0.5)
+    if not close:
+        return ""
+    return " (did you mean " + ", ".join(lowered[c] for c in close) + "?)"

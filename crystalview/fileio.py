@@ -1,0 +1,71 @@
+"""Atomic, non-clobbering file writes.
+
+Every file crystalview writes goes through :func:`atomic_write`: the content is
+written to a temporary file beside the target, flushed to disk, then renamed
+into place, so a crash or a kill leaves either the old file or the complete new
+one and never a partial one.  An existing target is kept unless ``force``.
+"""
+from __future__ import annotations
+
+import os
+import tempfile
+from pathlib import Path
+
+from .errors import UserError
+
+
+def check_target(path, force=False, suffixes=None):
+    """Raise UserError if ``path`` cannot be written (exists without force,
+    wrong suffix, folder missing or not writable).  Writes nothing."""
+    p = Path(path)
+    if suffixes is not None and p.suffix.lower() not in suffixes:
+        raise UserError(
+            f"cannot write '{p}': unknown file type '{p.suffix or '(none)'}'; "
+            f"use one of {', '.join(sorted(suffixes))}"
+        )
+    if p.exists() and p.is_dir():
+        raise UserError(f"'{p}' is a folder; give a file name")
+    if p.exists() and not force:
+        raise UserError(f"'{p}' already exists; pass --force to overwrite it")
+    parent = p.parent if str(p.parent) else Path(".")
+    if not parent.exists():
+        raise UserError(f"cannot write '{p}': folder '{parent}' does not exist")
+    if not os.access(parent, os.W_OK):
+        raise UserError(f"cannot write '{p}': folder '{parent}' is not writable")
+    return p
+
+
+def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
+    """Write ``data`` (bytes or str), or call ``writer(tmp_path)`` to produce
+    the file, beside ``path`` and rename it into place.  The temporary name
+    ends in the target's own suffix, so writers that pick a format from the
+    file name work unchanged.
+
+    The temporary file is removed on any error.  Returns the final Path.
+    """
+    p = check_target(path, force=force)
+    parent = p.parent if str(p.parent) else Path(".")
+    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp-cv" + p.suffix, dir=parent)
+    try:
+        if writer is None:
+            if isinstance(data, str):
+                data = data.encode("utf-8")
+            with os.fdopen(fd, "wb") as fh:
+                fh.write(data)
+                fh.flush()
+                os.fsync(fh.fileno())
+        else:
+            os.close(fd)
+            writer(tmp)
+            with open(tmp, "rb+") as fh:
+                os.fsync(fh.fileno())
+        if p.exists() and not force:  # appeared while we were writing
+            raise UserError(f"'{p}' already exists; pass --force to overwrite it")
+        os.replace(tmp, p)
+    except BaseException:
+        try:
+            os.unlink(tmp)
+        except OSError:
+            pass
+        raise
+    return p

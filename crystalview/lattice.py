@@ -1,0 +1,237 @@
+"""Cell mathematics: Miller and Miller-Bravais indices, d-spacings, angles,
+planar and linear densities.
+
+Notation (common practice): ``[uvw]`` a direction, ``<uvw>`` a family of
+directions, ``(hkl)`` a plane, ``{hkl}`` a family of planes; four-index
+``[uvtw]`` / ``(hkil)`` for hexagonal cells.  A minus sign before a digit is a
+bar: ``[1-10]``.  Digits may be separated by spaces or commas when an index is
+larger than 9: ``[1,-1,10]``.
+"""
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import dataclass
+from functools import reduce
+
+import numpy as np
+
+from .errors import UserError
+
+_BRACKETS = {"[": ("]", "direction", False), "<": (">", "direction", True),
+             "(": (")", "plane", False), "{": ("}", "plane", True)}
+
+
+@dataclass(frozen=True)
+class Indices:
+    kind: str          # "direction" | "plane"
+    values: tuple      # three or four ints
+    family: bool = False
+
+    @property
+    def four(self):
+        return len(self.values) == 4
+
+    def three(self):
+        """The three-index form (hexagonal four-index forms converted)."""
+        if not self.four:
+            return self
+        if self.kind == "direction":
+            return Indices("direction", mb_to_miller_direction(self.values), self.family)
+        return Indices("plane", mb_to_miller_plane(self.values), self.family)
+
+    def __str__(self):
+        return format_indices(self.values, self.kind, self.family)
+
+
+def format_indices(values, kind="direction", family=False):
+    o, c = {("direction", False): "[]", ("direction", True): "<>",
+            ("plane", False): "()", ("plane", True): "{}"}[(kind, family)]
+    vals = [int(v) for v in values]
+    if all(-9 <= v <= 9 for v in vals):
+        body = "".join(str(v) for v in vals)
+    else:
+        body = ",".join(str(v) for v in vals)
+    return o + body + c
+
+
+def parse_indices(text, kind=None, allow_bare=True) -> Indices:
+    """Parse '[1-10]', '(111)', '<110>', '{111}', '[2-1-10]', '(10-12)', '1 -1 0'.
+
+    ``kind`` ('direction' or 'plane') is required for bare digits without
+    brackets, and checked against the brackets when given.
+    """
+    s = str(text).strip()
+    family = False
+    if s and s[0] in _BRACKETS:
+        close, k, family = _BRACKETS[s[0]]
+        if not s.endswith(close):
+            raise UserError(f"malformed indices '{text}': '{s[0]}' must be closed by '{close}'")
+        body = s[1:-1]
+        if kind is not None and kind != k:
+            want = "[uvw]" if kind == "direction" else "(hkl)"
+            raise UserError(f"'{text}' is a {k} but a {kind} is needed here, like {want}")
+        kind = k
+    else:
+        if not allow_bare or kind is None:
+            raise UserError(f"malformed indices '{text}': write a direction as [uvw] or a plane as (hkl), e.g. [1-10] or (111)")
+        body = s
+    if "," in body or " " in body.strip():
+        parts = [p for p in re.split(r"[,\s]+", body.strip()) if p]
+        if not all(re.fullmatch(r"[+-]?\d+", p) for p in parts):
+            raise UserError(_bad(text))
+        vals = [int(p) for p in parts]
+    else:
+        if not re.fullmatch(r"(-?\d)+", body):
+            raise UserError(_bad(text))
+        vals = [int(m) for m in re.findall(r"-?\d", body)]
+    if len(vals) not in (3, 4):
+        raise UserError(f"malformed indices '{text}': need 3 indices (or 4 for hexagonal), got {len(vals)}")
+    if all(v == 0 for v in vals):
+        raise UserError(f"indices '{text}' are all zero: that is no {kind}; use e.g. "
+                        + ("[100]" if kind == "direction" else "(100)"))
+    if len(vals) == 4:
+        if kind == "plane" and vals[2] != -(vals[0] + vals[1]):
+            raise UserError(f"four-index plane '{text}' breaks i = -(h + k): i should be {-(vals[0] + vals[1])}")
+        if kind == "direction" and vals[2] != -(vals[0] + vals[1]):
+            raise UserError(f"four-index direction '{text}' breaks t = -(u + v): t should be {-(vals[0] + vals[1])}")
+    return Indices(kind, tuple(vals), family)
+
+
+def _bad(text):
+    return (f"malformed indices '{text}': use digits with a minus sign for a bar, "
+            "e.g. [1-10], (111), <110>, {111}, [2-1-10] or (10-12)")
+
+
+def _gcd_reduce(vals):
+    vals = [int(v) for v in vals]
+    g = reduce(math.gcd, [abs(v) for v in vals if v != 0] or [1])
+    return tuple(v // g for v in vals)
+
+
+def mb_to_miller_direction(uvtw):
+    """[UVTW] -> [uvw]: u = U - T, v = V - T, w = W (reduced to lowest integers)."""
+    U, V, T, W = uvtw
+    return _gcd_reduce((U - T, V - T, W))
+
+
+def miller_to_mb_direction(uvw):
+    """[uvw] -> [UVTW]: U = (2u - v)/3, V = (2v - u)/3, T = -(u + v)/3, W = w,
+    scaled to the smallest integers."""
+    u, v, w = uvw
+    vals = (2 * u - v, 2 * v - u, -(u + v), 3 * w)
+    return _gcd_reduce(vals)
+
+
+def mb_to_miller_plane(hkil):
+    h, k, i, l = hkil
+    return (h, k, l)
+
+
+def miller_to_mb_plane(hkl):
+    h, k, l = hkl
+    return (h, k, -(h + k), l)
+
+
+# ------------------------------------------------------------------ metric
+def cell_from_parameters(a, b, c, alpha=90.0, beta=90.0, gamma=90.0):
+    """Cell rows from lengths (A) and angles (degrees); a along x, b in the xy plane."""
+    al, be, ga = (math.radians(x) for x in (alpha, beta, gamma))
+    ax = np.array([a, 0.0, 0.0])
+    bx = np.array([b * math.cos(ga), b * math.sin(ga), 0.0])
+    cx = c * math.cos(be)
+    cy = c * (math.cos(al) - math.cos(be) * math.cos(ga)) / math.sin(ga)
+    cz = math.sqrt(max(c * c - cx * cx - cy * cy, 0.0))
+    return np.array([ax, bx, [cx, cy, cz]])
+
+
+def cell_parameters(cell):
+    cell = np.asarray(cell, float)
+    a, b, c = np.linalg.norm(cell, axis=1)
+
+    def ang(x, y):
+        return math.degrees(math.acos(np.clip(np.dot(x, y) / np.linalg.norm(x) / np.linalg.norm(y), -1, 1)))
+
+    return a, b, c, ang(cell[1], cell[2]), ang(cell[0], cell[2]), ang(cell[0], cell[1])
+
+
+def reciprocal(cell):
+    """Reciprocal cell rows b_i with a_i . b_j = delta_ij (no 2 pi)."""
+    return np.linalg.inv(np.asarray(cell, float)).T
+
+
+def _ind3(ind, kind):
+    if isinstance(ind, str):
+        ind = parse_indices(ind, kind=kind)
+    if isinstance(ind, Indices):
+        if ind.kind != kind:
+            raise UserError(f"{ind} is a {ind.kind}; a {kind} is needed here")
+        return np.array(ind.three().values, dtype=float)
+    vals = tuple(int(v) for v in ind)
+    if len(vals) == 4:
+        vals = mb_to_miller_direction(vals) if kind == "direction" else mb_to_miller_plane(vals)
+    if len(vals) != 3 or not any(vals):
+        raise UserError(f"indices {ind} must be three (or four) integers, not all zero")
+    return np.array(vals, dtype=float)
+
+
+def direction_vector(cell, uvw):
+    """Cartesian vector of the direction [uvw] in the given (conventional) cell."""
+    return _ind3(uvw, "direction") @ np.asarray(cell, float)
+
+
+def plane_normal(cell, hkl):
+    """Cartesian normal of (hkl) (the reciprocal vector, not normalised)."""
+    return _ind3(hkl, "plane") @ reciprocal(cell)
+
+
+def d_spacing(cell, hkl):
+    """Interplanar spacing d_hkl = 1 / |h b1 + k b2 + l b3| (A).  The indices
+    are used as given: d_200 is half of d_100."""
+    return float(1.0 / np.linalg.norm(plane_normal(cell, hkl)))
+
+
+def angle_between(cell, d1, d2):
+    """Angle (degrees) between two directions."""
+    v1, v2 = direction_vector(cell, d1), direction_vector(cell, d2)
+    cosang = np.dot(v1, v2) / np.linalg.norm(v1) / np.linalg.norm(v2)
+    return float(math.degrees(math.acos(np.clip(cosang, -1.0, 1.0))))
+
+
+def _frac_int(x, tol=1e-6):
+    return np.abs(x - np.round(x)) < tol
+
+
+def planar_density(cell, basis_frac, hkl):
+    """Atoms per A^2 on the (hkl) plane through an atom at the origin.
+
+    Atoms whose centres lie on the family h x + k y + l z = integer (indices
+    reduced to lowest terms) number n per cell; these planes are spaced d apart,
+    so the density per area is n d / V.  (Common-practice counting of atom
+    centres on the plane, as in textbook planar densities.)
+    """
+    hkl = np.array(_gcd_reduce(_ind3(hkl, "plane").astype(int)), dtype=float)
+    basis = np.asarray(basis_frac, float)
+    s = basis @ hkl
+    n = int(np.sum(_frac_int(s)))
+    d = d_spacing(cell, hkl)
+    vol = abs(np.linalg.det(cell))
+    return n * d / vol
+
+
+def linear_density(cell, basis_frac, uvw):
+    """Atoms per A along the line [uvw] through an atom at the origin."""
+    uvw = np.array(_gcd_reduce(_ind3(uvw, "direction").astype(int)), dtype=float)
+    basis = np.asarray(basis_frac, float)
+    length = np.linalg.norm(uvw @ np.asarray(cell, float))
+    # t in [0, 1) with t*uvw = b + n (n integer) for some basis atom b
+    count = 0
+    k = int(np.argmax(np.abs(uvw)))
+    for b in basis:
+        for n in range(-int(abs(uvw[k])) - 1, int(abs(uvw[k])) + 2):
+            t = (b[k] + n) / uvw[k]
+            if -1e-9 <= t < 1 - 1e-9:
+                diff = t * uvw - b
+                if np.all(_frac_int(diff)):
+                    count += 1
+    return count / length
