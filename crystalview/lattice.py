@@ -212,6 +212,7 @@ def planar_density(cell, basis_frac, hkl):
     """
     hkl = np.array(_gcd_reduce(_ind3(hkl, "plane").astype(int)), dtype=float)
     basis = np.asarray(basis_frac, float)
+    basis = basis - basis[0]          # the plane passes through an atom
     s = basis @ hkl
     n = int(np.sum(_frac_int(s)))
     d = d_spacing(cell, hkl)
@@ -223,6 +224,7 @@ def linear_density(cell, basis_frac, uvw):
     """Atoms per A along the line [uvw] through an atom at the origin."""
     uvw = np.array(_gcd_reduce(_ind3(uvw, "direction").astype(int)), dtype=float)
     basis = np.asarray(basis_frac, float)
+    basis = basis - basis[0]          # the line passes through an atom
     length = np.linalg.norm(uvw @ np.asarray(cell, float))
     # t in [0, 1) with t*uvw = b + n (n integer) for some basis atom b
     count = 0
