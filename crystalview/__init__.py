@@ -58,6 +58,9 @@ _API = {
     # slip (analysis/slip.py)
     "slip_systems": "crystalview.analysis.slip:slip_systems",
     "schmid_factors": "crystalview.analysis.slip:schmid_factors",
+    "slip_overlay": "crystalview.analysis.slip:slip_overlay",
+    "taylor_factor": "crystalview.analysis.slip:taylor_factor",
+    "independent_slip_systems": "crystalview.analysis.slip:independent_slip_systems",
     # figures, meshes, files
     "render": "crystalview.render.figure:render",
     "show": "crystalview.render.viewer:show",

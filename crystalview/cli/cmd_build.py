@@ -1,0 +1,51 @@
+"""crystalview build SPEC [-o FILE]: build a crystal, say what it is, optionally write it."""
+from __future__ import annotations
+
+from .common import add_spec_arguments, crystal_from_args, print_json
+
+
+def register(sub):
+    p = sub.add_parser("build", help="build a crystal, report its size, optionally write it (.cif, .xyz)",
+                       description="Build a crystal (with any defects), report atoms, cell and memory, "
+                                   "and optionally write it to a structure file.")
+    add_spec_arguments(p)
+    p.add_argument("-o", "--output", metavar="FILE", help="write the crystal (.cif or .xyz)")
+    p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.add_argument("--json", action="store_true", help="print JSON only")
+    p.set_defaults(func=run)
+
+
+def run(args):
+    import numpy as np
+
+    c = crystal_from_args(args)
+    info = {
+        "atoms": len(c),
+        "composition": c.counts(),
+        "roles": c.role_counts(),
+        "cell_A": c.cell.tolist(),
+        "cell_lengths_A": [float(x) for x in np.linalg.norm(c.cell, axis=1)],
+        "volume_A3": c.volume,
+        "memory_MB": (c.positions.nbytes + c.numbers.nbytes + c.roles.nbytes) / 1e6,
+        "defects": c.metadata.get("defects") or [],
+    }
+    if args.output:
+        if not args.output.lower().endswith((".cif", ".xyz")):
+            from ..errors import UserError
+
+            raise UserError(f"build writes structure files (.cif, .xyz); for '{args.output}' use "
+                            f"`crystalview export` (glTF, 3MF, STL) or `crystalview print`")
+        from ..exchange import export
+
+        export(c, args.output, force=args.force)
+        info["written"] = args.output
+    if args.json:
+        print_json(info)
+        return 0
+    print(repr(c))
+    print(f"  memory for the atoms: {info['memory_MB']:.1f} MB")
+    for d in info["defects"]:
+        print("  defect: " + ", ".join(f"{k}={v}" for k, v in d.items() if not isinstance(v, (list, dict))))
+    if args.output:
+        print(f"  wrote {args.output}")
+    return 0
