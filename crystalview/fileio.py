@@ -45,7 +45,8 @@ def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
     """
     p = check_target(path, force=force)
     parent = p.parent if str(p.parent) else Path(".")
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.", suffix=".tmp-cv" + p.suffix, dir=parent)
+    _remove_stale_temps(p)
+    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.{os.getpid()}.", suffix=".tmp-cv" + p.suffix, dir=parent)
     try:
         if writer is None:
             if isinstance(data, str):
@@ -69,3 +70,30 @@ def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
             pass
         raise
     return p
+
+
+def _pid_alive(pid):
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True
+    return True
+
+
+def _remove_stale_temps(p):
+    """Remove temporary files left beside ``p`` by writers that were killed
+    (their process id, which the temporary name carries, is gone)."""
+    parent = p.parent if str(p.parent) else Path(".")
+    try:
+        candidates = list(parent.glob(f".{p.name}.*.tmp-cv*"))
+    except OSError:
+        return
+    for t in candidates:
+        parts = t.name[len(p.name) + 2:].split(".")
+        if parts and parts[0].isdigit() and not _pid_alive(int(parts[0])):
+            try:
+                t.unlink()
+            except OSError:
+                pass

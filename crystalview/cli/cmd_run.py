@@ -1,0 +1,86 @@
+"""crystalview run SCENE.toml [...]: everything the scene files ask for."""
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+
+def register(sub):
+    p = sub.add_parser("run", help="do everything one or more scene files ask for",
+                       description="Run scene files: build, add defects, analyse, draw, print and export, "
+                                   "into exports/<scene name>/ with a manifest.")
+    p.add_argument("scenes", nargs="+", metavar="SCENE.toml", help="scene file(s)")
+    p.add_argument("--out", metavar="DIR", help="write here instead of exports/<scene name>/ "
+                                                "(with several scenes: DIR/<scene name>/)")
+    p.add_argument("--force", action="store_true", help="overwrite files a previous run wrote")
+    p.add_argument("--quiet", action="store_true", help="print only the summary")
+    p.set_defaults(func=run)
+
+
+def run_many(paths, out=None, force=False, quiet=False, debug=False):
+    """Run scenes one after another; a failing scene does not stop the others.
+    Returns the exit status: 0 all good, 2 if a scene had bad input, 1 on an internal fault."""
+    from ..errors import UserError
+    from ..scene import load, run_scene
+
+    status = 0
+    results = []
+    log = (lambda *a, **k: None) if quiet else (lambda msg: print(msg, flush=True))
+    progress = _progress(len(paths))
+    for i, path in enumerate(paths):
+        target = None
+        if out is not None:
+            target = Path(out) if len(paths) == 1 else None
+            if target is None:
+                try:
+                    target = Path(out) / load(path)["scene"]["name"]
+                except UserError:
+                    target = Path(out) / Path(path).stem
+        progress(i, path)
+        log(f"scene {path}:")
+        try:
+            m = run_scene(path, out=target, force=force, log=log)
+            results.append((path, "ok", f"{len(m['written']) + 1} files in {m['seconds']:.1f} s"))
+        except UserError as exc:
+            if debug:
+                raise
+            msg = " ".join(str(exc).split())
+            sys.stderr.write(f"crystalview: error: {msg}\n")
+            results.append((path, "failed", msg))
+            if status != 1:
+                status = 2
+        except Exception as exc:  # keep going with the next scene
+            if debug:
+                raise
+            sys.stderr.write(f"crystalview: internal error in {path}: {type(exc).__name__}: {exc} "
+                             f"(rerun with --debug and report it)\n")
+            results.append((path, "internal error", str(exc)))
+            status = 1
+    progress(len(paths), None)
+    if len(paths) > 1 or quiet:
+        print("summary:")
+        for path, state, what in results:
+            print(f"  {state:<6}  {path}  {what}")
+    return status
+
+
+def _progress(total):
+    """A progress line on stderr for several scenes (only on a terminal)."""
+    if total < 2 or not sys.stderr.isatty():
+        return lambda i, path: None
+    from rich.progress import Progress
+
+    prog = Progress(transient=True)
+    task = prog.add_task("scenes", total=total)
+    prog.start()
+
+    def step(i, path):
+        prog.update(task, completed=i, description=f"scene {Path(path).name}" if path else "done")
+        if path is None:
+            prog.stop()
+
+    return step
+
+
+def run(args):
+    return run_many(args.scenes, out=args.out, force=args.force, quiet=args.quiet, debug=args.debug)

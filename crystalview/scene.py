@@ -1,0 +1,419 @@
+"""Scene files: a small TOML file that says, reproducibly, what crystal to
+build, which defects to add, which analyses to run and which figures, models
+and exchange files to write.
+
+The whole file is validated (JSON Schema, with the `jsonschema` library)
+before any work starts; an error names the file, the key path and what would
+be valid, in one line.  Nothing in a scene is ever executed as code.
+"""
+from __future__ import annotations
+
+import hashlib
+import json
+import platform
+import time
+from pathlib import Path
+
+from .errors import UserError
+
+try:
+    import tomllib
+except ModuleNotFoundError:  # Python < 3.11
+    import tomli as tomllib
+
+INDEX = {"type": "string", "minLength": 3, "maxLength": 40}
+POS_NUM = {"type": "number", "exclusiveMinimum": 0}
+FRACTION = {"type": "number", "minimum": 0, "maximum": 1}
+SEED = {"type": "integer", "minimum": 0}
+COUNT = {"type": "integer", "minimum": 0}
+REPEAT3 = {"type": "array", "items": {"type": "integer", "minimum": 1, "maximum": 10000}, "minItems": 3, "maxItems": 3}
+FILE = {"type": "string", "minLength": 1, "maxLength": 200, "pattern": r"^[^/\\][^\\]*$"}
+
+#: per defect kind: its keys (all optional unless listed in "required")
+DEFECT_KINDS = {
+    "vacancies": ({"count": COUNT, "fraction": FRACTION, "seed": SEED, "element": {"type": "string"}}, []),
+    "substitute": ({"element": {"type": "string"}, "count": COUNT, "fraction": FRACTION, "seed": SEED,
+                    "host": {"type": "string"}}, ["element"]),
+    "interstitials": ({"element": {"type": "string"}, "site": {"type": "string"}, "fraction": FRACTION,
+                       "seed": SEED}, ["element"]),
+    "frenkel": ({"count": {"type": "integer", "minimum": 1}, "seed": SEED}, ["count"]),
+    "stack": ({"sequence": {"type": "string", "minLength": 2}, "repeat": {"type": "array", "items": {"type": "integer", "minimum": 1}, "minItems": 2, "maxItems": 2}},
+              ["sequence"]),
+    "dislocation": ({"character": {"enum": ["edge", "screw"]}, "size": REPEAT3, "poisson": {"type": "number", "exclusiveMinimum": -1, "exclusiveMaximum": 0.5}},
+                    ["character"]),
+    "slab": ({"plane": INDEX, "layers": {"type": "integer", "minimum": 1, "maximum": 1000},
+              "thickness": POS_NUM, "vacuum": {"type": "number", "minimum": 0}, "repeat": {"type": "array", "items": {"type": "integer", "minimum": 1}, "minItems": 2, "maxItems": 2}},
+             ["plane"]),
+    "tilt-boundary": ({"axis": INDEX, "plane": INDEX, "size": {"type": "array"}, "overlap": POS_NUM}, ["axis", "plane"]),
+}
+
+
+def _defect_schema():
+    rules = []
+    for kind, (props, required) in DEFECT_KINDS.items():
+        p = {"kind": {"const": kind}, **props}
+        rules.append({"if": {"properties": {"kind": {"const": kind}}, "required": ["kind"]},
+                      "then": {"properties": p, "required": ["kind", *required], "additionalProperties": False}})
+    return {"type": "object", "required": ["kind"],
+            "properties": {"kind": {"enum": list(DEFECT_KINDS)}}, "allOf": rules}
+
+
+SCHEMA = {
+    "type": "object",
+    "additionalProperties": False,
+    "required": ["scene", "structure"],
+    "properties": {
+        "scene": {"type": "object", "additionalProperties": False, "required": ["name"],
+                  "properties": {"name": {"type": "string", "pattern": r"^[A-Za-z0-9][A-Za-z0-9._-]{0,63}$"},
+                                 "title": {"type": "string"}, "description": {"type": "string"},
+                                 "caution": {"type": "boolean"}}},
+        "structure": {"type": "object", "additionalProperties": False,
+                      "properties": {"element": {"type": "string"}, "compound": {"type": "string"},
+                                     "lattice": {"type": "string"}, "phase": {"type": "string"},
+                                     "elements": {"type": "array", "items": {"type": "string"}, "minItems": 1, "maxItems": 2},
+                                     "cif": FILE, "a": POS_NUM, "c": POS_NUM, "repeat": REPEAT3,
+                                     "supercell": {"type": "array", "minItems": 3, "maxItems": 3,
+                                                   "items": {"type": "array", "items": {"type": "integer"}, "minItems": 3, "maxItems": 3}},
+                                     "orient": {"type": "array", "items": INDEX, "minItems": 3, "maxItems": 3},
+                                     "max_atoms": {"type": "integer", "minimum": 1}}},
+        "defects": {"type": "array", "items": _defect_schema()},
+        "analysis": {"type": "object", "additionalProperties": False,
+                     "properties": {"info": {"type": "boolean"}, "sites": {"type": "boolean"},
+                                    "fit": {"type": "array", "items": {"type": "string"}},
+                                    "planes": {"type": "array", "items": INDEX},
+                                    "directions": {"type": "array", "items": INDEX},
+                                    "slip": {"type": "object", "additionalProperties": False, "required": ["axis"],
+                                             "properties": {"axis": INDEX, "stress": POS_NUM, "crss": POS_NUM,
+                                                            "families": {"type": "array", "items": {"type": "string"}}}}}},
+        "figures": {"type": "array", "items": {
+            "type": "object", "additionalProperties": False, "required": ["file"],
+            "properties": {"file": FILE, "view": INDEX, "up": INDEX,
+                           "style": {"enum": ["ball-and-stick", "space-filling", "lattice", "cell-cut"]},
+                           "size": {"type": "array", "items": {"type": "integer", "minimum": 16, "maximum": 8000}, "minItems": 2, "maxItems": 2},
+                           "dpi": {"type": "integer", "minimum": 50, "maximum": 1200},
+                           "transparent": {"type": "boolean"}, "caption": {"type": ["boolean", "string"]},
+                           "sites": {"type": "boolean"}, "polyhedra": {"type": "boolean"},
+                           "layers": {"type": "boolean"}, "cell": {"type": "boolean"},
+                           "planes": {"type": "array", "items": INDEX},
+                           "directions": {"type": "array", "items": INDEX},
+                           "slip_axis": INDEX, "perspective": {"type": "boolean"}}}},
+        "models": {"type": "array", "items": {
+            "type": "object", "additionalProperties": False, "required": ["file"],
+            "properties": {"file": FILE, "style": {"enum": ["ball-and-stick", "space-filling"]},
+                           "scale": POS_NUM, "clip_to_cell": {"type": "boolean"}, "base": {"type": "boolean"},
+                           "kit": {"type": "boolean"}, "min_feature": POS_NUM,
+                           "bed": {"type": "array", "items": POS_NUM, "minItems": 3, "maxItems": 3},
+                           "material_density": POS_NUM, "clearance": {"type": "number", "minimum": 0}}}},
+        "exports": {"type": "array", "items": {
+            "type": "object", "additionalProperties": False, "required": ["file"],
+            "properties": {"file": FILE, "scale": POS_NUM}}},
+    },
+}
+
+
+def _keypath(path):
+    parts = []
+    for p in path:
+        if isinstance(p, int):
+            parts.append(f"[{p + 1}]")
+        else:
+            parts.append(("." if parts else "") + str(p))
+    return "".join(parts) or "(top level)"
+
+
+def _explain(err):
+    """One line: what was wrong and what would be valid."""
+    v = err.validator
+    inst = err.instance
+    if v == "additionalProperties":
+        allowed = sorted(err.schema.get("properties", {}))
+        extra = sorted(set(inst) - set(allowed)) if isinstance(inst, dict) else []
+        return f"unknown key {', '.join(repr(e) for e in extra)}; valid keys here: {', '.join(allowed)}"
+    if v == "required":
+        return f"{err.message.split(' is ')[0]} is missing; this table needs {', '.join(err.validator_value)}"
+    if v == "type":
+        want = err.validator_value
+        want = " or ".join(want) if isinstance(want, list) else want
+        return f"{inst!r} is a {type(inst).__name__}; it must be {'an' if str(want)[0] in 'aeiou' else 'a'} {want}"
+    if v == "enum":
+        return f"{inst!r} is not one of {', '.join(map(str, err.validator_value))}"
+    if v == "const":
+        return f"{inst!r} should be {err.validator_value!r}"
+    if v in ("minimum", "exclusiveMinimum", "maximum", "exclusiveMaximum"):
+        word = {"minimum": "at least", "exclusiveMinimum": "more than", "maximum": "at most",
+                "exclusiveMaximum": "less than"}[v]
+        return f"{inst!r} is out of range; it must be {word} {err.validator_value}"
+    if v in ("minItems", "maxItems"):
+        return f"{inst!r} has {len(inst)} items; it must have {'at least' if v == 'minItems' else 'at most'} {err.validator_value}"
+    if v in ("minLength", "maxLength", "pattern"):
+        return f"{inst!r} is not a valid value here ({err.message})"
+    return err.message
+
+
+def validate(data, path="scene"):
+    import jsonschema
+
+    validator = jsonschema.Draft202012Validator(SCHEMA)
+    errors = list(validator.iter_errors(data))
+    if not errors:
+        return data
+    err = jsonschema.exceptions.best_match(errors)
+    # descend into the if/then branches for the precise message
+    while err.context:
+        err = jsonschema.exceptions.best_match(err.context)
+    raise UserError(f"{path}: [{_keypath(err.absolute_path)}] {_explain(err)}")
+
+
+def load(path):
+    """Read and validate a scene file; returns the dict."""
+    p = Path(path)
+    if not p.is_file():
+        raise UserError(f"scene file '{p}' not found")
+    try:
+        raw = p.read_bytes()
+        if len(raw) > 1_000_000:
+            raise UserError(f"{p}: a scene file of {len(raw):,} bytes is too large; scenes are small text files (< 1 MB)")
+        data = tomllib.loads(raw.decode("utf-8"))
+    except UnicodeDecodeError:
+        raise UserError(f"{p}: not a UTF-8 text file; a scene is a TOML text file") from None
+    except tomllib.TOMLDecodeError as exc:
+        raise UserError(f"{p}: not valid TOML: {exc}") from None
+    validate(data, str(p))
+    s = data["structure"]
+    keys = [k for k in ("element", "compound", "lattice", "cif") if k in s]
+    if not keys:
+        raise UserError(f"{p}: [structure] needs one of element, compound, lattice or cif")
+    if "cif" in s and len(keys) > 1:
+        raise UserError(f"{p}: [structure] gives cif together with {', '.join(k for k in keys if k != 'cif')}; give one")
+    return data
+
+
+def crystal_from_scene(data, base_dir="."):
+    """Build the scene's crystal and apply its defects in order."""
+    from .build import build
+
+    s = data["structure"]
+    kw = {k: s[k] for k in ("a", "c", "repeat", "supercell", "orient", "max_atoms") if k in s}
+    if "cif" in s:
+        cif = Path(base_dir) / s["cif"]
+        crystal = build(str(cif), **{k: v for k, v in kw.items() if k in ("repeat", "supercell", "orient", "max_atoms")})
+    elif "compound" in s:
+        crystal = build(s["compound"], **kw)
+    elif "element" in s and "lattice" in s and s["lattice"] not in ("",):
+        crystal = build(s["element"], phase=s.get("phase"), lattice=s["lattice"], **kw)
+    elif "element" in s:
+        crystal = build(s["element"], phase=s.get("phase"), **kw)
+    else:
+        crystal = build(s["lattice"], elements=tuple(s["elements"]) if "elements" in s else None, **kw)
+    for d in data.get("defects", []):
+        crystal = apply_defect(crystal, d, s)
+    crystal.metadata["scene"] = data["scene"]["name"]
+    return crystal
+
+
+def _element_of(structure):
+    return structure.get("element") or structure.get("compound") or (structure.get("elements") or [None])[0]
+
+
+def apply_defect(crystal, d, structure):
+    import crystalview as cv
+
+    kind = d["kind"]
+    opts = {k: v for k, v in d.items() if k != "kind"}
+    if kind == "vacancies":
+        return cv.add_vacancies(crystal, **opts)
+    if kind == "substitute":
+        return cv.substitute(crystal, opts.pop("element"), **opts)
+    if kind == "interstitials":
+        site = opts.pop("site", "octahedral")
+        return cv.fill_sites(crystal, opts.pop("element"), kind=site, **opts)
+    if kind == "frenkel":
+        return cv.frenkel_pairs(crystal, **opts)
+    el = _element_of(structure)
+    if el is None:
+        raise UserError(f"a {kind} defect needs [structure] element")
+    extra = {k: structure[k] for k in ("phase", "a") if k in structure}
+    if kind == "stack":
+        rep = tuple(opts.pop("repeat", (1, 1)))
+        return cv.stack(el, opts["sequence"], repeat=rep, **extra)
+    if kind == "dislocation":
+        return cv.dislocation(el, **opts, **extra)
+    if kind == "slab":
+        return cv.slab(crystal, opts.pop("plane"), **opts)
+    if kind == "tilt-boundary":
+        return cv.tilt_boundary(el, **opts, **extra)
+    raise UserError(f"unknown defect kind '{kind}'; known: {', '.join(DEFECT_KINDS)}")
+
+
+def load_crystal(path):
+    """The crystal a scene file describes (structure + defects)."""
+    data = load(path)
+    return crystal_from_scene(data, Path(path).parent)
+
+
+# ------------------------------------------------------------------ running
+def _sha256(path):
+    h = hashlib.sha256()
+    with open(path, "rb") as fh:
+        for chunk in iter(lambda: fh.read(1 << 20), b""):
+            h.update(chunk)
+    return h.hexdigest()
+
+
+def _versions():
+    import importlib.metadata as md
+
+    from . import __version__
+
+    out = {"crystalview": __version__, "python": platform.python_version()}
+    for pkg in ("numpy", "scipy", "spglib", "gemmi", "periodictable", "pyvista", "vtk", "trimesh", "manifold3d"):
+        try:
+            out[pkg] = md.version(pkg)
+        except md.PackageNotFoundError:
+            pass
+    return out
+
+
+def _plain(obj):
+    """JSON-ready form of a result object (dataclass, to_dict(), list of them)."""
+    import dataclasses
+
+    if isinstance(obj, (list, tuple)):
+        return [_plain(o) for o in obj]
+    if hasattr(obj, "to_dict"):
+        return obj.to_dict()
+    if dataclasses.is_dataclass(obj) and not isinstance(obj, type):
+        return dataclasses.asdict(obj)
+    return obj
+
+
+def _write_json(path, obj, force):
+    from .cli.common import _json_default
+    from .fileio import atomic_write
+
+    atomic_write(path, json.dumps(obj, indent=2, default=_json_default) + "\n", force=force)
+
+
+def plan_outputs(data, out_dir):
+    """The files a scene will write (checked before any work starts)."""
+    out = Path(out_dir)
+    files = []
+    a = data.get("analysis", {})
+    if a.get("info", True):
+        files.append(out / "info.json")
+    if a.get("sites"):
+        files.append(out / "sites.json")
+    for sol in a.get("fit", []):
+        files.append(out / f"fit-{sol}.json")
+    if "slip" in a:
+        files.append(out / "slip.json")
+    for sec in ("figures", "models", "exports"):
+        for item in data.get(sec, []):
+            files.append(out / item["file"])
+    files.append(out / "manifest.json")
+    names = [f.name for f in files]
+    dup = {n for n in names if names.count(n) > 1}
+    if dup:
+        raise UserError(f"the scene writes {', '.join(sorted(dup))} more than once; give each output its own file name")
+    return files
+
+
+def run_scene(path, out=None, force=False, log=print):
+    """Do everything a scene file asks; returns the manifest dict."""
+    import crystalview as cv
+
+    t0 = time.perf_counter()
+    path = Path(path)
+    data = load(path)
+    name = data["scene"]["name"]
+    out_dir = Path(out) if out is not None else Path("exports") / name
+    files = plan_outputs(data, out_dir)
+    if not force:
+        existing = [str(f) for f in files if f.exists()]
+        if existing:
+            raise UserError(f"{path}: {existing[0]} already exists (and {len(existing) - 1} more); "
+                            f"pass --force to overwrite or --out to write elsewhere")
+    out_dir.mkdir(parents=True, exist_ok=True)
+    crystal = crystal_from_scene(data, path.parent)
+    inputs = [{"file": str(path), "sha256": _sha256(path)}]
+    if "cif" in data["structure"]:
+        cif = path.parent / data["structure"]["cif"]
+        inputs.append({"file": str(cif), "sha256": _sha256(cif)})
+    written = []
+
+    def done(p, what):
+        p = Path(p)
+        written.append({"file": str(p), "what": what, "bytes": p.stat().st_size, "sha256": _sha256(p)})
+        log(f"  wrote {p}  ({what})")
+
+    a = data.get("analysis", {})
+    caution = False
+    if a.get("info", True):
+        s = cv.summary(crystal, planes=a.get("planes", ()), directions=a.get("directions", ()))
+        _write_json(out_dir / "info.json", s, force)
+        done(out_dir / "info.json", "structure numbers")
+    if a.get("sites"):
+        from .analysis.sites import sites_report
+
+        _write_json(out_dir / "sites.json", sites_report(crystal), force)
+        done(out_dir / "sites.json", "interstitial sites")
+    for sol in a.get("fit", []):
+        rep = cv.fit(sol, crystal)
+        _write_json(out_dir / f"fit-{sol}.json", _plain(rep), force)
+        done(out_dir / f"fit-{sol}.json", f"fit of {sol}")
+        caution = True
+    if "slip" in a:
+        sl = a["slip"]
+        res = cv.schmid_factors(crystal, sl["axis"], families=sl.get("families"), stress=sl.get("stress"),
+                                crss=sl.get("crss"))
+        _write_json(out_dir / "slip.json", _plain(res), force)
+        done(out_dir / "slip.json", f"Schmid factors along {sl['axis']}")
+        caution = caution or "crss" in sl
+    for fig in data.get("figures", []):
+        opts = {k: v for k, v in fig.items() if k != "file"}
+        if "size" in opts:
+            opts["size"] = tuple(opts["size"])
+        cv.render(crystal, out_dir / fig["file"], force=force, **opts)
+        done(out_dir / fig["file"], f"figure, {opts.get('style', 'ball-and-stick')}, view {opts.get('view', '[001]')}")
+    for m in data.get("models", []):
+        opts = {k: v for k, v in m.items() if k != "file"}
+        if "bed" in opts:
+            opts["bed"] = tuple(opts["bed"])
+        rep = cv.print_model(crystal, out_dir / m["file"], force=force, **opts)
+        done(out_dir / m["file"], f"print model, {opts.get('style', 'ball-and-stick')}")
+        for extra in _report_files(rep):
+            if Path(extra).exists() and all(w["file"] != str(extra) for w in written):
+                done(extra, "print report")
+    for e in data.get("exports", []):
+        opts = {k: v for k, v in e.items() if k != "file"}
+        cv.export(crystal, out_dir / e["file"], force=force, **opts)
+        done(out_dir / e["file"], f"exchange file ({Path(e['file']).suffix.lstrip('.')})")
+    manifest = {
+        "scene": name,
+        "title": data["scene"].get("title"),
+        "inputs": inputs,
+        "crystal": repr(crystal),
+        "versions": _versions(),
+        "written": written,
+        "seconds": round(time.perf_counter() - t0, 2),
+        "created_utc": time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime()),
+    }
+    if caution or data["scene"].get("caution"):
+        manifest["caution"] = cv.CAUTION
+    _write_json(out_dir / "manifest.json", manifest, force)
+    log(f"  wrote {out_dir / 'manifest.json'}  (manifest)")
+    return manifest
+
+
+def _report_files(rep):
+    out = []
+    if isinstance(rep, dict):
+        for k in ("report_path", "report_file", "parts_list", "report_json"):
+            if rep.get(k):
+                out.append(rep[k])
+    else:
+        for k in ("report_path", "report_file", "parts_list"):
+            v = getattr(rep, k, None)
+            if v:
+                out.append(v)
+    return out

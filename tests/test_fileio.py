@@ -1,0 +1,45 @@
+"""Atomic, non-clobbering writes (crash-safety is also tested under SIGKILL in test_hardening.py)."""
+import os
+
+import pytest
+
+from crystalview.errors import UserError
+from crystalview.fileio import atomic_write
+
+
+def test_write_and_refuse_overwrite(tmp_path):
+    p = tmp_path / "a.txt"
+    atomic_write(p, "one")
+    with pytest.raises(UserError, match="--force"):
+        atomic_write(p, "two")
+    assert p.read_text() == "one"
+    atomic_write(p, "two", force=True)
+    assert p.read_text() == "two"
+    assert [f.name for f in tmp_path.iterdir()] == ["a.txt"]
+
+
+def test_failed_writer_leaves_nothing(tmp_path):
+    p = tmp_path / "b.bin"
+
+    def boom(tmp):
+        open(tmp, "wb").write(b"partial")
+        raise RuntimeError("disk on fire")
+
+    with pytest.raises(RuntimeError):
+        atomic_write(p, writer=boom)
+    assert list(tmp_path.iterdir()) == []
+
+
+def test_missing_folder_and_directory_target(tmp_path):
+    with pytest.raises(UserError, match="does not exist"):
+        atomic_write(tmp_path / "nope" / "x.txt", "x")
+    with pytest.raises(UserError, match="folder"):
+        atomic_write(tmp_path, "x")
+
+
+def test_stale_temp_of_a_dead_writer_is_removed(tmp_path):
+    p = tmp_path / "c.txt"
+    stale = tmp_path / ".c.txt.999999999.abc.tmp-cv.txt"   # no such process
+    stale.write_text("half")
+    atomic_write(p, "ok")
+    assert not stale.exists() and p.read_text() == "ok"
