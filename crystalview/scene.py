@@ -185,6 +185,10 @@ def load(path):
         raise UserError(f"{p}: [structure] needs one of element, compound, lattice or cif")
     if "cif" in s and len(keys) > 1:
         raise UserError(f"{p}: [structure] gives cif together with {', '.join(k for k in keys if k != 'cif')}; give one")
+    try:
+        plan_outputs(data, Path("."))
+    except UserError as exc:
+        raise UserError(f"{p}: {exc}") from None
     return data
 
 

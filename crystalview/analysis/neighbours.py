@@ -10,7 +10,6 @@ from __future__ import annotations
 import itertools
 
 import numpy as np
-from scipy.spatial import cKDTree
 
 from ..errors import LimitError
 
@@ -61,6 +60,8 @@ def neighbour_pairs(crystal, cutoff, max_pairs=200_000_000):
     if est > max_pairs:
         raise LimitError(f"a neighbour search to {cutoff:.2f} A over {n:,} atoms would list about {est:,} pairs; "
                          f"use a smaller cut-off or a smaller crystal")
+    from scipy.spatial import cKDTree
+
     pts, idx = with_images(crystal.positions, crystal.cell, crystal.pbc, cutoff)
     t_all = cKDTree(pts)
     t_own = cKDTree(crystal.positions)
@@ -79,7 +80,8 @@ def nearest_neighbour_distance(crystal):
     n = len(crystal)
     if n == 0:
         return float("nan")
-    h = cell_heights(crystal.cell)
+    from scipy.spatial import cKDTree
+
     guess = max(2.0 * (crystal.volume / max(n, 1)) ** (1 / 3), 1.0)
     cutoff = guess
     for _ in range(6):

@@ -6,7 +6,6 @@ from __future__ import annotations
 import math
 
 import numpy as np
-from scipy.spatial import cKDTree
 
 from .. import lattice as L
 from ..crystal import Crystal
@@ -41,13 +40,18 @@ def neighbour_shells(crystal: Crystal, nshells=3, sample=2000):
     idx = np.arange(n) if n <= sample else np.linspace(0, n - 1, sample).astype(int)
     cutoff = 2.2 * (crystal.volume / n) ** (1 / 3) + 0.5
     pts, _ = with_images(crystal.positions, crystal.cell, crystal.pbc, cutoff)
-    tree = cKDTree(pts)
-    lists = tree.query_ball_point(crystal.positions[idx], cutoff)
-    dists = []
-    for k, lst in zip(idx, lists):
-        d = np.linalg.norm(pts[lst] - crystal.positions[k], axis=1)
-        dists.append(d[d > 1e-8])
-    alld = np.sort(np.concatenate(dists))
+    if len(idx) * len(pts) <= 4_000_000:       # small cells: plain numpy, no scipy import
+        d = np.linalg.norm(pts[None, :, :] - crystal.positions[idx][:, None, :], axis=-1).ravel()
+        alld = np.sort(d[(d > 1e-8) & (d <= cutoff)])
+    else:
+        from scipy.spatial import cKDTree
+
+        lists = cKDTree(pts).query_ball_point(crystal.positions[idx], cutoff)
+        dists = []
+        for k, lst in zip(idx, lists):
+            d = np.linalg.norm(pts[lst] - crystal.positions[k], axis=1)
+            dists.append(d[d > 1e-8])
+        alld = np.sort(np.concatenate(dists))
     shells = []
     start = 0
     while start < len(alld) and len(shells) < nshells:
