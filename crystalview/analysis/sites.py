@@ -1,0 +1,450 @@
+"""Named interstitial sites of every lattice type.
+
+Each lattice type has a table of site kinds with their positions in the
+conventional cell (International Tables Vol. A Wyckoff positions where they
+exist).  Tetrahedral sites are placed at the exact tangent sphere of their four
+bounding atoms, so a hexagonal close-packed crystal of any c/a (or a cell with
+mixed atomic radii) gets the point its geometry defines, not the ideal-c/a
+coordinate.  The free radius of a site is the smallest distance from its
+centre to an atom centre minus that atom's hard-sphere radius
+(``crystal.atom_radii()``).
+
+For a perfect crystal everything is computed analytically with numpy from the
+conventional cell (no scipy, no spglib), then mapped through the crystal's
+supercell or orientation (``crystal.lattice.cell`` holds the conventional cell
+in the crystal frame).  For a defected crystal (``metadata['defects']``, or
+atoms missing / added / changed compared with the perfect lattice) the radius
+of every site is measured against the atoms actually present; sites taken by
+an atom are left out, and each empty lattice point is reported as a
+``vacancy`` site.  Structures without a known lattice type (CIF imports,
+heavily distorted cells) fall back on the generic void analysis
+(:func:`crystalview.analysis.voids.find_voids`).
+
+The body-centred cubic octahedral site is a *saddle* of the empty-sphere
+function (an empty sphere there can grow by moving towards a tetrahedral
+site); it is still the named site where carbon and nitrogen sit in ferrite,
+so it is listed here.  The generic void analysis, which looks for maxima,
+does not list it.
+"""
+from __future__ import annotations
+
+import itertools
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from ..errors import UserError
+
+_Q = (0.25, 0.75)
+_FCC_OCT = ((0.5, 0.5, 0.5), (0.5, 0, 0), (0, 0.5, 0), (0, 0, 0.5))
+_FCC_TET = tuple(itertools.product(_Q, _Q, _Q))
+_BCC_FACE = ((0.5, 0.5, 0), (0.5, 0, 0.5), (0, 0.5, 0.5))
+_BCC_EDGE = ((0.5, 0, 0), (0, 0.5, 0), (0, 0, 0.5))
+_BCC_TET = tuple(
+    tuple(v) for k in range(3) for v in
+    [np.insert(np.array(p, float), k, 0.0) for p in ((0.5, 0.25), (0.5, 0.75), (0.25, 0.5), (0.75, 0.5))]
+)
+_DIA_TET = ((0.5, 0.5, 0.5), (0.5, 0, 0), (0, 0.5, 0), (0, 0, 0.5),
+            (0.75, 0.75, 0.75), (0.75, 0.25, 0.25), (0.25, 0.75, 0.25), (0.25, 0.25, 0.75))
+
+
+def _diamond_ring_sites():
+    """The 16 centres of the puckered six-rings: midway between neighbouring
+    big tetrahedral holes of diamond cubic."""
+    first = np.array(_DIA_TET[:4])
+    second = np.array(_DIA_TET[4:])
+    out = []
+    for p in first:
+        d = second[None, :, :] + np.array(list(itertools.product((-1, 0, 1), repeat=3)))[:, None, :] - p
+        d = d.reshape(-1, 3)
+        dist = np.linalg.norm(d, axis=1)
+        for v in d[dist < dist.min() + 1e-9]:
+            m = (p + v / 2.0) % 1.0
+            if not any(np.allclose(m, o) for o in out):
+                out.append(m)
+    return tuple(tuple(float(x) for x in m) for m in out)
+
+
+# kind, coordination, positions, note
+_SADDLE = ("saddle of the empty-sphere function (an empty sphere there can grow towards a tetrahedral site); "
+           "the named site where C and N sit in ferrite; distorted: 2 neighbours at a/2, 4 at a/sqrt(2)")
+TEMPLATES = {
+    "fcc": [("octahedral", 6, _FCC_OCT, ""), ("tetrahedral", 4, _FCC_TET, "")],
+    "bcc": [("octahedral", 6, _BCC_FACE + _BCC_EDGE, _SADDLE), ("tetrahedral", 4, _BCC_TET, "")],
+    "hcp": [("octahedral", 6, ((0, 0, 0), (0, 0, 0.5)), ""),
+            ("tetrahedral", 4, ((1 / 3, 2 / 3, 5 / 8), (1 / 3, 2 / 3, 7 / 8), (2 / 3, 1 / 3, 1 / 8), (2 / 3, 1 / 3, 3 / 8)),
+             "placed at the tangent sphere of its four atoms (moves with c/a)")],
+    "sc": [("cubic", 8, ((0.5, 0.5, 0.5),), "cube centre")],
+    "hex": [("trigonal prismatic", 6, ((1 / 3, 2 / 3, 0.5), (2 / 3, 1 / 3, 0.5)), "centre of a triangular prism")],
+    "diamond": [("tetrahedral", 4, _DIA_TET, "the empty half of the face-centred tetrahedral sites (Fd-3m 8b)"),
+                ("octahedral", 6, None, "centre of a puckered six-ring of atoms (a flattened octahedron, Fd-3m 16d)")],
+    "B2": [("octahedral", 6, _BCC_FACE + _BCC_EDGE, _SADDLE.split(";")[0]), ("tetrahedral", 4, _BCC_TET, "")],
+    "L1_2": [("octahedral", 6, _FCC_OCT, ""), ("tetrahedral", 4, _FCC_TET, "")],
+    "L1_0": [("octahedral", 6, _FCC_OCT, ""), ("tetrahedral", 4, _FCC_TET, "")],
+}
+
+
+@dataclass(slots=True)
+class Site:
+    """One interstitial site.
+
+    kind : "octahedral", "tetrahedral", "cubic", "trigonal prismatic", "vacancy", ...
+    position : Cartesian position (A).
+    radius : free radius (A): distance to the nearest atom centre minus that
+        atom's hard-sphere radius (the smallest such value over all atoms).
+    neighbours : indices of the atoms that bound it (its coordination polyhedron).
+    multiplicity : sites of this kind and label per conventional cell.
+    label : kind plus the bounding species where a cell has several species.
+    ratio : radius / mean hard-sphere radius of the bounding atoms (r/R).
+    frac : fractional position in the conventional cell (None for voids).
+    note : anything worth knowing (e.g. a saddle point).
+    """
+
+    kind: str
+    position: np.ndarray
+    radius: float
+    neighbours: np.ndarray
+    multiplicity: int = 0
+    label: str = ""
+    ratio: float = float("nan")
+    frac: tuple | None = None
+    note: str = ""
+
+    def as_dict(self):
+        return {"kind": self.kind, "label": self.label, "position_A": [float(x) for x in self.position],
+                "radius_A": float(self.radius), "ratio": float(self.ratio),
+                "neighbours": [int(i) for i in self.neighbours], "multiplicity_per_cell": self.multiplicity,
+                "frac_conventional": None if self.frac is None else [float(x) for x in self.frac],
+                "note": self.note}
+
+
+@dataclass
+class SiteKind:
+    """A kind of site of a lattice type, worked out in the conventional cell."""
+
+    kind: str
+    label: str
+    coordination: int
+    frac: np.ndarray                  # (m, 3) conventional fractional positions
+    radius: float
+    ratio: float
+    neighbour_symbols: tuple
+    neighbour_distances: tuple        # centre-to-centre distances of the bounding atoms (A)
+    note: str = ""
+    radii: np.ndarray = field(default=None)   # per position (equal for symmetric kinds)
+
+    @property
+    def multiplicity(self):
+        return len(self.frac)
+
+    def bounding_text(self):
+        """'2 Fe at 1.4333 A + 4 Fe at 2.0270 A'."""
+        groups = {}
+        for s, d in zip(self.neighbour_symbols, self.neighbour_distances):
+            key = (s, round(float(d), 4))
+            groups[key] = groups.get(key, 0) + 1
+        return " + ".join(f"{n} {s} at {d:.4f} A" for (s, d), n in sorted(groups.items(), key=lambda x: (x[0][1], x[0][0])))
+
+
+def _images(cell, frac, n=1):
+    shifts = np.array(list(itertools.product(range(-n, n + 1), repeat=3)), float)
+    f = (np.asarray(frac, float)[None, :, :] + shifts[:, None, :]).reshape(-1, 3)
+    return f @ cell, np.tile(np.arange(len(frac)), len(shifts))
+
+
+def _formula(symbols, single_species=False):
+    uniq = sorted(set(symbols), key=lambda s: (-list(symbols).count(s), s))
+    if single_species:
+        return ""
+    return "".join(f"{s}{list(symbols).count(s)}" for s in uniq)
+
+
+def site_kinds(lattice, species_radii):
+    """The site kinds of a lattice type, worked out in its conventional cell
+    (list of :class:`SiteKind`), using the hard-sphere radii given."""
+    from .voids import tangent_sphere
+
+    proto = lattice.prototype
+    if proto not in TEMPLATES:
+        raise UserError(f"no named interstitial sites for lattice type '{proto}'; use find_voids() for any structure")
+    cell = np.asarray(lattice.cell, float)
+    basis = np.asarray(lattice.basis_frac, float)
+    syms = list(lattice.basis_symbols)
+    try:
+        brad = np.array([float(species_radii[s]) for s in syms])
+    except KeyError as exc:
+        raise UserError(f"no hard-sphere radius for {exc.args[0]} in this crystal; the host needs radius data "
+                        f"(crystal.species_radii)") from None
+    if np.any(~np.isfinite(brad)) or np.any(brad <= 0):
+        raise UserError("the host atoms need positive hard-sphere radii (crystal.species_radii)")
+    img, which = _images(cell, basis, 2)
+    out = []
+    for kind, coord, positions, note in TEMPLATES[proto]:
+        if positions is None:
+            positions = _diamond_ring_sites()
+        by_label = {}
+        for p in positions:
+            x = np.asarray(p, float) @ cell
+            d = np.linalg.norm(img - x, axis=1)
+            o = np.argsort(d, kind="stable")[:coord]
+            if kind == "tetrahedral":
+                centre, _ = tangent_sphere(img[o], brad[which[o]])
+                if np.linalg.norm(centre - x) < 0.25 * d[o].min():
+                    x = centre
+                    d = np.linalg.norm(img - x, axis=1)
+                    o = np.argsort(d, kind="stable")[:coord]
+            slack = d - brad[which]
+            r = float(slack.min())
+            nsym = tuple(syms[k] for k in which[o])
+            form = _formula(nsym, len(set(syms)) == 1)
+            label = kind + (f" ({form})" if form else "")
+            f = np.linalg.solve(cell.T, x)
+            f = np.where(np.abs(f - np.round(f)) < 1e-12, np.round(f), f) % 1.0
+            ent = by_label.setdefault(label, dict(frac=[], radii=[], nsym=nsym, nd=tuple(d[o]),
+                                                  rbar=float(brad[which[o]].mean())))
+            ent["frac"].append(f)
+            ent["radii"].append(r)
+        for label, e in by_label.items():
+            radii = np.array(e["radii"])
+            r = float(radii.min())
+            out.append(SiteKind(kind, label, coord, np.array(e["frac"]), r, r / e["rbar"], e["nsym"],
+                                tuple(float(v) for v in e["nd"]), note, radii))
+    return out
+
+
+# ---------------------------------------------------------------------- mapping into a crystal
+def _expected_counts(crystal):
+    lat = crystal.lattice
+    ratio = crystal.volume / abs(np.linalg.det(lat.cell))
+    per = {}
+    for s in lat.basis_symbols:
+        per[s] = per.get(s, 0) + 1
+    return {s: n * ratio for s, n in per.items()}, len(lat.basis_symbols) * ratio
+
+
+def is_perfect(crystal):
+    """True when the crystal is its perfect lattice: no recorded defects,
+    only host atoms, and the species counts of the perfect cell."""
+    lat = crystal.lattice
+    if lat is None or lat.prototype not in TEMPLATES:
+        return False
+    if crystal.metadata.get("defects"):
+        return False
+    if len(crystal) and np.any(crystal.roles != 0):
+        return False
+    exp, total = _expected_counts(crystal)
+    if abs(total - len(crystal)) > 1e-6:
+        return False
+    counts = crystal.counts()
+    return all(abs(counts.get(s, 0) - n) < 1e-6 for s, n in exp.items()) and set(counts) <= set(exp)
+
+
+def _lattice_points(crystal, frac_conv, origin):
+    """Cartesian positions of the conventional-cell points ``frac_conv``
+    repeated over the crystal cell (each point once, periodic)."""
+    lat = crystal.lattice
+    conv = np.asarray(lat.cell, float)
+    P = crystal.cell @ np.linalg.inv(conv)               # crystal rows in conventional fractions
+    corners = np.array(list(itertools.product((0, 1), repeat=3)), float) @ P
+    lo = np.floor(corners.min(axis=0) - 1e-9).astype(int) - 1
+    hi = np.ceil(corners.max(axis=0) + 1e-9).astype(int) + 1
+    grid = np.stack(np.meshgrid(*[np.arange(a, b) for a, b in zip(lo, hi)], indexing="ij"), -1).reshape(-1, 3)
+    est = len(grid) * len(frac_conv)
+    if est > 60_000_000:
+        from ..errors import LimitError
+
+        raise LimitError(f"listing the sites of this cell would try {est:,} positions; use a smaller crystal")
+    fc = (grid[:, None, :] + np.asarray(frac_conv)[None, :, :] + origin).reshape(-1, 3)
+    fn = fc @ np.linalg.inv(P)
+    eps = 1e-7
+    keep = np.ones(len(fn), bool)
+    for k in range(3):
+        keep &= (fn[:, k] > -eps) & (fn[:, k] < 1 - eps)
+    which = np.tile(np.arange(len(frac_conv)), len(grid))[keep]
+    fn = fn[keep]
+    fn[np.abs(fn) < eps] = 0.0
+    return fn @ crystal.cell, which
+
+
+def _origin(crystal):
+    """Offset (conventional fractions) of the lattice origin in the crystal,
+    found from the atoms; None when the atoms do not sit on the lattice."""
+    lat = crystal.lattice
+    if len(crystal) == 0:
+        return None
+    conv = np.asarray(lat.cell, float)
+    basis = np.asarray(lat.basis_frac, float)
+    n = len(crystal)
+    sample = crystal.positions[np.linspace(0, n - 1, min(n, 40)).astype(int)]
+    F = np.linalg.solve(conv.T, sample.T).T
+    dnn = 2.0 * min(crystal.radius_of(s) for s in set(lat.basis_symbols))
+    tol = 0.2 * dnn / np.linalg.norm(conv, axis=1).max()
+
+    def score(off):
+        d = (F[:, None, :] - basis[None, :, :] - off)
+        d -= np.round(d)
+        return float(np.mean(np.any(np.all(np.abs(d) < tol, axis=2), axis=1)))
+
+    cands = [np.zeros(3)] + [((F[0] - b) + 0.5) % 1.0 - 0.5 for b in basis]
+    best = max(cands, key=score)
+    return best if score(best) >= 0.6 else None
+
+
+def _nearest(crystal, points, k):
+    """k nearest atoms (periodic) to each point: (distances, atom indices)."""
+    n = len(crystal)
+    k = min(k, max(n, 1) * 27)
+    if n * len(points) <= 300_000:
+        img, which = _images(crystal.cell, crystal.frac, 1)
+        out_d = np.empty((len(points), k))
+        out_i = np.empty((len(points), k), int)
+        step = max(1, 300_000 // max(len(img), 1))
+        for s0 in range(0, len(points), step):
+            d = np.linalg.norm(points[s0:s0 + step, None, :] - img[None, :, :], axis=2)
+            o = np.argsort(d, axis=1, kind="stable")[:, :k]
+            out_d[s0:s0 + step] = np.take_along_axis(d, o, axis=1)
+            out_i[s0:s0 + step] = which[o]
+        return out_d, out_i
+    from scipy.spatial import cKDTree
+
+    from .neighbours import with_images
+
+    cutoff = 2.6 * (crystal.volume / n) ** (1 / 3)
+    pts, idx = with_images(crystal.positions, crystal.cell, crystal.pbc, cutoff)
+    d, j = cKDTree(pts).query(points, k=k)
+    return d, idx[np.minimum(j, len(idx) - 1)]
+
+
+def interstitial_sites(crystal, kinds=None):
+    """Every interstitial site of a crystal, as a list of :class:`Site`.
+
+    kinds : optional kind name or list of names to keep ("octahedral", ...).
+    Works for conventional cells, supercells and oriented cells of the
+    lattice types fcc, bcc, hcp, sc, hex, diamond, B2, L1_2 and L1_0; for a
+    defected crystal the holes actually present (vacancy holes included); for
+    anything else the holes found by :func:`find_voids`.
+    """
+    want = None if kinds is None else ({kinds} if isinstance(kinds, str) else set(kinds))
+    lat = crystal.lattice
+    sites = None
+    if lat is not None and lat.prototype in TEMPLATES:
+        sites = _lattice_sites(crystal)
+    if sites is None:
+        sites = _void_sites(crystal)
+    if want is not None:
+        sites = [s for s in sites if s.kind in want]
+    return sites
+
+
+def _void_sites(crystal, note=""):
+    from .voids import find_voids
+
+    v = find_voids(crystal, channels=False)
+    return [Site(kind=str(v.kinds[i]), position=v.positions[i], radius=float(v.radii[i]),
+                 neighbours=v.neighbours[i][v.neighbours[i] >= 0], multiplicity=0, label=str(v.kinds[i]),
+                 ratio=float(v.ratios[i]), frac=None, note=note or "found by the generic void analysis")
+            for i in range(len(v))]
+
+
+def _lattice_sites(crystal):
+    kinds = site_kinds(crystal.lattice, {s: crystal.radius_of(s) for s in set(crystal.lattice.basis_symbols)})
+    perfect = is_perfect(crystal)
+    origin = np.zeros(3) if perfect else _origin(crystal)
+    if origin is None:
+        return None
+    out = []
+    allfrac = np.vstack([k.frac for k in kinds])
+    owner = np.concatenate([[i] * k.multiplicity for i, k in enumerate(kinds)])
+    pos, which = _lattice_points(crystal, allfrac, origin)
+    kind_of = owner[which]
+    offsets = np.cumsum([0] + [k.multiplicity for k in kinds])
+    local = which - offsets[kind_of]
+    kmax = max(k.coordination for k in kinds)
+    if perfect:
+        d, nb = _nearest(crystal, pos, kmax) if len(pos) else (np.zeros((0, kmax)), np.zeros((0, kmax), int))
+        for j in range(len(pos)):
+            sk = kinds[kind_of[j]]
+            fi = local[j]
+            out.append(Site(sk.kind, pos[j], float(sk.radii[fi]), nb[j, : sk.coordination].copy(), sk.multiplicity,
+                            sk.label, sk.ratio, tuple(sk.frac[fi]), sk.note))
+        return out
+    # defected: measure every site against the atoms present
+    radii = crystal.atom_radii()
+    k = kmax + 8
+    d, nb = _nearest(crystal, pos, k)
+    slack = d - radii[nb]
+    free = slack.min(axis=1)
+    host_r = float(np.median([crystal.radius_of(s) for s in crystal.lattice.basis_symbols]))
+    dnn = 2.0 * host_r
+    # a site is taken when an atom sits within 0.3 of its perfect-lattice
+    # centre-to-neighbour distance; a nearer atom elsewhere only shrinks it
+    # (the free radius can then be negative: the hole is blocked)
+    reach = np.array([min(k.neighbour_distances) for k in kinds])[kind_of]
+    occupied = d[:, 0] < 0.3 * reach
+    for j in np.nonzero(~occupied)[0]:
+        sk = kinds[kind_of[j]]
+        fi = local[j]
+        nbj = nb[j, : sk.coordination]
+        out.append(Site(sk.kind, pos[j], float(free[j]), nbj.copy(), sk.multiplicity, sk.label,
+                        float(free[j] / radii[nbj].mean()), tuple(sk.frac[fi]), sk.note))
+    # empty lattice points: the hole a vacancy leaves
+    lp, lw = _lattice_points(crystal, np.asarray(crystal.lattice.basis_frac, float), origin)
+    if len(lp):
+        d2, nb2 = _nearest(crystal, lp, 14)
+        empty = d2[:, 0] > 0.35 * dnn
+        if empty.any():
+            m = np.nonzero(empty)[0]
+            sl = d2[m] - radii[nb2[m]]
+            fr = sl.min(axis=1)
+            nearest_n = np.sum(d2[m] < d2[m, :1] + 0.1 * dnn, axis=1)
+            for t, j in enumerate(m):
+                nbj = nb2[j, : max(int(nearest_n[t]), 1)]
+                out.append(Site("vacancy", lp[j], float(fr[t]), nbj.copy(), 0, "vacancy",
+                                float(fr[t] / radii[nbj].mean()),
+                                tuple(np.asarray(crystal.lattice.basis_frac, float)[lw[j]]),
+                                "empty lattice point (vacancy)"))
+    return out
+
+
+# ---------------------------------------------------------------------- summary
+def site_table(crystal):
+    """One row per site kind: radius (or spread for a defected crystal), r/R,
+    count per conventional cell and in this crystal, coordinates, bounding atoms."""
+    lat = crystal.lattice
+    perfect = is_perfect(crystal)
+    rows = []
+    if lat is not None and lat.prototype in TEMPLATES and perfect:
+        kinds = site_kinds(lat, {s: crystal.radius_of(s) for s in set(lat.basis_symbols)})
+        vol_ratio = crystal.volume / abs(np.linalg.det(lat.cell))
+        atoms_per_cell = lat.atoms_per_cell
+        for k in kinds:
+            rows.append({
+                "kind": k.kind, "label": k.label, "radius_A": k.radius, "ratio": k.ratio,
+                "per_cell": k.multiplicity, "per_atom": k.multiplicity / atoms_per_cell,
+                "in_crystal": int(round(k.multiplicity * vol_ratio)),
+                "frac_conventional": [[round(float(x), 6) for x in f] for f in k.frac],
+                "bounded_by": k.bounding_text(), "coordination": k.coordination, "note": k.note,
+            })
+        return rows
+    sites = interstitial_sites(crystal)
+    groups = {}
+    for s in sites:
+        groups.setdefault(s.label or s.kind, []).append(s)
+    n_cells = None
+    if lat is not None and lat.prototype in TEMPLATES:
+        n_cells = crystal.volume / abs(np.linalg.det(lat.cell))
+    for label, ss in groups.items():
+        r = np.array([s.radius for s in ss])
+        q = np.array([s.ratio for s in ss])
+        rows.append({
+            "kind": ss[0].kind, "label": label, "radius_A": float(np.median(r)), "ratio": float(np.median(q)),
+            "radius_min_A": float(r.min()), "radius_median_A": float(np.median(r)), "radius_max_A": float(r.max()),
+            "per_cell": ss[0].multiplicity or None,
+            "per_atom": (len(ss) / len(crystal)) if len(crystal) else None,
+            "in_crystal": len(ss), "frac_conventional": [list(map(float, ss[0].frac))] if ss[0].frac else [],
+            "bounded_by": f"{len(ss[0].neighbours)} atoms", "coordination": len(ss[0].neighbours),
+            "note": ss[0].note,
+        })
+    order = {"octahedral": 0, "tetrahedral": 1, "cubic": 2, "trigonal prismatic": 3, "vacancy": 4, "other": 5}
+    rows.sort(key=lambda r: (order.get(r["kind"], 9), r["label"]))
+    return rows

@@ -1,0 +1,85 @@
+"""crystalview render SPEC -o FIG.png|.svg|.pdf: a report figure."""
+from __future__ import annotations
+
+from .common import add_spec_arguments, crystal_from_args, print_json
+
+STYLE_NAMES = ["ball-and-stick", "space-filling", "lattice", "cell-cut"]
+
+
+def add_figure_arguments(p):
+    g = p.add_argument_group("figure")
+    g.add_argument("--view", default="[001]", metavar="UVW",
+                   help="look along this crystal direction, e.g. [001], [111], [2-1-10] (default [001])")
+    g.add_argument("--up", metavar="UVW", help="crystal direction pointing up in the picture (default: c or b axis)")
+    g.add_argument("--style", default="ball-and-stick", metavar="STYLE",
+                   help="one of " + ", ".join(STYLE_NAMES) + " (default ball-and-stick)")
+    g.add_argument("--sites", action="store_true", help="show the interstitial sites at their free radius")
+    g.add_argument("--polyhedra", choices=["coordination", "sites", "both"],
+                   help="translucent coordination and/or site polyhedra")
+    g.add_argument("--plane", action="append", default=[], metavar="(hkl)", help="draw a plane, e.g. (111); repeatable")
+    g.add_argument("--direction", action="append", default=[], metavar="[uvw]",
+                   help="draw a direction as an arrow from the origin; repeatable")
+    g.add_argument("--layers", nargs="?", const=True, default=None, metavar="(hkl)",
+                   help="colour close-packed layers A, B, C (default plane (111) or (0001))")
+    g.add_argument("--no-defects", action="store_true", help="do not mark vacancies")
+    g.add_argument("--slip-axis", metavar="UVW", help="loading axis: draw the most favoured slip plane and direction")
+    g.add_argument("--no-cell", action="store_true", help="leave out the cell outline")
+    g.add_argument("--no-legend", action="store_true")
+    g.add_argument("--no-scale-bar", action="store_true")
+    g.add_argument("--caption", default=None, metavar="TEXT",
+                   help="caption text (default: structure, lattice parameters, view); 'none' for no caption")
+
+
+def figure_kwargs(args):
+    cap = True
+    if args.caption is not None:
+        cap = False if args.caption.strip().lower() in ("none", "off", "") else args.caption
+    return dict(view=args.view, up=args.up, style=args.style, sites=args.sites, polyhedra=args.polyhedra,
+                planes=args.plane, directions=args.direction, layers=args.layers, defects=not args.no_defects,
+                slip_axis=args.slip_axis, cell=False if args.no_cell else None, legend=not args.no_legend,
+                scale_bar=not args.no_scale_bar, caption=cap)
+
+
+def register(sub):
+    p = sub.add_parser("render", help="report figure as PNG, SVG or PDF",
+                       description="Draw a crystal along a crystal direction into a PNG (with its dpi), SVG or PDF, "
+                                   "with legend, scale bar and caption.")
+    add_spec_arguments(p)
+    p.add_argument("-o", "--output", required=True, metavar="FIG", help="output file: .png, .svg or .pdf")
+    add_figure_arguments(p)
+    p.add_argument("--size", nargs=2, default=["1600", "1200"], metavar=("W", "H"), help="pixels (default 1600 1200)")
+    p.add_argument("--dpi", default="300", help="dots per inch recorded in the PNG (default 300)")
+    p.add_argument("--transparent", action="store_true", help="transparent background (PNG alpha, SVG/PDF no fill)")
+    p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.add_argument("--json", action="store_true", help="print what was written as JSON only")
+    p.set_defaults(func=run)
+
+
+def run(args):
+    from ..errors import UserError
+    from ..fileio import check_target
+    from ..render import style as S
+
+    # cheap checks first: nothing is built or imported if the request is bad
+    check_target(args.output, force=args.force, suffixes={".png", ".svg", ".pdf"})
+    size = S.check_size(args.size)
+    dpi = S.check_dpi(args.dpi)
+    S.get_style(args.style)
+    c = crystal_from_args(args)
+    from ..render.figure import render
+
+    info = render(c, args.output, size=size, dpi=dpi, transparent=args.transparent, force=args.force,
+                  **figure_kwargs(args))
+    if args.json:
+        print_json(info)
+        return 0
+    extra = f", scale bar {info['scale_bar_A']:g} A" if "scale_bar_A" in info else ""
+    print(f"wrote {info['path']}: {info['size'][0]} x {info['size'][1]} px at {info['dpi']:g} dpi, "
+          f"{info['style']}, view {info['view']} ({info['up']} up), {info['atoms_drawn']:,} spheres drawn for "
+          f"{info['atoms']:,} atoms{extra}")
+    if "atoms_per_cell_from_shares" in info:
+        print("  atoms per cell from the cut shares: "
+              + ", ".join(f"{k} {v:.3f}" for k, v in info["atoms_per_cell_from_shares"].items()))
+    if UserError is None:  # pragma: no cover
+        pass
+    return 0

@@ -1,0 +1,90 @@
+"""crystalview sites SPEC: interstitial site kinds and hole radii."""
+from __future__ import annotations
+
+from .common import add_spec_arguments, crystal_from_args, print_json, table
+
+
+def register(sub):
+    p = sub.add_parser("sites", help="interstitial site kinds, hole radii and r/R",
+                       description="The interstitial holes of a crystal: kind, free radius, ratio r/R to the host "
+                                   "radius, count per conventional cell and coordinates.  Defected crystals report "
+                                   "the holes actually present (with the spread of radii).")
+    add_spec_arguments(p)
+    p.add_argument("--voids", action="store_true",
+                   help="also run the generic void analysis (holes found from the atoms, channel bottlenecks)")
+    p.add_argument("--json", action="store_true", help="print JSON only")
+    p.set_defaults(func=run)
+
+
+def _frac_text(v):
+    from fractions import Fraction
+
+    fr = Fraction(float(v)).limit_denominator(48)
+    if abs(float(fr) - float(v)) < 1e-6:
+        return str(fr)
+    return f"{float(v):.4f}"
+
+
+def coords_text(frac):
+    return " ".join("(" + ",".join(_frac_text(x) for x in f) + ")" for f in frac)
+
+
+def run(args):
+    from ..analysis.sites import is_perfect, site_table
+
+    c = crystal_from_args(args)
+    rows = site_table(c)
+    perfect = is_perfect(c)
+    lat = c.lattice
+    head = {
+        "name": c.metadata.get("name") or "/".join(c.elements),
+        "phase": c.metadata.get("phase"),
+        "structure": lat.title if lat is not None else "unknown",
+        "a_A": c.metadata.get("a"), "c_A": c.metadata.get("c"), "atoms": len(c), "perfect": perfect,
+        "host_radius_A": {s: c.radius_of(s) for s in c.elements},
+        "radius_definition": "free radius: distance from the site to the nearest atom centre minus that atom's "
+                             "hard-sphere radius; r/R = free radius / hard-sphere radius of the bounding atoms",
+    }
+    out = dict(head, sites=rows)
+    if args.voids:
+        from ..analysis.voids import find_voids
+
+        v = find_voids(c)
+        out["voids"] = {"method": v.method, "count": len(v), "channels": int(len(v.channels)),
+                        "by_kind": v.summary()}
+    if args.json:
+        print_json(out)
+        return 0
+    title = head["name"] + (f" ({head['phase']})" if head["phase"] else "") + f": {head['structure']}"
+    par = f"a = {head['a_A']:.4f} A" if head["a_A"] else ""
+    if head["c_A"]:
+        par += f", c = {head['c_A']:.4f} A"
+    print(title + (f", {par}" if par else ""))
+    print("host hard-sphere radius R: " + ", ".join(f"{k} {v:.4f} A" for k, v in head["host_radius_A"].items())
+          + f"; {len(c)} atoms" + ("" if perfect else " (defected: radii measured against the atoms present)"))
+    print()
+    if perfect:
+        trows = [(r["label"], f"{r['radius_A']:.4f}", f"{r['ratio']:.3f}", r["per_cell"], f"{r['per_atom']:g}",
+                  r["in_crystal"], r["bounded_by"]) for r in rows]
+        print(table(trows, ["site", "r (A)", "r/R", "per cell", "per atom", "in crystal", "bounded by"]))
+        print()
+        print("coordinates (fractions of the conventional cell):")
+        for r in rows:
+            print(f"  {r['label']}: {coords_text(r['frac_conventional'])}")
+    else:
+        trows = [(r["label"], f"{r['radius_min_A']:.4f}", f"{r['radius_median_A']:.4f}", f"{r['radius_max_A']:.4f}",
+                  f"{r['ratio']:.3f}", r["per_cell"] or "-", r["in_crystal"]) for r in rows]
+        print(table(trows, ["site", "r min (A)", "r median", "r max", "r/R median", "per cell", "in crystal"]))
+    notes = [(r["label"], r["note"]) for r in rows if r["note"]]
+    if notes:
+        print()
+        for lab, n in dict(notes).items():
+            print(f"  note, {lab}: {n}")
+    if args.voids:
+        print()
+        print(f"void analysis: {out['voids']['count']} holes, {out['voids']['channels']} channels ({out['voids']['method']})")
+        vrows = [(k, r["count"], f"{r['radius_min_A']:.4f}", f"{r['radius_max_A']:.4f}", f"{r['ratio_median']:.3f}",
+                  f"{r.get('bottleneck_min_A', float('nan')):.4f}")
+                 for k, r in out["voids"]["by_kind"].items()]
+        print(table(vrows, ["hole", "count", "r min (A)", "r max (A)", "r/R", "narrowest channel (A)"]))
+    return 0

@@ -1,0 +1,46 @@
+"""Interstitial solutes in named sites: fill_sites()."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from ..errors import UserError
+
+
+def fill_sites(crystal, element, kind="octahedral", fraction=1.0, seed=0):
+    """A new crystal with ``element`` atoms (role "interstitial") in a
+    ``fraction`` of the empty ``kind`` sites, chosen at random with ``seed``.
+
+    The count is round(fraction x number of sites); the same seed gives the
+    same result.  The solute's radius is its interstitial radius from the data
+    file (or its metallic radius for a metal).  A defect record is added to
+    ``metadata['defects']``.
+    """
+    from .. import elements as E
+    from ..analysis.sites import interstitial_sites
+
+    try:
+        frac = float(fraction)
+    except (TypeError, ValueError):
+        raise UserError(f"fraction {fraction!r} must be a number between 0 and 1, e.g. 0.05") from None
+    if not math.isfinite(frac) or frac < 0 or frac > 1:
+        raise UserError(f"fraction {fraction!r} must lie between 0 and 1 (a fraction of the sites), e.g. 0.05")
+    sym = E._canon(element)
+    E.atomic_number(sym)
+    radius, _mode, _src = E.solute_radius(sym)
+    sites = interstitial_sites(crystal)
+    kinds = sorted({s.kind for s in sites if s.kind != "vacancy"})
+    kind_l = str(kind).strip().lower()
+    if kind_l not in kinds:
+        raise UserError(f"no '{kind}' sites in this crystal; its site kinds are: {', '.join(kinds) or 'none'}")
+    chosen_from = [s for s in sites if s.kind == kind_l]
+    n = int(round(frac * len(chosen_from)))
+    rng = np.random.default_rng(seed)
+    pick = np.sort(rng.choice(len(chosen_from), size=n, replace=False)) if n else np.zeros(0, int)
+    pos = np.array([chosen_from[i].position for i in pick]).reshape(-1, 3)
+    rad = None if sym in crystal.species_radii else radius
+    out = crystal.add_atoms(pos, sym, role="interstitial", radius=rad)
+    out.record_defect("interstitial", element=sym, site=kind_l, count=n, fraction=frac, seed=seed,
+                      sites_available=len(chosen_from))
+    return out

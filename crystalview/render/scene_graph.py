@@ -1,0 +1,764 @@
+"""What a figure shows, as plain numpy data: atoms, sticks, cell edges,
+overlays, legend entries and caption, plus the view (camera axes) and the
+hidden-atom culling used for big crystals.
+
+No vtk or pyvista here.  The raster renderer (figure.py), the vector writers
+(figure.py) and the interactive window (viewer.py) all draw from a Scene.
+"""
+from __future__ import annotations
+
+import itertools
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from .. import palette
+from ..crystal import ROLES
+from ..errors import UserError
+from . import style as S
+
+
+# ---------------------------------------------------------------- the view
+@dataclass
+class View:
+    """Orthonormal camera axes: ``toward`` points from the crystal to the
+    viewer (the zone axis [uvw] points out of the picture), ``up`` is up on
+    the page and ``right`` completes a right-handed set."""
+
+    toward: np.ndarray
+    up: np.ndarray
+    right: np.ndarray
+    label: str
+    up_label: str
+
+    def project(self, pts):
+        """(N, 3) -> (N, 3) of (right, up, toward) coordinates."""
+        p = np.asarray(pts, float).reshape(-1, 3)
+        return np.stack([p @ self.right, p @ self.up, p @ self.toward], axis=1)
+
+
+def _ref_cell(crystal):
+    return crystal.lattice.cell if crystal.lattice is not None else crystal.cell
+
+
+def direction(crystal, text, what="view"):
+    """Cartesian unit vector and tidy label of a direction '[uvw]' / '[uvtw]'."""
+    from ..lattice import direction_vector, parse_indices
+
+    if isinstance(text, (list, tuple, np.ndarray)) and len(text) in (3, 4) and not isinstance(text, str):
+        text = "[" + ",".join(str(int(v)) for v in text) + "]"
+    s = str(text).strip()
+    ind = parse_indices(s, kind="direction")
+    if ind.family:
+        raise UserError(f"--{what} '{text}' is a family <uvw>; give one direction in square brackets, e.g. [110]")
+    if ind.four and not (crystal.lattice is not None and crystal.lattice.is_hexagonal):
+        raise UserError(f"--{what} '{text}' has four indices, which only hexagonal cells use; give [uvw]")
+    v = direction_vector(_ref_cell(crystal), ind)
+    n = np.linalg.norm(v)
+    return v / n, str(ind)
+
+
+def make_view(crystal, view="[001]", up=None):
+    t, label = direction(crystal, view, "view")
+    ref = _ref_cell(crystal)
+    if up is None:
+        up_vec = None
+        for k, name in ((2, "[001]"), (1, "[010]"), (0, "[100]")):
+            cand = ref[k] / np.linalg.norm(ref[k])
+            perp = cand - (cand @ t) * t
+            if np.linalg.norm(perp) > 0.3:
+                up_vec, up_label = perp, name
+                break
+        if crystal.lattice is not None and crystal.lattice.is_hexagonal:
+            from ..lattice import miller_to_mb_direction, format_indices
+
+            up_label = format_indices(miller_to_mb_direction(tuple(int(x) for x in up_label[1:-1])))
+    else:
+        u, up_label = direction(crystal, up, "up")
+        up_vec = u - (u @ t) * t
+        if np.linalg.norm(up_vec) < 1e-6:
+            raise UserError(f"--up {up} is parallel to the view direction {label}; choose an up direction "
+                            f"across the view, e.g. one at right angles to it")
+    up_vec = up_vec / np.linalg.norm(up_vec)
+    right = np.cross(up_vec, t)
+    right /= np.linalg.norm(right)
+    return View(t, up_vec, right, label, up_label)
+
+
+# ---------------------------------------------------------------- the scene
+@dataclass
+class Scene:
+    colours: list = field(default_factory=list)          # hex colours used by atoms
+    atom_pos: np.ndarray = None
+    atom_radius: np.ndarray = None
+    atom_colour: np.ndarray = None                       # index into colours
+    atom_src: np.ndarray = None                          # index of the crystal atom drawn
+    atom_frac_shown: np.ndarray = None                   # share of the atom inside the cell (cell-cut)
+    bonds: np.ndarray = None                             # (K, 2, 3)
+    bond_radius: float = 0.0
+    cell_edges: np.ndarray = None                        # (12, 2, 3)
+    cut_meshes: list = field(default_factory=list)       # dict(points, faces, colour)
+    overlay_spheres: list = field(default_factory=list)  # dict(pos, radius, colour, opacity, group, label)
+    meshes: list = field(default_factory=list)           # dict(points, faces, colour, opacity, group, edges)
+    arrows: list = field(default_factory=list)           # dict(start, vector, colour, label, group, double)
+    markers: list = field(default_factory=list)          # dict(pos, radius, colour, group) empty outline spheres
+    legend: list = field(default_factory=list)           # (label, hex, shape)
+    caption: list = field(default_factory=list)          # lines
+    info: dict = field(default_factory=dict)             # numbers for picking and captions
+    view: View = None
+    crystal: object = None
+
+    @property
+    def n_atoms(self):
+        return 0 if self.atom_pos is None else len(self.atom_pos)
+
+    def groups(self):
+        g = set()
+        if self.bonds is not None and len(self.bonds):
+            g.add("bonds")
+        if self.cell_edges is not None:
+            g.add("cell")
+        for lst in (self.overlay_spheres, self.meshes, self.arrows, self.markers):
+            for item in lst:
+                g.add(item["group"])
+        return sorted(g)
+
+    def extent_points(self):
+        """Points and radii whose silhouettes must fit the frame."""
+        pts, rad = [], []
+        if self.n_atoms and not self.cut_meshes:
+            pts.append(self.atom_pos)
+            rad.append(self.atom_radius)
+        if self.cell_edges is not None:
+            pts.append(self.cell_edges.reshape(-1, 3))
+            rad.append(np.zeros(len(self.cell_edges) * 2))
+        for s in self.overlay_spheres:
+            pts.append(s["pos"])
+            rad.append(np.broadcast_to(s["radius"], (len(s["pos"]),)))
+        for m in self.meshes + self.cut_meshes:
+            pts.append(m["points"])
+            rad.append(np.zeros(len(m["points"])))
+        for a in self.arrows:
+            p = np.array([a["start"], a["start"] + a["vector"]])
+            pts.append(p)
+            rad.append(np.full(2, a.get("radius", 0.1) * 2.5))
+        for mk in self.markers:
+            pts.append(mk["pos"])
+            rad.append(np.full(len(mk["pos"]), mk["radius"]))
+        if not pts:
+            return np.zeros((1, 3)), np.zeros(1)
+        return np.vstack(pts), np.concatenate(rad)
+
+
+def boundary_images(frac, pbc, tol=1e-4):
+    """Indices and fractional shifts of the periodic images of atoms lying on
+    the cell faces, edges and corners (an atom at x = 0 also drawn at x = 1),
+    so a cell shows all its 8 corners and 6 faces the way figures do."""
+    idx, shifts = [], []
+    opts = []
+    for k in range(3):
+        lo = frac[:, k] < tol
+        hi = frac[:, k] > 1 - tol
+        opts.append((lo, hi))
+    for shift in itertools.product((-1, 0, 1), repeat=3):
+        if shift == (0, 0, 0):
+            continue
+        m = np.ones(len(frac), bool)
+        for k, s in enumerate(shift):
+            if s == 0:
+                continue
+            if not pbc[k]:
+                m[:] = False
+                break
+            m &= opts[k][0] if s == 1 else opts[k][1]
+        if m.any():
+            w = np.nonzero(m)[0]
+            idx.append(w)
+            shifts.append(np.tile(np.array(shift, float), (len(w), 1)))
+    if not idx:
+        return np.zeros(0, int), np.zeros((0, 3))
+    return np.concatenate(idx), np.vstack(shifts)
+
+
+def cell_edges(cell, origin=None):
+    o = np.zeros(3) if origin is None else origin
+    corners = {c: o + np.array(c, float) @ cell for c in itertools.product((0, 1), repeat=3)}
+    edges = []
+    for c in corners:
+        for k in range(3):
+            if c[k] == 0:
+                d = list(c)
+                d[k] = 1
+                edges.append((corners[c], corners[tuple(d)]))
+    return np.array(edges)
+
+
+def plane_polygon(cell, normal, offset):
+    """Corners (ordered) of the polygon where the plane normal . r = offset
+    cuts the parallelepiped spanned by ``cell`` (rows)."""
+    edges = cell_edges(cell)
+    pts = []
+    for a, b in edges:
+        fa, fb = normal @ a - offset, normal @ b - offset
+        if abs(fa) < 1e-9:
+            pts.append(a)
+        if abs(fb) < 1e-9:
+            pts.append(b)
+        if fa * fb < 0:
+            t = fa / (fa - fb)
+            pts.append(a + t * (b - a))
+    if len(pts) < 3:
+        return None
+    pts = np.unique(np.round(np.array(pts), 9), axis=0)
+    if len(pts) < 3:
+        return None
+    c = pts.mean(axis=0)
+    n = normal / np.linalg.norm(normal)
+    e1 = pts[0] - c
+    if np.linalg.norm(e1) < 1e-9:
+        e1 = pts[1] - c
+    e1 /= np.linalg.norm(e1)
+    e2 = np.cross(n, e1)
+    ang = np.arctan2((pts - c) @ e2, (pts - c) @ e1)
+    return pts[np.argsort(ang)]
+
+
+def fan_faces(n, start=0):
+    return np.array([[start, start + i, start + i + 1] for i in range(1, n - 1)], dtype=np.int64)
+
+
+def hull_mesh(points):
+    from scipy.spatial import ConvexHull
+
+    pts = np.asarray(points, float)
+    if len(pts) < 4:
+        return None
+    try:
+        h = ConvexHull(pts)
+    except Exception:       # flat or degenerate neighbour sets have no solid hull
+        return None
+    faces = h.simplices.copy()
+    # orient outward
+    c = pts.mean(axis=0)
+    for f in faces:
+        n = np.cross(pts[f[1]] - pts[f[0]], pts[f[2]] - pts[f[0]])
+        if n @ (pts[f[0]] - c) < 0:
+            f[[1, 2]] = f[[2, 1]]
+    return pts, faces
+
+
+# ---------------------------------------------------------------- building
+def _nn_distance(crystal):
+    from ..analysis.neighbours import nearest_neighbour_distance
+
+    return nearest_neighbour_distance(crystal)
+
+
+def _neighbour_points(crystal, centre, cutoff):
+    """Atoms (images included) within ``cutoff`` of a point: (points, atom index, distance)."""
+    from scipy.spatial import cKDTree
+
+    from ..analysis.neighbours import with_images
+
+    pts, idx = with_images(crystal.positions, crystal.cell, crystal.pbc, cutoff)
+    tree = cKDTree(pts)
+    hits = tree.query_ball_point(np.asarray(centre, float), cutoff)
+    hits = np.array(sorted(hits), dtype=int)
+    if not len(hits):
+        return np.zeros((0, 3)), np.zeros(0, int), np.zeros(0)
+    d = np.linalg.norm(pts[hits] - centre, axis=1)
+    return pts[hits], idx[hits], d
+
+
+def _shell(points, idx, d, tol=0.12):
+    """The first shell: points within (1 + tol) of the nearest (self excluded)."""
+    keep = d > 1e-6
+    points, idx, d = points[keep], idx[keep], d[keep]
+    if not len(d):
+        return points, idx
+    sel = d <= d.min() * (1 + tol)
+    return points[sel], idx[sel]
+
+
+def _central_index(crystal, mask=None):
+    centre = crystal.cell.sum(axis=0) / 2
+    cand = np.arange(len(crystal)) if mask is None else np.nonzero(mask)[0]
+    if not len(cand):
+        return None
+    return int(cand[np.argmin(np.linalg.norm(crystal.positions[cand] - centre, axis=1))])
+
+
+def _plane_offset(crystal, normal, frac_pos=None):
+    """The offset (normal . r) of the lattice plane through atoms nearest the
+    middle of the cell; ties go to the lower plane (the textbook one)."""
+    centre = crystal.cell.sum(axis=0) / 2
+    vals = crystal.positions @ normal if len(crystal) else np.zeros(1)
+    c = centre @ normal
+    vals = np.unique(np.round(vals, 6))
+    return float(vals[np.argmin(np.abs(vals - c) + 1e-7 * (vals > c))])
+
+
+def classify_layers(crystal, normal_text=None):
+    """Stacking position (0, 1, 2 for A, B, C) of each atom of a close-packed
+    crystal, from its in-plane offset against the first layer; the second
+    distinct position met going up the normal is called B.
+
+    Returns (positions (N,) int, normal label).  Raises UserError for
+    crystals that are not close-packed along that normal."""
+    from ..lattice import format_indices, miller_to_mb_plane, parse_indices, plane_normal
+
+    lat = crystal.lattice
+    if normal_text is None:
+        if lat is not None and lat.is_hexagonal:
+            normal_text = "(0001)"
+        else:
+            normal_text = "(111)"
+    ind = parse_indices(str(normal_text), kind="plane")
+    n = plane_normal(_ref_cell(crystal), ind)
+    n = n / np.linalg.norm(n)
+    label = str(ind)
+    pos = crystal.positions
+    h = pos @ n
+    nn = _nn_distance(crystal)
+    # in-plane neighbours of an atom in the lowest layer
+    i0 = int(np.argmin(h))
+    pts, _idx, d = _neighbour_points(crystal, pos[i0], nn * 1.05)
+    dh = (pts - pos[i0]) @ n
+    inplane = (np.abs(dh) < 0.05 * nn) & (d > 1e-6)
+    vecs = pts[inplane] - pos[i0]
+    if len(vecs) < 6:
+        raise UserError(f"the atoms do not form close-packed layers on {label}; stacking colours need "
+                        f"close-packed planes, e.g. (111) for fcc or (0001) for hcp")
+    a1 = vecs[0]
+    cosang = vecs @ a1 / (np.linalg.norm(vecs, axis=1) * np.linalg.norm(a1))
+    j = int(np.argmin(np.abs(cosang - 0.5)))
+    a2 = vecs[j]
+    if abs(cosang[j] - 0.5) > 0.05:
+        raise UserError(f"the layers on {label} are not triangular nets; stacking colours need close-packed planes")
+    basis = np.array([a1, a2])
+    rel = pos - pos[i0]
+    rel -= np.outer(rel @ n, n)
+    st, *_ = np.linalg.lstsq(basis.T, rel.T, rcond=None)
+    st = st.T
+    st -= np.floor(st + 1e-6)
+    cand = np.array([[0, 0], [1 / 3, 1 / 3], [2 / 3, 2 / 3]])
+    # positions in a triangular net: (0,0), (1/3,1/3), (2/3,2/3) in the 60-degree basis
+    dd = np.stack([np.linalg.norm(((st - c + 0.5) % 1.0) - 0.5, axis=1) for c in cand], axis=1)
+    cls = np.argmin(dd, axis=1)
+    # name them in order met going up: A first, the next new one B
+    order = np.argsort(h, kind="stable")
+    seen = []
+    for c in cls[order]:
+        if c not in seen:
+            seen.append(int(c))
+        if len(seen) == 3:
+            break
+    for c in range(3):
+        if c not in seen:
+            seen.append(c)
+    remap = np.zeros(3, int)
+    for k, c in enumerate(seen):
+        remap[c] = k
+    return remap[cls], label
+
+
+def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites=False, polyhedra=None,
+                planes=(), directions=(), layers=None, defects=True, slip_axis=None, cell=None,
+                complete_cell=True):
+    """Everything a figure or the window will draw, as numpy arrays.
+
+    ``polyhedra`` is None, 'coordination', 'sites' or 'both'.  ``layers`` is
+    None, True (the close-packed planes of the lattice) or a plane '(111)'."""
+    st = S.get_style(style) if isinstance(style, str) else style
+    v = make_view(crystal, view, up)
+    sc = Scene(view=v, crystal=crystal)
+    n = len(crystal)
+    if n == 0:
+        raise UserError("the crystal has no atoms; nothing to draw")
+    if polyhedra not in (None, False, "coordination", "sites", "both"):
+        raise UserError(f"polyhedra '{polyhedra}' unknown; use coordination, sites or both")
+
+    colours, cidx, legend = palette.atom_colours(crystal)
+    sc.colours = list(colours)
+    sc.legend = [(lab, col, "ball") for lab, col in legend]
+    radii = crystal.atom_radii()
+
+    # stacking layers recolour the host atoms
+    if layers:
+        cls, lab = classify_layers(crystal, None if layers is True else layers)
+        host = crystal.roles == ROLES.index("host")
+        base = len(sc.colours)
+        names = "ABC"
+        used = sorted(set(cls[host].tolist()))
+        for k in range(3):
+            sc.colours.append(palette.LAYER_COLOURS[names[k]])
+        cidx = cidx.copy()
+        cidx[host] = base + cls[host]
+        sc.legend = [e for e in sc.legend if not e[0].endswith("(host)") and "(" in e[0]] + \
+            [(f"layer {names[k]} on {lab}", palette.LAYER_COLOURS[names[k]], "ball") for k in used]
+        sc.info["layers"] = lab
+
+    cell_mat = crystal.cell
+    frac = crystal.frac
+    src = np.arange(n)
+    shifts = np.zeros((n, 3))
+    use_cell = st.cell_outline if cell is None else bool(cell)
+    if st.cut:
+        if n > S.MAX_CUT_ATOMS:
+            raise UserError(f"the cell-cut style makes a mesh per atom and is meant for a few cells "
+                            f"({n:,} atoms here, limit {S.MAX_CUT_ATOMS:,}); use --style space-filling")
+        sc_pos, sc_src, share, meshes = _cut_atoms(crystal, radii * st.atom_scale, cidx, sc.colours)
+        sc.cut_meshes = meshes
+        sc.atom_pos = sc_pos
+        sc.atom_src = sc_src
+        sc.atom_radius = radii[sc_src] * st.atom_scale
+        sc.atom_colour = cidx[sc_src]
+        sc.atom_frac_shown = share
+        sc.info["shares"] = _share_table(crystal, sc_src, share)
+    else:
+        if complete_cell:
+            bi, bs = boundary_images(frac, crystal.pbc)
+            src = np.concatenate([src, bi])
+            shifts = np.vstack([shifts, bs])
+        sc.atom_src = src
+        sc.atom_pos = crystal.positions[src] + shifts @ cell_mat
+        sc.atom_radius = radii[src] * st.atom_scale
+        sc.atom_colour = cidx[src]
+    if use_cell:
+        sc.cell_edges = cell_edges(cell_mat)
+
+    nn = None
+    if st.bonds:
+        nn = _nn_distance(crystal)
+        sc.bonds = _bonds(sc.atom_pos, crystal, nn)
+        sc.bond_radius = S.BOND_RADIUS * float(np.min(radii))
+
+    # ------------------------------------------------------------ overlays
+    if sites or polyhedra in ("sites", "both"):
+        site_list = _get_sites(crystal)
+    else:
+        site_list = []
+    if sites:
+        kinds = {}
+        for s in site_list:
+            kinds.setdefault(s.kind, []).append(s)
+        for kind, lst in kinds.items():
+            pos = np.array([s.position for s in lst], float)
+            rad = np.array([s.radius for s in lst], float)
+            f = crystal.to_fractional(pos)
+            bi, bs = boundary_images(f, crystal.pbc)
+            pos = np.vstack([pos, pos[bi] + bs @ cell_mat]) if len(bi) else pos
+            rad = np.concatenate([rad, rad[bi]]) if len(bi) else rad
+            col = palette.ROLE_COLOURS.get(f"site-{kind}", palette.ROLE_COLOURS["site-other"])
+            sc.overlay_spheres.append(dict(pos=pos, radius=rad, colour=col, opacity=1.0, group="sites",
+                                           label=f"{kind} site (free radius {rad[0]:.3f} \u00c5)"))
+            sc.legend.append((f"{kind} site, r = {rad[0]:.3f} \u00c5", col, "ball"))
+    if polyhedra in ("coordination", "both"):
+        nn = nn or _nn_distance(crystal)
+        special = crystal.roles != ROLES.index("host")
+        centres = np.nonzero(special)[0][:20] if special.any() else [_central_index(crystal)]
+        col = palette.ROLE_COLOURS["host"]
+        for i in centres:
+            pts, _idx, d = _neighbour_points(crystal, crystal.positions[i], nn * 1.5)
+            shell, _ = _shell(pts, _idx, d)
+            hm = hull_mesh(shell)
+            if hm is not None:
+                sc.meshes.append(dict(points=hm[0], faces=hm[1], colour=palette.ROLE_COLOURS["plane"],
+                                      opacity=0.35, group="polyhedra", edges=True,
+                                      label=f"coordination polyhedron (CN {len(shell)})"))
+        if sc.meshes:
+            sc.legend.append((sc.meshes[-1]["label"], palette.ROLE_COLOURS["plane"], "patch"))
+    if polyhedra in ("sites", "both"):
+        done = set()
+        centre = crystal.cell.sum(axis=0) / 2
+        for s in sorted(site_list, key=lambda s: np.linalg.norm(np.asarray(s.position) - centre)):
+            if s.kind in done:
+                continue
+            done.add(s.kind)
+            pts, _idx, d = _neighbour_points(crystal, np.asarray(s.position, float),
+                                             max(4.0 * float(s.radius), 3.0 * float(np.max(radii))))
+            shell, _ = _shell(pts, _idx, d, tol=0.05)
+            hm = hull_mesh(shell)
+            if hm is None:
+                continue
+            col = palette.ROLE_COLOURS.get(f"site-{s.kind}", palette.ROLE_COLOURS["site-other"])
+            sc.meshes.append(dict(points=hm[0], faces=hm[1], colour=col, opacity=0.35, group="polyhedra",
+                                  edges=True, label=f"{s.kind} site polyhedron ({len(shell)} neighbours)"))
+            sc.legend.append((f"{s.kind} site polyhedron ({len(shell)} corners)", col, "patch"))
+
+    slip_info = None
+    planes = list(planes or [])
+    directions = [(d, None) for d in (directions or [])]
+    if slip_axis:
+        slip_info = _slip(crystal, slip_axis)
+        planes_s = slip_info.get("planes") or []
+        dirs_s = slip_info.get("directions") or []
+        if planes_s:
+            planes.append(planes_s[0])
+        if dirs_s:
+            directions.append((dirs_s[0], "slip"))
+    from ..lattice import format_indices, parse_indices, plane_normal
+
+    plane_polys = []
+    for ptxt in planes:
+        ind = parse_indices(str(ptxt), kind="plane")
+        if ind.family:
+            raise UserError(f"plane '{ptxt}' is a family {{hkl}}; give one plane in round brackets, e.g. (111)")
+        nrm = plane_normal(_ref_cell(crystal), ind)
+        off = _plane_offset(crystal, nrm)
+        poly = plane_polygon(cell_mat, nrm, off)
+        if poly is None:
+            raise UserError(f"plane {ind} does not cross this cell")
+        plane_polys.append(poly)
+        sc.meshes.append(dict(points=poly, faces=fan_faces(len(poly)), colour=palette.ROLE_COLOURS["plane"],
+                              opacity=0.5, group="planes", edges=True, label=f"plane {ind}"))
+        sc.legend.append((f"plane {ind}", palette.ROLE_COLOURS["plane"], "patch"))
+    rmin = float(np.min(sc.atom_radius))
+    for dtxt, kind in directions:
+        u, lab = direction(crystal, dtxt, "direction")
+        from ..lattice import direction_vector
+
+        vec = direction_vector(_ref_cell(crystal), parse_indices(str(dtxt), kind="direction"))
+        length = float(np.linalg.norm(vec))
+        if kind == "slip" and plane_polys:
+            start = plane_polys[-1].mean(axis=0) - 0.5 * vec
+        else:
+            start = np.zeros(3)
+        colour = palette.ROLE_COLOURS["direction"]
+        sc.arrows.append(dict(start=start, vector=u * length, colour=colour, label=lab, group="directions",
+                              radius=max(0.12, 0.35 * rmin), double=False))
+        sc.legend.append((("slip direction " if kind == "slip" else "direction ") + lab, colour, "arrow"))
+    if slip_info is not None:
+        ax, lab = direction(crystal, slip_info.get("load_axis") or slip_axis, "slip-axis")
+        lo, hi = crystal.cell.sum(axis=0) / 2, None
+        span = float(np.max(np.linalg.norm(cell_edges(cell_mat)[:, 1] - cell_edges(cell_mat)[:, 0], axis=1)))
+        span = max(span * 1.6, 4 * np.max(radii))
+        sc.arrows.append(dict(start=lo - ax * span / 2, vector=ax * span, colour=palette.ROLE_COLOURS["load-axis"],
+                              label=f"load {lab}", group="slip", radius=max(0.1, 0.28 * rmin), double=True))
+        sc.legend.append((f"loading axis {lab}", palette.ROLE_COLOURS["load-axis"], "arrow"))
+        sc.info["slip"] = slip_info
+
+    # defects
+    if defects:
+        vac = []
+        for d in crystal.metadata.get("defects", []) or []:
+            if d.get("kind") == "vacancy" and d.get("positions") is not None:
+                vac.extend(np.asarray(d["positions"], float).reshape(-1, 3).tolist())
+        if vac:
+            host_r = float(np.median(radii[crystal.roles == 0])) if (crystal.roles == 0).any() else float(radii.max())
+            sc.markers.append(dict(pos=np.array(vac), radius=host_r * st.atom_scale,
+                                   colour=palette.ROLE_COLOURS["vacancy"], group="defects"))
+            sc.legend.append((f"vacancy ({len(vac)})", palette.ROLE_COLOURS["vacancy"], "ring"))
+
+    sc.info.update(style=st.name, view=v.label, up=v.up_label)
+    sc.caption = caption_lines(crystal, v, st, slip_info)
+    return sc
+
+
+def _share_table(crystal, src, share):
+    """Sum of the shares inside the cell, per element (atoms per cell)."""
+    syms = crystal.symbols
+    out = {}
+    for s in np.unique(syms):
+        out[str(s)] = float(np.sum(share[syms[src] == s]))
+    return out
+
+
+def _bonds(pos, crystal, nn):
+    from scipy.spatial import cKDTree
+
+    cutoff = nn * (1 + S.BOND_TOLERANCE)
+    est = len(pos) * 14
+    if est > S.MAX_BONDS * 2:
+        raise UserError(f"ball-and-stick would draw about {est // 2:,} sticks for {len(pos):,} atoms; "
+                        f"use --style space-filling or --style lattice for crystals this big")
+    tree = cKDTree(pos)
+    pairs = tree.query_pairs(cutoff, output_type="ndarray")
+    if len(pairs) > S.MAX_BONDS:
+        raise UserError(f"ball-and-stick would draw {len(pairs):,} sticks; use --style space-filling or lattice")
+    return np.stack([pos[pairs[:, 0]], pos[pairs[:, 1]]], axis=1)
+
+
+def _get_sites(crystal):
+    try:
+        from ..analysis.sites import interstitial_sites
+    except ImportError:
+        raise UserError("site overlays need the interstitial-site finder (crystalview.analysis.sites), "
+                        "which this installation lacks") from None
+    return list(interstitial_sites(crystal))
+
+
+def _slip(crystal, axis):
+    try:
+        from ..analysis.slip import slip_overlay
+    except ImportError:
+        raise UserError("--slip-axis needs the slip analysis (crystalview.analysis.slip), which this "
+                        "installation lacks") from None
+    direction(crystal, axis, "slip-axis")     # checks the text first
+    info = slip_overlay(crystal, axis)
+    if not isinstance(info, dict):
+        raise UserError("the slip analysis returned nothing to draw for this crystal")
+    return info
+
+
+def _cut_atoms(crystal, draw_r, cidx, colours):
+    """Spheres of the atoms and their images that reach into the cell, cut
+    by the cell faces.  Returns (centres, atom index, share inside, meshes)."""
+    from ..analysis.neighbours import with_images
+
+    rmax = float(draw_r.max())
+    pts, idx = with_images(crystal.positions, crystal.cell, crystal.pbc, rmax)
+    cell = crystal.cell
+    inv_h = np.linalg.inv(cell)
+    # face planes: for axis k, n_k . r in [0, 1] with n_k the reciprocal row
+    recip = inv_h.T
+    norms = np.linalg.norm(recip, axis=1)
+    f = pts @ inv_h                     # fractional
+    dist_lo = f * (1 / norms)           # distance to the low face (A), signed, inside positive
+    dist_hi = (1 - f) * (1 / norms)
+    r = draw_r[idx]
+    inside = np.all((dist_lo > -r[:, None]) & (dist_hi > -r[:, None]), axis=1)
+    pts, idx, dist_lo, dist_hi, r = pts[inside], idx[inside], dist_lo[inside], dist_hi[inside], r[inside]
+    groups = {}
+    for k in range(len(pts)):
+        cut = []
+        for ax in range(3):
+            if dist_lo[k, ax] < r[k] - 1e-9:
+                cut.append((ax, 0, round(float(dist_lo[k, ax]), 6)))
+            if dist_hi[k, ax] < r[k] - 1e-9:
+                cut.append((ax, 1, round(float(dist_hi[k, ax]), 6)))
+        key = (round(float(r[k]), 6), int(cidx[idx[k]]), tuple(cut))
+        groups.setdefault(key, []).append(k)
+    meshes = []
+    share = np.ones(len(pts))
+    unit = recip / norms[:, None]
+    for (rad, col, cut), members in groups.items():
+        base = sphere_mesh(rad)
+        vol_full = base.volume
+        m = base
+        for ax, side, d in cut:
+            nrm = unit[ax] if side == 0 else -unit[ax]
+            # keep the part with nrm . x >= -d  (inside the cell)
+            m = m.clip_closed_surface(normal=tuple(nrm), origin=tuple(-nrm * d))
+            if m.n_points == 0:
+                break
+        if m.n_points == 0:
+            share[members] = 0.0
+            continue
+        frac_in = float(m.volume / vol_full) if vol_full > 0 else 1.0
+        share[members] = frac_in
+        tri = m.triangulate()
+        faces = tri.faces.reshape(-1, 4)[:, 1:]
+        for k in members:
+            meshes.append(dict(points=np.asarray(tri.points) + pts[k], faces=faces, colour=colours[col]))
+    keep = share > 1e-3
+    return pts[keep], idx[keep], share[keep], meshes
+
+
+def sphere_mesh(radius, res=36):
+    """A closed triangulated sphere (pyvista) centred on the origin."""
+    import pyvista as pv
+
+    return pv.Sphere(radius=float(radius), theta_resolution=res, phi_resolution=max(8, res * 2 // 3)).triangulate()
+
+
+def caption_lines(crystal, view, st, slip_info=None):
+    lat = crystal.lattice
+    md = crystal.metadata
+    name = md.get("name") or (", ".join(crystal.elements))
+    lines = []
+    if lat is not None:
+        head = f"{name}: {lat.title}"
+        if lat.phase and lat.phase not in (lat.prototype,):
+            head += f" ({lat.phase})"
+        par = f"a = {lat.a:.4f} \u00c5"
+        if lat.c:
+            par += f", c = {lat.c:.4f} \u00c5"
+        head += f", {par}"
+        if lat.temperature_K:
+            head += f" at {lat.temperature_K:g} K"
+    else:
+        head = f"{name}"
+    lines.append(head)
+    rep = md.get("repeat")
+    second = f"{len(crystal):,} atoms"
+    if rep:
+        second += f" ({' x '.join(str(x) for x in rep)} cells)"
+    defects = [d.get("kind") for d in md.get("defects", []) or []]
+    if defects:
+        second += ", defects: " + ", ".join(sorted(set(str(d) for d in defects)))
+    second += f"; view along {view.label}, {view.up_label} up; {st.name}"
+    lines.append(second)
+    if slip_info and slip_info.get("label"):
+        lines.append(str(slip_info["label"]))
+    return lines
+
+
+# ---------------------------------------------------------------- culling
+def visible_atoms(uvw, radius, bin_size=None, max_bins=16_000_000):
+    """Mask of the atoms that can show in an orthographic view: an atom is
+    dropped only when, over its whole projected disc, another opaque sphere
+    lies wholly in front of it.  Conservative: a kept atom may still be hidden.
+
+    ``uvw`` are (right, up, toward) coordinates; larger toward is nearer."""
+    from scipy.ndimage import maximum_filter, minimum_filter
+
+    n = len(uvw)
+    keep = np.ones(n, bool)
+    if n < 2:
+        return keep
+    if len(np.unique(np.round(uvw[:, :2], 3), axis=0)) < 0.2 * n:
+        pass
+    r = np.asarray(radius, float)
+    if bin_size is None:
+        bin_size = float(np.percentile(r, 5)) / 6.0
+    s = bin_size
+    if s <= 0:
+        return keep
+    u0, v0 = uvw[:, 0].min(), uvw[:, 1].min()
+    iu = ((uvw[:, 0] - u0) / s).astype(np.int64)
+    iv = ((uvw[:, 1] - v0) / s).astype(np.int64)
+    nu, nv = int(iu.max()) + 1, int(iv.max()) + 1
+    if nu * nv > max_bins:
+        return keep
+    z = uvw[:, 2]
+    occ = np.full((nu, nv), -np.inf)
+    # an occluder of radius >= R0 = 6 s wholly covers every bin (i+di, j+dj)
+    # whose far corner is within R0 of any point of its own bin
+    R0 = 6.0
+    occluder = r >= R0 * s
+    lin = iu[occluder] * nv + iv[occluder]
+    zo = z[occluder]
+    order = np.lexsort((zo, lin))          # by bin, then z ascending: the last of each bin is its max
+    lin, zo = lin[order], zo[order]
+    last = np.nonzero(np.r_[lin[1:] != lin[:-1], True])[0]
+    occ.ravel()[lin[last]] = zo[last]
+    m = int(R0)
+    di = np.arange(-m, m + 1)
+    foot = ((np.abs(di)[:, None] + 1) ** 2 + (np.abs(di)[None, :] + 1) ** 2) <= R0 ** 2
+    occ = maximum_filter(occ, footprint=foot, mode="constant", cval=-np.inf)
+    k = int(math.ceil(float(r.max()) / s)) + 1
+    worst = minimum_filter(occ, size=2 * k + 1, mode="constant", cval=-np.inf)
+    front = z + r
+    keep = ~(worst[iu, iv] > front)
+    return keep & column_front(uvw, r)
+
+
+def column_front(uvw, radius, eps=1e-3):
+    """Mask dropping atoms that sit exactly behind another atom at least as
+    large (same projected centre, nearer the viewer): along a zone axis the
+    atoms stand in columns and only the front of each column shows."""
+    q = np.round(uvw[:, :2] / eps).astype(np.int64)
+    _, grp = np.unique(q, axis=0, return_inverse=True)
+    grp = grp.ravel()
+    order = np.lexsort((-uvw[:, 2], grp))          # by column, nearest first
+    g, r = grp[order], np.asarray(radius, float)[order]
+    big = float(r.max()) + 1.0
+    shifted = r + g * big
+    prev = np.maximum.accumulate(np.r_[-np.inf, shifted[:-1]])
+    first = np.r_[True, g[1:] != g[:-1]]
+    keep_sorted = first | (shifted > prev)
+    keep = np.empty(len(r), bool)
+    keep[order] = keep_sorted
+    return keep

@@ -1,0 +1,166 @@
+"""Named interstitial sites: hole ratios, the iron worked example, supercells, defects, fill_sites."""
+import math
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+import crystalview as cv
+from crystalview.analysis.sites import site_table
+from crystalview.errors import UserError
+
+
+def _radii(c):
+    return {r["kind"]: r for r in site_table(c)}
+
+
+def test_fcc_hole_ratios():
+    t = _radii(cv.build("Cu"))
+    # source: Smallman & Ngan, Modern Physical Metallurgy, hole radius ratios (from memory)
+    assert t["octahedral"]["ratio"] == pytest.approx(0.414, abs=5e-4)
+    assert t["tetrahedral"]["ratio"] == pytest.approx(0.225, abs=5e-4)
+    # common practice: 4 octahedral and 8 tetrahedral holes per FCC cell (1 and 2 per atom)
+    assert t["octahedral"]["per_cell"] == 4 and t["tetrahedral"]["per_cell"] == 8
+    assert t["tetrahedral"]["per_atom"] == 2
+
+
+def test_bcc_hole_ratios():
+    t = _radii(cv.build("Fe"))
+    # source: Smallman & Ngan, Modern Physical Metallurgy, hole radius ratios (from memory)
+    assert t["octahedral"]["ratio"] == pytest.approx(0.155, abs=5e-4)
+    assert t["tetrahedral"]["ratio"] == pytest.approx(0.291, abs=5e-4)
+    # common practice: 6 octahedral and 12 tetrahedral holes per BCC cell
+    assert t["octahedral"]["per_cell"] == 6 and t["tetrahedral"]["per_cell"] == 12
+    assert "saddle" in t["octahedral"]["note"]
+
+
+def test_sc_cube_hole():
+    t = _radii(cv.build("sc", element="Po"))
+    # common practice: cube-centre hole of simple cubic, r/R = sqrt(3) - 1 = 0.732
+    assert t["cubic"]["ratio"] == pytest.approx(0.732, abs=5e-4)
+    assert t["cubic"]["per_cell"] == 1
+
+
+def test_iron_worked_example():
+    # source: Honeycombe & Bhadeshia, Steels: Microstructure and Properties, ch. 1 (from memory):
+    # alpha-Fe octahedral 0.19 A, tetrahedral 0.36 A; gamma-Fe (a = 3.572) octahedral 0.52 A, tetrahedral 0.28 A
+    a = _radii(cv.build("Fe", a=2.8665))
+    assert a["octahedral"]["radius_A"] == pytest.approx(0.19, abs=0.005)
+    assert a["tetrahedral"]["radius_A"] == pytest.approx(0.36, abs=0.005)
+    g = _radii(cv.build("Fe", phase="gamma", a=3.572))
+    assert g["octahedral"]["radius_A"] == pytest.approx(0.52, abs=0.005)
+    assert g["tetrahedral"]["radius_A"] == pytest.approx(0.28, abs=0.005)
+
+
+def test_hcp_sites_follow_c_over_a():
+    # ideal c/a: same holes as FCC (common practice: close packings have the same holes)
+    ideal = cv.build("hcp", element="Mg", a=3.2, c=3.2 * math.sqrt(8 / 3))
+    t = _radii(ideal)
+    assert t["octahedral"]["ratio"] == pytest.approx(math.sqrt(2) - 1, abs=1e-9)
+    assert t["tetrahedral"]["ratio"] == pytest.approx(math.sqrt(1.5) - 1, abs=1e-9)
+    assert t["tetrahedral"]["frac_conventional"][0][2] == pytest.approx(5 / 8, abs=1e-9)
+    # stretched c/a: the tetrahedral site is the point equidistant from its four atoms
+    c = cv.build("hcp", element="Mg", a=3.2, c=3.2 * 1.9)
+    for s in cv.interstitial_sites(c, kinds="tetrahedral"):
+        d = np.linalg.norm(c.positions[s.neighbours] - s.position, axis=1)
+        # neighbour indices are atoms; compare with periodic images by taking the minimum image
+        f = c.to_fractional(c.positions[s.neighbours] - s.position)
+        d = np.linalg.norm((f - np.round(f)) @ c.cell, axis=1)
+        assert np.ptp(d) < 1e-9
+    z = [s.frac[2] for s in cv.interstitial_sites(c, kinds="tetrahedral")]
+    assert not np.any(np.isclose(z, 5 / 8))
+
+
+def test_sites_of_supercell_and_oriented_cell():
+    base = cv.build("Cu")
+    sup = cv.build("Cu", repeat=(2, 3, 1))
+    s = cv.interstitial_sites(sup)
+    kinds = [x.kind for x in s]
+    assert kinds.count("octahedral") == 4 * 6 and kinds.count("tetrahedral") == 8 * 6
+    ori = cv.build("Cu", orient=("[1-10]", "[11-2]", "[111]"))
+    so = cv.interstitial_sites(ori)
+    n_cells = ori.volume / base.volume
+    assert sum(x.kind == "octahedral" for x in so) == round(4 * n_cells)
+    assert sum(x.kind == "tetrahedral" for x in so) == round(8 * n_cells)
+    r_oct = _radii(base)["octahedral"]["radius_A"]
+    for x in so:
+        # every site has the free radius of its kind, checked against the atoms by brute force
+        f = ori.to_fractional(ori.positions - x.position)
+        d = np.linalg.norm((f - np.round(f)) @ ori.cell, axis=1)
+        assert d.min() - ori.atom_radii()[0] == pytest.approx(x.radius, abs=1e-9)
+        if x.kind == "octahedral":
+            assert x.radius == pytest.approx(r_oct, abs=1e-9)
+
+
+def test_other_lattices_have_sites():
+    for spec, kw, kinds in [("Si", {}, {"tetrahedral", "octahedral"}), ("hex", {"element": "Mg"}, {"trigonal prismatic"}),
+                            ("NiAl", {}, {"octahedral", "tetrahedral"}), ("Ni3Al", {}, {"octahedral", "tetrahedral"}),
+                            ("TiAl", {}, {"octahedral", "tetrahedral"})]:
+        got = {r["kind"] for r in site_table(cv.build(spec, **kw))}
+        assert got == kinds, spec
+    # common practice: diamond cubic's big holes equal the atom size (r/R = 1)
+    assert _radii(cv.build("Si"))["tetrahedral"]["ratio"] == pytest.approx(1.0, abs=1e-9)
+
+
+def test_vacancy_hole_and_solute_changes():
+    c = cv.build("Cu", repeat=(3, 3, 3))
+    d = c.delete([13])
+    d.record_defect("vacancy", count=1)
+    s = cv.interstitial_sites(d)
+    vac = [x for x in s if x.kind == "vacancy"]
+    assert len(vac) == 1
+    assert np.allclose(vac[0].position, c.positions[13])
+    assert len(vac[0].neighbours) == 12
+    # the vacancy hole: nearest-neighbour distance minus R = R (r/R = 1)
+    assert vac[0].ratio == pytest.approx(1.0, abs=1e-9)
+    # a bigger substitutional atom shrinks the holes around it
+    e = c.copy()
+    e.numbers[0] = 82
+    e.species_radii["Pb"] = 1.75
+    e.record_defect("solute", element="Pb")
+    t = {r["kind"]: r for r in site_table(e)}
+    assert t["octahedral"]["radius_min_A"] == pytest.approx(c.cell[0, 0] / 6 - 1.75, abs=1e-9)
+    assert t["octahedral"]["radius_max_A"] == pytest.approx(_radii(c)["octahedral"]["radius_A"], abs=1e-9)
+
+
+def test_fill_sites():
+    c = cv.build("Fe", repeat=(3, 3, 3))
+    f1 = cv.fill_sites(c, "C", kind="octahedral", fraction=0.1, seed=4)
+    f2 = cv.fill_sites(c, "C", kind="octahedral", fraction=0.1, seed=4)
+    n_sites = 6 * 27
+    assert f1.role_counts()["interstitial"] == round(0.1 * n_sites)
+    assert np.array_equal(f1.positions, f2.positions)
+    assert f1.metadata["defects"][-1]["kind"] == "interstitial"
+    assert f1.radius_of("C") == pytest.approx(0.77)
+    # filled sites are no longer reported as holes
+    left = [x for x in cv.interstitial_sites(f1) if x.kind == "octahedral"]
+    assert len(left) == n_sites - round(0.1 * n_sites)
+    with pytest.raises(UserError):
+        cv.fill_sites(c, "C", fraction=1.5)
+    with pytest.raises(UserError):
+        cv.fill_sites(c, "C", kind="cubic")
+    with pytest.raises(UserError):
+        cv.fill_sites(c, "Xx")
+
+
+def test_cli_sites(cli):
+    import json
+
+    rc, out, err = cli("sites", "Cu", "--json")
+    assert rc == 0
+    data = json.loads(out)
+    assert {r["kind"] for r in data["sites"]} == {"octahedral", "tetrahedral"}
+    rc, out, err = cli("sites", "Fe")
+    assert rc == 0 and "octahedral" in out and "0.155" in out and "0.291" in out
+    rc, out, err = cli("sites", "Qq")
+    assert rc == 2 and err.count("\n") == 1
+
+
+def test_sites_fast_start():
+    code = ("import sys; from crystalview.cli import main; main(['sites', 'Fe', '--json']); "
+            "bad = [m for m in ('vtk', 'pyvista', 'scipy', 'spglib') if m in sys.modules]; "
+            "sys.stderr.write(repr(bad))")
+    r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
+    assert r.returncode == 0
+    assert r.stderr.strip().endswith("[]"), r.stderr
