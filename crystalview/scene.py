@@ -92,11 +92,13 @@ SCHEMA = {
                            "size": {"type": "array", "items": {"type": "integer", "minimum": 16, "maximum": 8000}, "minItems": 2, "maxItems": 2},
                            "dpi": {"type": "integer", "minimum": 50, "maximum": 1200},
                            "transparent": {"type": "boolean"}, "caption": {"type": ["boolean", "string"]},
-                           "sites": {"type": "boolean"}, "polyhedra": {"type": "boolean"},
-                           "layers": {"type": "boolean"}, "cell": {"type": "boolean"},
+                           "sites": {"type": "boolean"}, "polyhedra": {"enum": ["coordination", "sites", "both"]},
+                           "layers": {"type": ["boolean", "string"]}, "cell": {"type": "boolean"},
+                           "legend": {"type": "boolean"}, "scale_bar": {"type": "boolean"},
+                           "defects": {"type": "boolean"},
                            "planes": {"type": "array", "items": INDEX},
                            "directions": {"type": "array", "items": INDEX},
-                           "slip_axis": INDEX, "perspective": {"type": "boolean"}}}},
+                           "slip_axis": INDEX}}},
         "models": {"type": "array", "items": {
             "type": "object", "additionalProperties": False, "required": ["file"],
             "properties": {"file": FILE, "style": {"enum": ["ball-and-stick", "space-filling"]},
@@ -406,6 +408,8 @@ def run_scene(path, out=None, force=False, log=print):
         manifest["caution"] = cv.CAUTION
     _write_json(out_dir / "manifest.json", manifest, force)
     log(f"  wrote {out_dir / 'manifest.json'}  (manifest)")
+    if "caution" in manifest:
+        log(f"  {cv.CAUTION}")
     return manifest
 
 

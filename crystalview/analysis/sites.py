@@ -448,3 +448,19 @@ def site_table(crystal):
     order = {"octahedral": 0, "tetrahedral": 1, "cubic": 2, "trigonal prismatic": 3, "vacancy": 4, "other": 5}
     rows.sort(key=lambda r: (order.get(r["kind"], 9), r["label"]))
     return rows
+
+
+def sites_report(crystal):
+    """The JSON-ready report `crystalview sites --json` prints."""
+    lat = crystal.lattice
+    return {
+        "name": crystal.metadata.get("name") or "/".join(crystal.elements),
+        "phase": crystal.metadata.get("phase"),
+        "structure": lat.title if lat is not None else "unknown",
+        "a_A": crystal.metadata.get("a"), "c_A": crystal.metadata.get("c"), "atoms": len(crystal),
+        "perfect": is_perfect(crystal),
+        "host_radius_A": {s: crystal.radius_of(s) for s in crystal.elements},
+        "radius_definition": "free radius: distance from the site to the nearest atom centre minus that atom's "
+                             "hard-sphere radius; r/R = free radius / hard-sphere radius of the bounding atoms",
+        "sites": site_table(crystal),
+    }

@@ -30,22 +30,12 @@ def coords_text(frac):
 
 
 def run(args):
-    from ..analysis.sites import is_perfect, site_table
+    from ..analysis.sites import sites_report
 
     c = crystal_from_args(args)
-    rows = site_table(c)
-    perfect = is_perfect(c)
-    lat = c.lattice
-    head = {
-        "name": c.metadata.get("name") or "/".join(c.elements),
-        "phase": c.metadata.get("phase"),
-        "structure": lat.title if lat is not None else "unknown",
-        "a_A": c.metadata.get("a"), "c_A": c.metadata.get("c"), "atoms": len(c), "perfect": perfect,
-        "host_radius_A": {s: c.radius_of(s) for s in c.elements},
-        "radius_definition": "free radius: distance from the site to the nearest atom centre minus that atom's "
-                             "hard-sphere radius; r/R = free radius / hard-sphere radius of the bounding atoms",
-    }
-    out = dict(head, sites=rows)
+    out = sites_report(c)
+    head = out
+    rows, perfect = out["sites"], out["perfect"]
     if args.voids:
         from ..analysis.voids import find_voids
 

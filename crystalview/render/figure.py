@@ -86,7 +86,7 @@ def make_layout(scene, size, legend=True, scale_bar=True, caption=True):
         for k, t in enumerate(lines):
             cap.append((t, m, ybase + k * lh))
         y1 = ybase - cfont * 1.6
-    bar_h = font * 2.4 if scale_bar else 0
+    bar_h = font * 3.4 if scale_bar else 0
     y1 -= bar_h
     pts, rad = scene.extent_points()
     q = scene.view.project(pts)
@@ -103,7 +103,7 @@ def make_layout(scene, size, legend=True, scale_bar=True, caption=True):
     if scale_bar:
         length = S.round_length(0.22 * (x1 - x0) / scale)
         bx0 = m
-        by = y1 + bar_h * 0.62
+        by = y1 + bar_h * 0.78
         bar = (bx0, bx0 + length * scale, by, length)
     return Layout(W, H, font, m, (x0, y0, x1, y1), scale, centre, leg, lfont, cap, cfont, bar)
 
@@ -159,11 +159,21 @@ def render(crystal, path, view="[001]", style="ball-and-stick", size=(1600, 1200
 
 
 # ================================================================ raster (VTK)
+def headless_setup():
+    """Figures always render off screen.  Without a display, ask VTK for its
+    EGL window straight away, so it does not first try (and warn about) X."""
+    import os
+
+    if not (os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY")):
+        os.environ.setdefault("VTK_DEFAULT_OPENGL_WINDOW", "vtkEGLRenderWindow")
+
+
 def _rgb(hexes):
     return np.array([[int(h.lstrip("#")[i:i + 2], 16) for i in (0, 2, 4)] for h in hexes], dtype=np.uint8)
 
 
 def _plotter(size, transparent):
+    headless_setup()
     import pyvista as pv
 
     pv.OFF_SCREEN = True
