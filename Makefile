@@ -10,6 +10,8 @@ $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PY) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e '.[test]'
+	# the Khronos glTF validator, used by the tests (skipped only where npm is absent)
+	-command -v npm >/dev/null && npm install --no-save --silent gltf-validator@2.0.0-dev.3.10
 	touch $(STAMP)
 
 demo: $(STAMP)

@@ -60,6 +60,9 @@ def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
             writer(tmp)
             with open(tmp, "rb+") as fh:
                 os.fsync(fh.fileno())
+        mask = os.umask(0)
+        os.umask(mask)
+        os.chmod(tmp, 0o666 & ~mask)   # mkstemp makes 0600; give the file the usual permissions
         if p.exists() and not force:  # appeared while we were writing
             raise UserError(f"'{p}' already exists; pass --force to overwrite it")
         os.replace(tmp, p)

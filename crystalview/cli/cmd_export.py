@@ -1,0 +1,56 @@
+"""crystalview export SPEC -o FILE.glb|.gltf|.cif|.xyz|.stl|.3mf: exchange files, format by extension."""
+from __future__ import annotations
+
+from .common import add_spec_arguments, crystal_from_args, print_json
+
+
+def register(sub):
+    p = sub.add_parser("export", help="write a 3D or structure file: .glb .gltf .cif .xyz .stl .3mf",
+                       description="Write the crystal to a file whose extension picks the format: glTF 2.0 "
+                                   "(.glb/.gltf) for web and AR viewers, CIF 1.1, extended XYZ, or a printable "
+                                   "STL / 3MF solid (in mm).")
+    add_spec_arguments(p)
+    p.add_argument("-o", "--output", required=True, metavar="FILE", help="output file; its extension picks the format")
+    p.add_argument("--style", choices=["ball-and-stick", "space-filling"],
+                   help="glTF/STL/3MF: balls and rods or touching spheres (default ball-and-stick)")
+    p.add_argument("--scale", type=float, metavar="MM_PER_ANGSTROM", help="STL/3MF: mm per angstrom (default 10)")
+    p.add_argument("--real-scale", action="store_true",
+                   help="glTF: real size (1 angstrom = 1e-10 m) instead of 1 angstrom = 1 cm")
+    p.add_argument("--instancing", choices=["auto", "on", "off"],
+                   help="glTF: EXT_mesh_gpu_instancing (auto: for crystals over 2000 atoms)")
+    p.add_argument("--force", action="store_true", help="overwrite an existing file")
+    p.add_argument("--json", action="store_true", help="print what was written as JSON only")
+    p.set_defaults(func=run)
+
+
+def run(args):
+    from pathlib import Path
+
+    from ..exchange import export
+
+    suffix = Path(args.output).suffix.lower()
+    opts = {}
+    if args.style:
+        opts["style"] = args.style
+    if args.scale is not None:
+        opts["scale"] = args.scale
+    if args.real_scale:
+        opts["real_scale"] = True
+    if args.instancing:
+        opts["instancing"] = args.instancing
+    c = crystal_from_args(args)
+    info = export(c, args.output, force=args.force, **opts)
+    info = dict(info)
+    if args.json:
+        print_json(info)
+        return 0
+    if suffix in (".stl", ".3mf"):
+        box = " x ".join(f"{x:.1f}" for x in info["bounding_box_mm"])
+        print(f"wrote {info['file']}: {info['style']}, {info['scale_mm_per_A']:g} mm per angstrom, {box} mm, "
+              f"{info['triangles']:,} triangles, watertight {'yes' if info['watertight'] else 'NO'}")
+    else:
+        extra = ""
+        if "scale" in info:
+            extra = f", {info['scale']}" + (", EXT_mesh_gpu_instancing" if info.get("instancing") else "")
+        print(f"wrote {info['file']}: {info['atoms']} atoms, {info['bytes']:,} bytes{extra}")
+    return 0

@@ -1,0 +1,74 @@
+"""Exchange files, one module per format, chosen by the file's extension
+through the single table :data:`FORMATS`.
+
+    cv.export(crystal, "cell.glb")        # glTF 2.0 binary (web / AR viewers)
+    cv.export(crystal, "cell.cif")        # IUCr CIF 1.1
+    cv.export(crystal, "cell.xyz")        # extended XYZ with the lattice
+    cv.export(crystal, "cell.3mf")        # printable solid, mm, coloured parts
+    cv.export(crystal, "cell.stl")        # printable solid, mm
+
+Every writer writes atomically and never overwrites unless ``force=True``.
+"""
+from __future__ import annotations
+
+import importlib
+import inspect
+from pathlib import Path
+
+from ..errors import UserError
+
+#: suffix -> (module in crystalview.exchange, writer function, description)
+FORMATS = {
+    ".glb": ("gltf", "write_glb", "glTF 2.0 binary: web, AR and 3D viewers"),
+    ".gltf": ("gltf", "write_gltf", "glTF 2.0 text with the data embedded"),
+    ".cif": ("cif", "write_cif", "IUCr CIF 1.1 crystal structure"),
+    ".xyz": ("xyz", "write_xyz", "extended XYZ with the lattice"),
+    ".stl": ("stl", "write", "printable solid (mm), no colour"),
+    ".3mf": ("threemf", "write", "printable solid (mm) with coloured parts"),
+}
+
+
+def writer_for(path):
+    """The writer function for a file name, by its extension."""
+    suffix = Path(path).suffix.lower()
+    entry = FORMATS.get(suffix)
+    if entry is None:
+        raise UserError(f"cannot write '{path}': unknown file type '{suffix or '(none)'}'; "
+                        f"use one of {', '.join(FORMATS)}")
+    mod = importlib.import_module(f"crystalview.exchange.{entry[0]}")
+    return getattr(mod, entry[1])
+
+
+def export(crystal, path, *, force=False, **options):
+    """Write ``crystal`` to ``path`` in the format its extension names; return
+    a dict describing what was written (file, format, and format facts).
+
+    Options are passed to the format's writer: glTF takes ``style``,
+    ``real_scale``, ``instancing``; STL / 3MF take the print options of
+    :func:`crystalview.print_model` (``style``, ``scale``, ``clip_to_cell``,
+    ``base``, ``min_feature``, ...); CIF and XYZ take none.
+    """
+    fn = writer_for(path)
+    sig = inspect.signature(fn)
+    accepted = {k for k, p in sig.parameters.items() if p.kind == p.KEYWORD_ONLY}
+    unknown = [k for k, v in options.items() if k not in accepted and v is not None]
+    if unknown:
+        ok = ", ".join(sorted(accepted - {"force"})) or "none"
+        raise UserError(f"option {', '.join(unknown)} does not apply to {Path(path).suffix} files "
+                        f"(options for this format: {ok})")
+    kw = {k: v for k, v in options.items() if v is not None}
+    return fn(crystal, path, force=force, **kw)
+
+
+def write_model(model, path, force=False):
+    """Write a printable :class:`crystalview.mesh.printable.Model` as STL or 3MF."""
+    suffix = Path(path).suffix.lower()
+    if suffix == ".stl":
+        from .stl import write_model_stl
+
+        return write_model_stl(model, path, force=force)
+    if suffix == ".3mf":
+        from .threemf import write_model_3mf
+
+        return write_model_3mf(model, path, force=force)
+    raise UserError(f"cannot write a printable model to '{path}'; use .stl or .3mf")

@@ -1,0 +1,38 @@
+"""STL (binary): the printable solid in millimetres.  STL carries no units;
+slicers read the numbers as mm, which is what we write."""
+from __future__ import annotations
+
+import numpy as np
+
+
+def stl_bytes(meshes):
+    """Binary STL of one or more trimesh meshes (normals from the winding)."""
+    import struct
+
+    tris = [np.asarray(m.vertices, np.float64)[np.asarray(m.faces)] for m in meshes if len(m.faces)]
+    tri = np.concatenate(tris) if tris else np.zeros((0, 3, 3))
+    n = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
+    ln = np.linalg.norm(n, axis=1, keepdims=True)
+    n = np.divide(n, ln, out=np.zeros_like(n), where=ln > 0)
+    rec = np.zeros(len(tri), dtype=[("n", "<f4", 3), ("v", "<f4", (3, 3)), ("attr", "<u2")])
+    rec["n"] = n
+    rec["v"] = tri
+    header = b"crystalview model, units: mm".ljust(80, b" ")
+    return header + struct.pack("<I", len(tri)) + rec.tobytes()
+
+
+def write_model_stl(model, path, force=False):
+    from ..fileio import atomic_write
+
+    return atomic_write(path, stl_bytes([b.mesh for b in model.bodies]), force=force)
+
+
+def write(crystal, path, *, force=False, style=None, scale=None, clip_to_cell=None, base=None, kit=None,
+          min_feature=None, bed=None, material_density=None, clearance=None, max_triangles=None, segments=None):
+    """Export a printable solid as STL (same model as ``print_model``, no report file)."""
+    from ..mesh.printable import print_model
+
+    kw = dict(style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit, min_feature=min_feature,
+              bed=bed, material_density=material_density, clearance=clearance, max_triangles=max_triangles,
+              segments=segments)
+    return print_model(crystal, path, force=force, write_report=False, **{k: v for k, v in kw.items() if v is not None})

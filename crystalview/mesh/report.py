@@ -1,0 +1,54 @@
+"""The print report as plain text (the JSON form is the report dict itself)."""
+from __future__ import annotations
+
+
+def _yes(b):
+    return "yes" if b else "NO"
+
+
+def report_text(rep):
+    """Plain-text print report: what a person checks before sending a file to
+    the printer."""
+    box = rep.get("bounding_box_mm") or [0, 0, 0]
+    bed = rep.get("bed_mm") or [0, 0, 0]
+    what = rep.get("style", "")
+    if rep.get("kit"):
+        what += " kit (separate balls and rods)"
+    if rep.get("clip_to_cell"):
+        what += ", cut to the cell faces"
+    if rep.get("base"):
+        what += ", on a base plate"
+    rows = [
+        ("file", rep.get("file", "")),
+        ("model", what),
+        ("scale", f"{rep.get('scale_mm_per_A', 0):g} mm per angstrom"),
+        ("watertight", _yes(rep.get("watertight"))),
+        ("closed volume", _yes(rep.get("is_volume"))),
+        ("bodies", str(rep.get("bodies"))),
+        ("volume", f"{rep.get('volume_cm3', 0):.3f} cm^3"),
+        ("mass", f"{rep.get('mass_g', 0):.1f} g at {rep.get('material_density_g_cm3', 0):g} g/cm^3"),
+        ("bounding box", " x ".join(f"{x:.1f}" for x in box) + " mm"),
+        ("fits the bed", f"{'yes' if rep.get('fits_bed') else 'NO'} ({' x '.join(f'{x:g}' for x in bed)} mm)"),
+        ("triangles", f"{rep.get('triangles', 0):,}"),
+        ("minimum feature", f"{rep.get('min_feature_mm', 0):g} mm"),
+    ]
+    if rep.get("volume_fraction_of_cell") is not None:
+        rows.append(("volume / cell volume", f"{rep['volume_fraction_of_cell']:.4f} (the packing factor)"))
+    w = max(len(k) for k, _ in rows)
+    lines = ["print report"] + [f"  {k.ljust(w)}  {v}" for k, v in rows]
+    for a in rep.get("adjustments") or []:
+        lines.append(f"  note: {a}")
+    parts = rep.get("parts") or []
+    if parts:
+        lines.append("  parts list:")
+        for p in parts:
+            if p["part"] == "rod":
+                lines.append(f"    {p['count']:>4} x rod {p['diameter_mm']:g} mm across, {p['length_mm']:g} mm long")
+            else:
+                lines.append(f"    {p['count']:>4} x {p['part']}: {p['species']}, {p['diameter_mm']:g} mm across, "
+                             f"{p['holes']} hole(s) {p['hole_diameter_mm']:g} mm"
+                             + (f", angles between holes {p['angles_between_holes_deg']} deg"
+                                if p.get("angles_between_holes_deg") else ""))
+    if rep.get("caution"):
+        lines.append(rep["caution"])
+    return "\n".join(lines)

@@ -1,0 +1,267 @@
+"""Exchange files: glTF/GLB checked by the Khronos validator, 3MF colours and
+units, STL, CIF round trip through gemmi and spglib, extended XYZ, and the
+dispatch by extension."""
+from __future__ import annotations
+
+import json
+import os
+import shutil
+import struct
+import subprocess
+import sys
+import zipfile
+from pathlib import Path
+
+import numpy as np
+import pytest
+import trimesh
+
+import crystalview as cv
+from crystalview.errors import UserError
+from crystalview.palette import ROLE_COLOURS, hex_to_rgb
+
+ROOT = Path(__file__).resolve().parents[1]
+VALIDATOR = "gltf-validator@2.0.0-dev.3.10"   # the Khronos glTF validator on npm (only 2.0.0-dev releases exist)
+
+
+# ---------------------------------------------------------------- Khronos validator
+@pytest.fixture(scope="module")
+def validate():
+    """A function running the Khronos glTF validator (node) on files; installs
+    the npm package into the repository's node_modules/ if missing."""
+    if shutil.which("node") is None or shutil.which("npm") is None:
+        pytest.skip("node/npm not installed: cannot run the Khronos glTF validator")
+    if not (ROOT / "node_modules" / "gltf-validator").is_dir():
+        r = subprocess.run(["npm", "install", "--no-save", "--silent", VALIDATOR], cwd=ROOT,
+                           capture_output=True, text=True, timeout=600)
+        if r.returncode != 0:
+            pytest.fail(f"npm install {VALIDATOR} failed: {r.stderr.strip()[-500:]}")
+
+    def run(*files):
+        r = subprocess.run(["node", str(ROOT / "tests" / "gltf_validate.js"), *map(str, files)], cwd=ROOT,
+                           capture_output=True, text=True, timeout=120)
+        out = [json.loads(line) for line in r.stdout.splitlines() if line.startswith("{")]
+        assert len(out) == len(files), r.stderr
+        return out
+
+    return run
+
+
+def _glb_json(path):
+    data = Path(path).read_bytes()
+    magic, version, total = struct.unpack("<III", data[:12])
+    assert magic == 0x46546C67 and version == 2 and total == len(data)
+    n, kind = struct.unpack("<II", data[12:20])
+    assert kind == 0x4E4F534A
+    doc = json.loads(data[20:20 + n])
+    m, kind2 = struct.unpack("<II", data[20 + n:28 + n])
+    assert kind2 == 0x004E4942
+    return doc, data[28 + n:28 + n + m]
+
+
+def _accessor(doc, blob, k):
+    a = doc["accessors"][k]
+    v = doc["bufferViews"][a["bufferView"]]
+    width = {"SCALAR": 1, "VEC3": 3, "VEC4": 4}[a["type"]]
+    dt = {5126: np.float32, 5123: np.uint16, 5125: np.uint32}[a["componentType"]]
+    arr = np.frombuffer(blob, dtype=dt, count=a["count"] * width, offset=v["byteOffset"] + a.get("byteOffset", 0))
+    return arr.reshape(a["count"], width) if width > 1 else arr
+
+
+def test_gltf_files_pass_khronos_validator(tmp_path, validate):
+    c = cv.build("Cu")
+    files = [tmp_path / "cu.glb", tmp_path / "cu.gltf", tmp_path / "fe_inst.glb", tmp_path / "ni3al.glb",
+             tmp_path / "big.glb", tmp_path / "real.glb"]
+    cv.export(c, files[0])
+    cv.export(c, files[1], style="space-filling")
+    cv.export(cv.build("Fe"), files[2], instancing="on")
+    cv.export(cv.build("Ni3Al"), files[3])
+    cv.export(cv.build("Cu", repeat=(8, 8, 8)), files[4])       # over the threshold: instanced
+    cv.export(cv.build("Ti"), files[5], real_scale=True)
+    reports = validate(*files)
+    for r in reports:
+        assert r["errors"] == 0, r["messages"]       # source: Khronos glTF validator
+        assert r["warnings"] == 0, r["messages"]
+
+
+def test_gltf_content_units_materials_instancing(tmp_path):
+    c = cv.build("Cu", repeat=(8, 8, 8))
+    out = tmp_path / "big.glb"
+    info = cv.export(c, out)
+    doc, blob = _glb_json(out)
+    assert info["instancing"] and "EXT_mesh_gpu_instancing" in doc["extensionsRequired"]
+    ex = doc["asset"]["extras"]
+    assert ex["metres_per_angstrom"] == 0.01 and "1 cm" in ex["scale"]
+    # one material per role / element, colours = palette sRGB converted to linear (glTF 2.0 spec, sRGB EOTF)
+    mats = {m["name"]: m["pbrMetallicRoughness"]["baseColorFactor"][:3] for m in doc["materials"]}
+    assert set(mats) == {"Cu (host)", "bond", "cell edges"}
+    srgb = np.array(hex_to_rgb(ROLE_COLOURS["host"]))
+    lin = np.where(srgb <= 0.04045, srgb / 12.92, ((srgb + 0.055) / 1.055) ** 2.4)
+    np.testing.assert_allclose(mats["Cu (host)"], lin, rtol=1e-6)
+    names = {n["name"] for n in doc["nodes"]}
+    assert {"Cu atoms (host)", "bonds", "unit cell"} <= names
+    atoms = [n for n in doc["nodes"] if n["name"] == "Cu atoms (host)"][0]
+    inst = atoms["extensions"]["EXT_mesh_gpu_instancing"]["attributes"]
+    t = _accessor(doc, blob, inst["TRANSLATION"])
+    assert len(t) == ex["atoms"] == 9 * 9 * 9 + 3 * 8 * 8 * 9   # 8x8x8 FCC with its boundary images
+    # metres, +Y up: the crystal's 8a edge is 8 x 3.6149 A x 0.01 m/A
+    a8 = c.cell[0, 0] * 0.01
+    np.testing.assert_allclose(t.max(axis=0) - t.min(axis=0), [a8, a8, a8], atol=1e-5)
+    bonds = [n for n in doc["nodes"] if n["name"] == "bonds"][0]["extensions"]["EXT_mesh_gpu_instancing"]["attributes"]
+    q = _accessor(doc, blob, bonds["ROTATION"])
+    np.testing.assert_allclose(np.linalg.norm(q, axis=1), 1.0, atol=1e-5)
+    s = _accessor(doc, blob, bonds["SCALE"])
+    # every bond is one nearest-neighbour distance a / sqrt(2) long (FCC geometry)
+    np.testing.assert_allclose(s[:, 1], c.cell[0, 0] / 8 / 2 ** 0.5 * 0.01, rtol=1e-5)
+    # large crystals stay small: well under 100 bytes per atom + bond
+    assert out.stat().st_size < 100 * (ex["atoms"] + ex["bonds"])
+
+
+def test_gltf_sphere_faces_outward():
+    from crystalview.exchange.gltf import unit_rod, unit_sphere
+
+    p, n, i = unit_sphere()
+    m = trimesh.Trimesh(p, i.reshape(-1, 3), process=True)
+    assert m.is_watertight and m.volume > 0                 # outward winding (trimesh)
+    p, n, i = unit_rod()
+    cen = trimesh.Trimesh(p, i.reshape(-1, 3), process=False).triangles_center
+    fn = trimesh.Trimesh(p, i.reshape(-1, 3), process=False).face_normals
+    radial = cen * [1, 0, 1]
+    assert np.all(np.einsum("ij,ij->i", fn, radial) > 0)
+
+
+# ---------------------------------------------------------------- 3MF and STL through export()
+def test_export_3mf_colours_and_stl(tmp_path):
+    c = cv.build("Ni3Al")
+    out = tmp_path / "n.3mf"
+    info = cv.export(c, out, style="space-filling")
+    assert info["watertight"] and info["bodies"] == 1
+    assert not (tmp_path / "n.report.txt").exists()       # export writes only the file asked for
+    with zipfile.ZipFile(out) as z:
+        xml = z.read("3D/3dmodel.model").decode()
+    import xml.etree.ElementTree as ET
+
+    root = ET.fromstring(xml)
+    assert root.get("unit") == "millimeter"
+    ns = {"m": "http://schemas.microsoft.com/3dmanufacturing/material/2015/02"}
+    names = {b.get("name"): b.get("displaycolor") for b in root.findall(".//m:base", ns)}
+    # two host elements: element series colours; both present
+    assert {"Ni (host)", "Al (host)"} <= set(names)
+    used = {int(t.get("p1")) for t in root.iter() if t.tag.endswith("triangle")}
+    assert len(used) >= 2
+    stl = tmp_path / "n.stl"
+    cv.export(c, stl, scale=8)
+    m = trimesh.load(str(stl), force="mesh")
+    assert m.is_watertight and m.is_volume
+
+
+# ---------------------------------------------------------------- CIF
+def test_cif_round_trip_gemmi_and_spglib(tmp_path):
+    import gemmi
+    import spglib
+
+    for spec in ("Ti", "Fe", "Ni3Al", "Cu"):
+        c = cv.build(spec)
+        out = tmp_path / f"{spec}.cif"
+        cv.export(c, out)
+        # independent reader: gemmi
+        st = gemmi.make_small_structure_from_block(gemmi.cif.read(str(out)).sole_block())
+        from crystalview.lattice import cell_parameters
+
+        a, b, cc, al, be, ga = cell_parameters(c.cell)
+        assert st.cell.a == pytest.approx(a, abs=1e-5) and st.cell.c == pytest.approx(cc, abs=1e-5)
+        assert st.cell.gamma == pytest.approx(ga, abs=1e-4)
+        assert len(st.get_all_unit_cell_sites()) == len(c)
+        # symmetry unchanged (spglib)
+        back = cv.read_cif(out)
+        s0 = spglib.get_symmetry_dataset((c.cell, c.frac, c.numbers.astype(int)), symprec=1e-3)
+        s1 = spglib.get_symmetry_dataset((back.cell, back.frac, back.numbers.astype(int)), symprec=1e-3)
+        assert s0.number == s1.number
+        assert sorted(back.symbols) == sorted(c.symbols)
+        assert back.lattice.prototype == "cif"
+
+
+def test_cif_asymmetric_unit_expanded(tmp_path):
+    p = tmp_path / "cu.cif"
+    # Cu, a = 3.6149 A (source: Kittel, Introduction to Solid State Physics), one site 4a at 0 0 0
+    p.write_text("data_Cu\n_cell_length_a 3.6149\n_cell_length_b 3.6149\n_cell_length_c 3.6149\n"
+                 "_cell_angle_alpha 90\n_cell_angle_beta 90\n_cell_angle_gamma 90\n"
+                 "_symmetry_space_group_name_H-M 'F m -3 m'\n"
+                 "loop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n_atom_site_fract_y\n"
+                 "_atom_site_fract_z\nCu1 Cu 0 0 0\n")
+    c = cv.build(str(p))
+    assert len(c) == 4          # source: International Tables Vol. A, Fm-3m Wyckoff 4a multiplicity 4
+    assert c.lattice.family == "cubic" and c.lattice.space_group == 225
+    assert cv.symmetry(c)[1] == 225
+    # one species: half the nearest-neighbour distance a / (2 sqrt 2)
+    assert c.species_radii["Cu"] == pytest.approx(3.6149 / (2 * 2 ** 0.5), rel=1e-6)
+    # a CIF is a SPEC everywhere: it prints
+    rep = cv.print_model(c, tmp_path / "cu.stl")
+    assert rep["watertight"]
+
+
+def test_malformed_cif_one_line(tmp_path):
+    bad = tmp_path / "bad.cif"
+    bad.write_text('this is "not a cif\n')
+    with pytest.raises(UserError) as e:
+        cv.read_cif(bad)
+    assert "\n" not in str(e.value)
+    empty = tmp_path / "empty.cif"
+    empty.write_text("data_x\n_cell_length_a 3\n_cell_length_b 3\n_cell_length_c 3\n")
+    with pytest.raises(UserError, match="no atoms|no valid unit cell"):
+        cv.read_cif(empty)
+    r = subprocess.run([sys.executable, "-m", "crystalview", "export", str(bad), "-o", str(tmp_path / "x.xyz")],
+                       capture_output=True, text=True, env={**os.environ, "PYTHONPATH": str(ROOT)})
+    assert r.returncode == 2 and r.stderr.count("\n") == 1
+    assert not (tmp_path / "x.xyz").exists()
+
+
+# ---------------------------------------------------------------- XYZ
+def test_extended_xyz(tmp_path):
+    c = cv.build("Fe", repeat=(2, 1, 1))
+    out = tmp_path / "fe.xyz"
+    cv.export(c, out)
+    lines = out.read_text().splitlines()
+    assert int(lines[0]) == len(c)
+    import shlex
+
+    head = dict(kv.split("=", 1) for kv in shlex.split(lines[1]))
+    np.testing.assert_allclose(np.array(head["Lattice"].split(), float).reshape(3, 3), c.cell, atol=1e-7)
+    assert head["Properties"] == "species:S:1:pos:R:3:role:S:1"
+    rows = [ln.split() for ln in lines[2:]]
+    assert len(rows) == len(c) and all(r[0] == "Fe" and r[4] == "host" for r in rows)
+    np.testing.assert_allclose(np.array([r[1:4] for r in rows], float), c.positions, atol=1e-7)
+
+
+# ---------------------------------------------------------------- dispatch and bad input
+def test_dispatch_and_bad_input(tmp_path):
+    from crystalview.exchange import FORMATS
+
+    assert set(FORMATS) == {".glb", ".gltf", ".cif", ".xyz", ".stl", ".3mf"}
+    c = cv.build("Fe")
+    with pytest.raises(UserError, match="unknown file type"):
+        cv.export(c, tmp_path / "a.pdb")
+    with pytest.raises(UserError, match="does not apply"):
+        cv.export(c, tmp_path / "a.cif", real_scale=True)
+    p = tmp_path / "a.glb"
+    p.write_bytes(b"keep")
+    with pytest.raises(UserError, match="already exists"):
+        cv.export(c, p)
+    assert p.read_bytes() == b"keep"
+    cv.export(c, p, force=True)
+    assert p.read_bytes()[:4] == b"glTF"
+    with pytest.raises(UserError, match="does not exist"):
+        cv.export(c, tmp_path / "missing" / "a.xyz")
+    # no temporary files left behind
+    assert not [f for f in os.listdir(tmp_path) if ".tmp-" in f]
+
+
+def test_cli_export(tmp_path):
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    r = subprocess.run([sys.executable, "-m", "crystalview", "export", "Cu", "-o", "cu.glb", "--json"], cwd=tmp_path,
+                       capture_output=True, text=True, env=env)
+    assert r.returncode == 0, r.stderr
+    assert json.loads(r.stdout)["atoms"] == 14
+    r = subprocess.run([sys.executable, "-m", "crystalview", "export", "Cu", "-o", "cu.glb"], cwd=tmp_path,
+                       capture_output=True, text=True, env=env)
+    assert r.returncode == 2 and "already exists" in r.stderr
