@@ -68,9 +68,18 @@ _API = {
     "export": "crystalview.exchange:export",
     "read_cif": "crystalview.exchange.cif:read_cif",
     "run_scene": "crystalview.scene:run_scene",
+    "__end__": "",
+
+    "burgers_circuit": "crystalview.defects.dislocation:burgers_circuit",
 }
+_API.pop("__end__", None)
 
 __all__ = sorted(_API) + ["CAUTION", "__version__"]
+
+# The function must win over the submodule of the same name: importing
+# crystalview.build anywhere would otherwise rebind cv.build to the module.
+# (crystalview.render is a callable package for the same reason.)
+from .build import build  # noqa: E402
 
 
 def __getattr__(name):

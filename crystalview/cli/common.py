@@ -126,3 +126,6 @@ def table(rows, headers):
     for r in rows:
         lines.append("  ".join(str(v).ljust(w) for v, w in zip(r, widths)).rstrip())
     return "\n".join(lines)
+
+
+from . import defect_args  # noqa: E402,F401  (registers the defect options on every SPEC command)

@@ -1,0 +1,127 @@
+"""Defect options for every command that takes a SPEC.
+
+Point defects (--vacancies, --substitute, --frenkel) apply on top of the
+crystal SPEC describes.  --stack/--fault, --dislocation, --slab and
+--tilt-boundary replace it by a new crystal made from the same material (the
+element, phase and lattice parameter of SPEC); at most one of them per run.
+"""
+from __future__ import annotations
+
+import re
+
+from ..errors import UserError
+
+
+def add_arguments(p):
+    g = p.add_argument_group("defects")
+    g.add_argument("--vacancies", metavar="FRACTION_OR_COUNT",
+                   help="remove atoms at random: a fraction (0.01, 1%%) or a whole count (5)")
+    g.add_argument("--substitute", action="append", default=[], metavar="ELEMENT:AMOUNT",
+                   help="random substitutional solutes, e.g. Ni:0.1 (fraction) or Ni:5 (count); repeatable")
+    g.add_argument("--frenkel", type=int, metavar="N", help="move N atoms into neighbouring interstitial holes")
+    g.add_argument("--seed", type=int, default=0, metavar="N", help="seed for the random choices (default 0)")
+    g.add_argument("--stack", metavar="SEQUENCE",
+                   help="close-packed layers in this order, e.g. ABC, AB, ABCABABC (replaces the SPEC cell)")
+    g.add_argument("--fault", metavar="NAME",
+                   help="named stacking: intrinsic, extrinsic, twin (FCC); I1, I2, E (HCP); fcc, hcp, dhcp")
+    g.add_argument("--dislocation", choices=["edge", "screw"], help="a straight dislocation (FCC or BCC)")
+    g.add_argument("--poisson", type=float, metavar="NU", help="Poisson ratio for --dislocation (default 0.3)")
+    g.add_argument("--slab", metavar="(hkl)", help="a surface slab with this plane normal along z, e.g. (111)")
+    g.add_argument("--slab-layers", type=int, metavar="N", help="atomic planes in the --slab (default 6)")
+    g.add_argument("--slab-thickness", type=float, metavar="A", help="--slab thickness in A instead of --slab-layers")
+    g.add_argument("--vacuum", type=float, default=10.0, metavar="A", help="vacuum gap of the --slab in A (default 10)")
+    g.add_argument("--tilt-boundary", metavar="(hkl)",
+                   help="symmetric tilt grain boundary on this plane, e.g. (310) (cubic metals)")
+    g.add_argument("--tilt-axis", default="[001]", metavar="[uvw]", help="tilt axis for --tilt-boundary (default [001])")
+    g.add_argument("--defect-size", nargs=3, metavar=("NX", "NY", "NZ"),
+                   help="copies of the oriented cell for --dislocation / --tilt-boundary, or in-plane copies "
+                        "and sequence copies for --stack / --slab (NZ ignored for --slab)")
+
+
+def _amount(text, what):
+    """'0.01' / '1%' -> ('fraction', 0.01); '5' -> ('count', 5)."""
+    s = str(text).strip()
+    try:
+        if s.endswith("%"):
+            return "fraction", float(s[:-1]) / 100.0
+        if re.fullmatch(r"[+-]?\d+", s):
+            return "count", int(s)
+        v = float(s)
+    except ValueError:
+        raise UserError(f"{what} '{text}' must be a fraction (0.01 or 1%) or a whole count (5)") from None
+    return "fraction", v
+
+
+def _size(args, n):
+    if not getattr(args, "defect_size", None):
+        return None
+    from .common import _ints
+
+    vals = _ints(args.defect_size, "--defect-size", "--defect-size 12 6 2")
+    return tuple(vals[:n])
+
+
+def apply(crystal, args):
+    from ..defects import point
+
+    replacing = [name for name, val in (("--stack", getattr(args, "stack", None)),
+                                        ("--fault", getattr(args, "fault", None)),
+                                        ("--dislocation", getattr(args, "dislocation", None)),
+                                        ("--slab", getattr(args, "slab", None)),
+                                        ("--tilt-boundary", getattr(args, "tilt_boundary", None))) if val]
+    if len(replacing) > 1:
+        raise UserError(f"{' and '.join(replacing)} each make a new crystal; give only one of them")
+    if replacing and getattr(args, "orient", None):
+        raise UserError(f"{replacing[0]} sets its own orientation; leave out --orient")
+    if replacing and getattr(args, "supercell", None):
+        raise UserError(f"{replacing[0]} makes its own cell; leave out --supercell (use --defect-size)")
+    if replacing and getattr(args, "repeat", None):
+        raise UserError(f"{replacing[0]} makes its own cell; use --defect-size instead of --repeat")
+    for flag, val in (("--slab-layers", getattr(args, "slab_layers", None)),
+                      ("--slab-thickness", getattr(args, "slab_thickness", None))):
+        if val is not None and not getattr(args, "slab", None):
+            raise UserError(f"{flag} goes with --slab, e.g. --slab (111) {flag} 6")
+    if getattr(args, "poisson", None) is not None and not getattr(args, "dislocation", None):
+        raise UserError("--poisson goes with --dislocation, e.g. --dislocation edge --poisson 0.34")
+    max_atoms = int(args.max_atoms) if getattr(args, "max_atoms", None) is not None else None
+    if getattr(args, "stack", None) or getattr(args, "fault", None):
+        from ..defects.planar import stack
+
+        size = _size(args, 3)
+        crystal = stack(crystal, args.stack or args.fault, repeat=size or (1, 1), max_atoms=max_atoms)
+    elif getattr(args, "dislocation", None):
+        from ..defects.dislocation import dislocation
+
+        crystal = dislocation(crystal, args.dislocation, size=_size(args, 3), poisson=args.poisson,
+                              max_atoms=max_atoms)
+    elif getattr(args, "slab", None):
+        from ..defects.surface import slab
+
+        size = _size(args, 2)
+        crystal = slab(crystal, args.slab, layers=args.slab_layers, thickness=args.slab_thickness, vacuum=args.vacuum,
+                       repeat=size or (1, 1), max_atoms=max_atoms)
+    elif getattr(args, "tilt_boundary", None):
+        from ..defects.boundary import tilt_boundary
+
+        crystal = tilt_boundary(crystal, axis=args.tilt_axis, plane=args.tilt_boundary, size=_size(args, 3),
+                                max_atoms=max_atoms)
+    seed = getattr(args, "seed", 0)
+    for k, item in enumerate(getattr(args, "substitute", None) or []):
+        if ":" not in item:
+            raise UserError(f"--substitute '{item}' must be ELEMENT:AMOUNT, e.g. Ni:0.1 or Ni:5")
+        el, amount = item.split(":", 1)
+        kind, val = _amount(amount, f"--substitute amount for {el}")
+        kw = {kind: val}
+        crystal = point.substitute(crystal, el.strip(), seed=seed + k, **kw)
+    if getattr(args, "vacancies", None) is not None:
+        kind, val = _amount(args.vacancies, "--vacancies")
+        crystal = point.add_vacancies(crystal, seed=seed, **{kind: val})
+    if getattr(args, "frenkel", None) is not None:
+        crystal = point.frenkel_pairs(crystal, args.frenkel, seed=seed)
+    return crystal
+
+
+from .common import SPEC_EXTENSIONS  # noqa: E402
+
+if (add_arguments, apply) not in SPEC_EXTENSIONS:
+    SPEC_EXTENSIONS.append((add_arguments, apply))

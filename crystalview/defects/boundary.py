@@ -1,0 +1,195 @@
+"""Symmetric tilt grain boundaries in cubic crystals, with the
+coincidence-site-lattice (CSL) Sigma value.
+
+Construction: grain 1 is the crystal oriented with x = plane normal x tilt
+axis, y = the boundary-plane normal (hkl), z = the tilt axis [uvw]; it fills
+0 <= y < Ly.  Grain 2 is the mirror image of grain 1 in the boundary plane
+y = 0 (filling -Ly < y <= 0).  Because a cubic Bravais lattice is
+centrosymmetric, the mirror image is grain 1 rotated by 180 degrees about the
+boundary normal, a proper rotation; the misorientation is a tilt about [uvw].
+The bicrystal is shifted to 0 <= y < 2 Ly.
+
+Periodic (default): the cell is periodic in x, y and z, so it holds two
+equivalent boundaries, at y = Ly (the middle) and at y = 0 (the cell edge).
+``periodic=False`` gives one boundary between free surfaces along y.
+
+Overlap rule (our choice, common practice): after the grains are joined, of
+every pair of atoms closer than ``overlap`` x the nearest-neighbour distance
+(default 0.6) the atom of grain 2 is removed.  Atoms exactly on the mirror
+plane are shared by both grains and kept once.
+
+Sigma: the misorientation matrix M between the two grains' cubic axes has
+rational entries; Sigma is the smallest positive integer N for which N M is
+an integer matrix (the odd common denominator; for a cubic lattice it is the
+ratio of the CSL cell volume to the crystal's lattice cell volume, the same
+for sc, bcc and fcc).  For a symmetric [001] tilt with (hk0) it equals
+h^2 + k^2 divided by 2 until odd; Sigma 5 for (310) or (210) [001].
+"""
+from __future__ import annotations
+
+import itertools
+import math
+
+import numpy as np
+
+from ..crystal import Crystal
+from ..errors import UserError
+from ..lattice import _gcd_reduce, format_indices, parse_indices
+from .point import oriented, parent_crystal, repeats
+
+
+def _cubic_rotations():
+    """The 24 proper rotations of the cube (signed permutation matrices, det +1)."""
+    out = []
+    for perm in itertools.permutations(range(3)):
+        for signs in itertools.product((1, -1), repeat=3):
+            m = np.zeros((3, 3))
+            for i, (p, s) in enumerate(zip(perm, signs)):
+                m[i, p] = s
+            if np.linalg.det(m) > 0:
+                out.append(m)
+    return out
+
+
+def sigma_of(M, max_sigma=999):
+    """Smallest N with N * M integral (M a rational rotation matrix in cubic axes)."""
+    M = np.asarray(M, float)
+    for n in range(1, max_sigma + 1):
+        X = n * M
+        if np.all(np.abs(X - np.round(X)) < 1e-6):
+            return n
+    return None
+
+
+def misorientation(M, axis=None):
+    """(smallest misorientation angle in degrees over the cubic symmetry,
+    its axis in cubic axes).  With ``axis`` given, the smallest angle whose
+    rotation axis is parallel to it."""
+    best = None
+    for S in _cubic_rotations():
+        R = M @ S
+        c = np.clip((np.trace(R) - 1.0) / 2.0, -1.0, 1.0)
+        ang = math.degrees(math.acos(c))
+        w = np.array([R[2, 1] - R[1, 2], R[0, 2] - R[2, 0], R[1, 0] - R[0, 1]])
+        if np.linalg.norm(w) > 1e-8:
+            ax = w / np.linalg.norm(w)
+        else:   # 0 or 180 degrees: axis from R + I
+            B = R + np.eye(3)
+            k = int(np.argmax(np.linalg.norm(B, axis=0)))
+            ax = B[:, k] / max(np.linalg.norm(B[:, k]), 1e-12)
+        if axis is not None:
+            t = np.asarray(axis, float) / np.linalg.norm(axis)
+            if abs(abs(ax @ t) - 1.0) > 1e-6 and ang > 1e-6:
+                continue
+        if best is None or ang < best[0] - 1e-9:
+            best = (ang, ax)
+    return best
+
+
+def tilt_boundary(element, axis="[001]", plane="(310)", size=None, overlap=0.6, periodic=True, phase=None,
+                  a=None, max_atoms=None) -> Crystal:
+    """A symmetric tilt grain boundary (bicrystal) in an FCC, BCC or simple
+    cubic crystal.
+
+    Parameters
+    ----------
+    element : element symbol or a Crystal (its lattice is used).
+    axis : tilt axis [uvw] (along z).
+    plane : boundary plane (hkl) of grain 1; must contain the axis.
+    size : (nx, ny, nz) copies of the oriented cell per grain (ny per grain);
+        default about 10 A in x and z and 20 A of each grain in y.
+    overlap : remove the grain-2 atom of pairs closer than this fraction of
+        the nearest-neighbour distance.
+    periodic : periodic along y (two boundaries) or free surfaces (one).
+    """
+    from scipy.spatial import cKDTree
+
+    from ..analysis.neighbours import nearest_neighbour_distance, neighbour_pairs
+
+    parent = parent_crystal(element, phase=phase, a=a, what="a tilt boundary")
+    lat = parent.lattice
+    if lat.family != "cubic" or lat.atoms_per_cell not in (1, 2, 4) or lat.prototype not in ("sc", "bcc", "fcc"):
+        raise UserError(f"tilt boundaries are built for cubic metals (fcc, bcc, sc); this one is {lat.prototype}")
+    t = parse_indices(axis, kind="direction") if isinstance(axis, str) else None
+    p = parse_indices(plane, kind="plane") if isinstance(plane, str) else None
+    tv = np.array(_gcd_reduce(t.values if t else axis), int)
+    pv = np.array(_gcd_reduce(p.values if p else plane), int)
+    if len(tv) != 3 or len(pv) != 3:
+        raise UserError("a cubic tilt boundary needs a three-index axis [uvw] and plane (hkl)")
+    if not np.any(tv) or not np.any(pv):
+        raise UserError("tilt axis and boundary plane must not be all zero; e.g. axis [001], plane (310)")
+    if int(tv @ pv) != 0:
+        raise UserError(f"plane {format_indices(pv, 'plane')} does not contain the tilt axis "
+                        f"{format_indices(tv)} (h u + k v + l w must be 0); e.g. axis [001] with plane (310)")
+    xv = np.array(_gcd_reduce(np.cross(pv, tv)), int)
+    if np.all(np.abs(np.cross(pv, tv)) == 0):
+        raise UserError("the tilt axis lies along the plane normal; that is a twist, not a tilt")
+    orient = (format_indices(xv), format_indices(pv), format_indices(tv))
+    cell1 = oriented(parent, orient)
+    L = np.linalg.norm(cell1.cell, axis=1)
+    if size is None:
+        size = (max(1, math.ceil(10.0 / L[0])), max(1, math.ceil(20.0 / L[1])), max(1, math.ceil(10.0 / L[2])))
+    nx, ny, nz = repeats(size, 3, "size", "(1, 4, 3)")
+    g1 = oriented(parent, orient, repeat=(nx, ny, nz), max_atoms=None if max_atoms is None else max_atoms // 2)
+    Ly = g1.cell[1, 1]
+    if abs(g1.cell[1, 0]) > 1e-6 or abs(g1.cell[2, 0]) > 1e-6 or abs(g1.cell[2, 1]) > 1e-6:
+        raise UserError("internal: the oriented grain cell is not orthogonal")
+    pos1 = g1.positions.copy()
+    shared = np.abs(pos1[:, 1]) < 1e-6            # atoms on the mirror plane belong to both grains
+    pos2 = pos1[~shared] * np.array([1.0, -1.0, 1.0])
+    # wrap mirrored atoms in x (its cell row is along x) and shift both grains up by Ly
+    pos2[:, 0] = np.mod(pos2[:, 0], g1.cell[0, 0])
+    pos1[:, 1] += Ly
+    pos2[:, 1] += Ly
+    pos = np.vstack([pos1, pos2])
+    grain = np.concatenate([np.ones(len(pos1), np.uint8), np.full(len(pos2), 2, np.uint8)])
+    numbers = np.concatenate([g1.numbers, g1.numbers[~shared]])
+    if periodic:
+        # the second boundary (at the cell edge) holds grain 1's periodic copy
+        # of its mirror-plane atoms: y = 2 Ly, wrapped to 0 below
+        pos = np.vstack([pos, pos1[shared] + np.array([0.0, Ly, 0.0])])
+        grain = np.concatenate([grain, np.ones(int(shared.sum()), np.uint8)])
+        numbers = np.concatenate([numbers, g1.numbers[shared]])
+    cell = np.array([g1.cell[0], [0.0, 2 * Ly, 0.0], g1.cell[2]])
+    pbc = (True, bool(periodic), True)
+    # wrap y (periodic) / keep
+    if periodic:
+        pos[:, 1] = np.mod(pos[:, 1], 2 * Ly)
+        pos[pos[:, 1] >= 2 * Ly - 1e-9, 1] = 0.0
+    out = Crystal(cell, pos, numbers, pbc=pbc, metadata=dict(parent.metadata), lattice=g1.lattice,
+                  species_radii=parent.species_radii)
+    dnn = nearest_neighbour_distance(parent)
+    cut = float(overlap) * dnn
+    removed = 0
+    if cut > 0:
+        i, j, _, d = neighbour_pairs(out, cut)
+        drop = np.zeros(len(out), bool)
+        # exact duplicates and close pairs: drop the grain-2 atom (lowest index wins within a grain)
+        order = np.argsort(d, kind="stable")
+        for a_, b_ in zip(i[order], j[order]):
+            if a_ == b_ or drop[a_] or drop[b_]:
+                continue
+            if grain[a_] == grain[b_]:
+                victim = max(a_, b_)
+            else:
+                victim = a_ if grain[a_] == 2 else b_
+            drop[victim] = True
+        removed = int(drop.sum())
+        out = out.select(~drop)
+    # Sigma and misorientation from the grains' cubic axes
+    e1 = g1.lattice.cell / np.linalg.norm(g1.lattice.cell, axis=1)[:, None]   # cubic axes in the lab (rows)
+    rot_y = np.diag([-1.0, 1.0, -1.0])                                          # 180 deg about the normal (y)
+    e2 = e1 @ rot_y.T
+    M = e1 @ e2.T                                                               # M_ij = e1_i . e2_j
+    sigma = sigma_of(M)
+    mis = misorientation(M, axis=tv)
+    angle = mis[0] if mis else None
+    out.record_defect(
+        "tilt_boundary", axis=format_indices(tv), plane=format_indices(pv, "plane"), sigma=sigma,
+        misorientation_deg=None if angle is None else round(angle, 4), orient=list(orient),
+        boundaries_y_A=[0.0, float(Ly)] if periodic else [float(Ly)], removed_atoms=removed,
+        shared_plane_atoms=int(shared.sum()),
+        overlap_rule=f"grain-2 atom of each pair closer than {overlap:g} x nearest-neighbour distance removed",
+        size=[nx, ny, nz], periodic=bool(periodic),
+    )
+    return out

@@ -1,0 +1,366 @@
+"""Point defects: vacancies, substitutional solutes (random solid solution)
+and Frenkel pairs.
+
+Every function takes a Crystal and returns a new Crystal (the input is left
+as it was) with a record of what was done appended to
+``metadata['defects']``.  Random choices use ``numpy.random.default_rng(seed)``:
+the same seed on the same crystal gives the same result.
+
+Vacancy records keep the Cartesian positions of the emptied sites
+(``positions``: a list of [x, y, z] in A) so figures can mark them.
+
+The helpers at the bottom of this module (parent_crystal, oriented, ...) are
+shared by the other defect builders.
+"""
+from __future__ import annotations
+
+import math
+import numbers
+
+import numpy as np
+
+from ..crystal import Crystal, role_code
+from ..errors import UserError
+
+# ------------------------------------------------------------------ choosing how many
+
+
+def _count_from(n_available, count=None, fraction=None, what="vacancies"):
+    """Exact count from a count or a fraction of the available sites."""
+    if count is not None and fraction is not None:
+        raise UserError(f"give the {what} as a count or as a fraction, not both")
+    if count is None and fraction is None:
+        raise UserError(f"say how many {what}: a count (e.g. count=5) or a fraction of the sites (e.g. fraction=0.01)")
+    if fraction is not None:
+        try:
+            f = float(fraction)
+        except (TypeError, ValueError):
+            raise UserError(f"fraction {fraction!r} must be a number between 0 and 1, e.g. 0.01") from None
+        if not math.isfinite(f) or f < 0 or f > 1:
+            raise UserError(f"fraction {fraction} is outside [0, 1]; give e.g. 0.01 for 1 % of the sites")
+        n = int(round(f * n_available))
+    else:
+        if isinstance(count, bool) or not isinstance(count, (numbers.Integral, float, str)):
+            raise UserError(f"count {count!r} must be a whole number, e.g. 5")
+        try:
+            cf = float(count)
+        except ValueError:
+            raise UserError(f"count {count!r} must be a whole number, e.g. 5") from None
+        if not math.isfinite(cf) or cf != int(cf):
+            raise UserError(f"count {count!r} must be a whole number, e.g. 5")
+        n = int(cf)
+        if n < 0:
+            raise UserError(f"count {n} is negative; give 0 or more {what}")
+    if n > n_available:
+        raise UserError(f"{n} {what} asked for but only {n_available} sites are available; "
+                        f"give at most {n_available} or a bigger crystal (e.g. repeat=(4, 4, 4))")
+    return n
+
+
+def _candidates(crystal, element=None, role=None):
+    mask = np.ones(len(crystal), bool)
+    if element is not None:
+        from ..elements import atomic_number
+
+        z = atomic_number(element)
+        mask &= crystal.numbers == z
+        if not mask.any():
+            raise UserError(f"there is no {element} in this crystal; it holds {', '.join(crystal.elements) or 'no atoms'}")
+    if role is not None:
+        mask &= crystal.roles == role_code(role)
+    return np.nonzero(mask)[0]
+
+
+# ------------------------------------------------------------------ vacancies
+def add_vacancies(crystal: Crystal, count=None, fraction=None, indices=None, seed=0, element=None) -> Crystal:
+    """Remove atoms: ``count`` of them, a ``fraction`` of the sites (rounded to
+    the nearest whole number), or the given ``indices``.
+
+    ``element`` limits the random choice to one species (e.g. the Al sites of
+    NiAl).  Recorded as ``{'kind': 'vacancy', 'count', 'positions', 'seed', ...}``.
+    """
+    if not isinstance(crystal, Crystal):
+        raise UserError("add_vacancies needs a Crystal, e.g. add_vacancies(build('Cu', repeat=(4, 4, 4)), count=3)")
+    info = {}
+    if indices is not None:
+        if count is not None or fraction is not None:
+            raise UserError("give vacancies as indices, a count or a fraction: only one of them")
+        try:
+            idx = np.asarray(indices, dtype=float).reshape(-1)
+        except (TypeError, ValueError):
+            raise UserError("indices must be whole atom numbers, e.g. indices=[0, 5]") from None
+        if np.any(idx != np.round(idx)):
+            raise UserError("indices must be whole atom numbers, e.g. indices=[0, 5]")
+        idx = idx.astype(np.int64)
+        if len(idx) and (idx.min() < 0 or idx.max() >= len(crystal)):
+            raise UserError(f"vacancy index out of range: the crystal has atoms 0 to {len(crystal) - 1}")
+        if len(np.unique(idx)) != len(idx):
+            raise UserError("vacancy indices repeat; give each atom once")
+        chosen = idx
+        info["indices"] = idx.tolist()
+    else:
+        pool = _candidates(crystal, element=element)
+        n = _count_from(len(pool), count=count, fraction=fraction, what="vacancies")
+        rng = _rng(seed)
+        chosen = np.sort(rng.choice(pool, size=n, replace=False)) if n else np.zeros(0, np.int64)
+        info["seed"] = seed
+        if fraction is not None:
+            info["fraction"] = float(fraction)
+        if element is not None:
+            info["element"] = str(element)
+    removed = crystal.positions[chosen]
+    removed_symbols = crystal.symbols[chosen].tolist() if len(chosen) else []
+    out = crystal.delete(chosen)
+    out.record_defect("vacancy", count=int(len(chosen)), positions=removed.tolist(),
+                      symbols=removed_symbols, **info)
+    return out
+
+
+# ------------------------------------------------------------------ substitution
+def substitute(crystal: Crystal, element, fraction=None, count=None, seed=0, host=None) -> Crystal:
+    """Random substitutional solid solution: replace host atoms by ``element``.
+
+    The number replaced is exact: ``count``, or ``round(fraction x number of
+    host sites)``.  ``host`` limits the choice to one species of the host
+    (default: every atom whose role is 'host').  The solute's role becomes
+    'solute' and its hard-sphere radius its CN12 metallic radius from the
+    element data (crystalview.elements).
+    """
+    from ..elements import atomic_number
+    from ..elements import element as element_data
+
+    if not isinstance(crystal, Crystal):
+        raise UserError("substitute needs a Crystal, e.g. substitute(build('Cu', repeat=(4, 4, 4)), 'Ni', fraction=0.1)")
+    sym = element_data(element).symbol         # UserError for unknown metals
+    radius = element_data(sym).metallic_radius
+    if radius is None:
+        raise UserError(f"no CN12 metallic radius for {sym} in the element data; choose another solute")
+    pool = _candidates(crystal, element=host, role="host")
+    n = _count_from(len(pool), count=count, fraction=fraction, what=f"{sym} solute atoms")
+    rng = _rng(seed)
+    chosen = np.sort(rng.choice(pool, size=n, replace=False)) if n else np.zeros(0, np.int64)
+    out = crystal.copy()
+    out.numbers[chosen] = atomic_number(sym)
+    out.roles[chosen] = role_code("solute")
+    out.species_radii[sym] = float(radius)
+    info = {"element": sym, "count": int(n), "seed": seed, "radius_A": float(radius)}
+    if fraction is not None:
+        info["fraction"] = float(fraction)
+        info["fraction_made"] = n / len(pool) if len(pool) else 0.0
+    if host is not None:
+        info["host"] = str(host)
+    out.record_defect("substitution", **info)
+    return out
+
+
+# ------------------------------------------------------------------ Frenkel pairs
+def _holes_near(points, site, reach, exclude=()):
+    """Empty positions near ``site``: circumcentres of the Delaunay tetrahedra
+    of the surrounding atoms (``points``), with the distance from each to its
+    nearest atom.  Returns (centres, centre-to-atom distances)."""
+    from scipy.spatial import Delaunay, cKDTree
+
+    if len(points) < 5:
+        return np.zeros((0, 3)), np.zeros(0)
+    try:
+        tri = Delaunay(points)
+    except Exception:  # degenerate (flat) neighbourhoods
+        return np.zeros((0, 3)), np.zeros(0)
+    tet = points[tri.simplices]                          # (m, 4, 3)
+    p0 = tet[:, 0]
+    A = tet[:, 1:] - p0[:, None, :]                      # (m, 3, 3)
+    rhs = 0.5 * np.sum(A * A, axis=2)                    # (m, 3)
+    det = np.linalg.det(A)
+    ok = np.abs(det) > 1e-8
+    centres = np.zeros((len(tet), 3))
+    centres[ok] = p0[ok] + np.linalg.solve(A[ok], rhs[ok][..., None])[..., 0]
+    centres = centres[ok]
+    near = np.linalg.norm(centres - site, axis=1) <= reach
+    centres = centres[near]
+    if not len(centres):
+        return centres, np.zeros(0)
+    # merge circumcentres shared by several tetrahedra (octahedra split in four)
+    key = np.round(centres / 0.05).astype(np.int64)
+    _, first = np.unique(key, axis=0, return_index=True)
+    centres = centres[np.sort(first)]
+    dist, _ = cKDTree(points).query(centres)
+    return centres, dist
+
+
+def frenkel_pairs(crystal: Crystal, count, seed=0) -> Crystal:
+    """Move ``count`` randomly chosen atoms from their sites into interstitial
+    holes, leaving a vacancy behind each (a Frenkel pair).
+
+    The hole is found geometrically: around the chosen site, the empty
+    positions are the circumcentres of the Delaunay tetrahedra of the
+    neighbouring atoms (within 1.5 nearest-neighbour distances of the site);
+    of those, the largest holes (free space within 0.02 A of the biggest) are
+    kept and the one nearest the site is taken.  Emptied sites, and holes
+    closer than half a neighbour distance to them, are never used.  In FCC
+    this puts the atom in a neighbouring octahedral hole, in BCC in a
+    tetrahedral hole (the largest there).
+
+    The moved atom keeps its element and gets the role 'interstitial'.
+    Recorded as ``{'kind': 'frenkel_pair', 'count', 'positions' (emptied
+    sites), 'interstitial_positions', 'seed'}``.
+    """
+    from ..analysis.neighbours import nearest_neighbour_distance, with_images
+
+    if not isinstance(crystal, Crystal):
+        raise UserError("frenkel_pairs needs a Crystal, e.g. frenkel_pairs(build('Cu', repeat=(4, 4, 4)), 2)")
+    pool = _candidates(crystal, role="host")
+    n = _count_from(len(pool), count=count, what="Frenkel pairs")
+    out = crystal.copy()
+    if n == 0:
+        out.record_defect("frenkel_pair", count=0, positions=[], interstitial_positions=[], seed=seed)
+        return out
+    rng = _rng(seed)
+    movers = rng.choice(pool, size=n, replace=False)
+    dnn = nearest_neighbour_distance(crystal)
+    reach = 1.5 * dnn
+    vac, inter, free_r = [], [], []
+    inv = np.linalg.inv(out.cell)
+    for i in movers:
+        site = out.positions[i].copy()
+        pts, idx = with_images(out.positions, out.cell, out.pbc, reach + 2.0 * dnn)
+        keep = (idx != i) & (np.linalg.norm(pts - site, axis=1) <= reach + 2.0 * dnn)
+        cluster = pts[keep]
+        centres, dist = _holes_near(cluster, site, reach)
+        if len(centres):
+            bad = np.linalg.norm(centres - site, axis=1) < 0.5 * dnn
+            bad |= dist > 0.95 * dnn                      # outside a surface, or an emptied site
+            for v in vac:                                  # earlier emptied sites (periodic images too)
+                d = (centres - v) @ inv
+                for k in range(3):
+                    if out.pbc[k]:
+                        d[:, k] -= np.round(d[:, k])
+                bad |= np.linalg.norm(d @ out.cell, axis=1) < 0.5 * dnn
+            centres, dist = centres[~bad], dist[~bad]
+        if not len(centres):
+            raise UserError("found no empty interstitial hole next to a chosen atom; use a bigger crystal "
+                            "(e.g. repeat=(4, 4, 4)) or fewer Frenkel pairs")
+        big = dist >= dist.max() - 0.02
+        centres, dist = centres[big], dist[big]
+        d_site = np.round(np.linalg.norm(centres - site, axis=1), 6)
+        order = np.lexsort((np.round(centres[:, 2], 6), np.round(centres[:, 1], 6),
+                            np.round(centres[:, 0], 6), d_site))
+        q = centres[order[0]]
+        fq = q @ inv
+        for k in range(3):
+            if out.pbc[k]:
+                fq[k] -= math.floor(fq[k])
+                if fq[k] >= 1.0 - 1e-9:
+                    fq[k] = 0.0
+        q = fq @ out.cell
+        vac.append(site)
+        inter.append(q)
+        free_r.append(float(dist[order[0]]))
+        out.positions[i] = q
+        out.roles[i] = role_code("interstitial")
+    r_host = float(np.mean(crystal.atom_radii())) if len(crystal) else 0.0
+    out.record_defect("frenkel_pair", count=int(n), positions=np.array(vac).tolist(),
+                      interstitial_positions=np.array(inter).tolist(), seed=seed,
+                      hole_centre_to_atom_A=round(float(np.mean(free_r)), 4),
+                      hole_free_radius_A=round(float(np.mean(free_r)) - r_host, 4))
+    return out
+
+
+# ================================================================== shared helpers
+def _rng(seed):
+    if isinstance(seed, bool):
+        raise UserError(f"seed {seed!r} must be a whole number, e.g. 0 or 42")
+    try:
+        return np.random.default_rng(None if seed is None else int(seed))
+    except (TypeError, ValueError):
+        raise UserError(f"seed {seed!r} must be a whole number, e.g. 0 or 42") from None
+
+
+#: metadata keys that describe a particular supercell, not the material
+_CELL_KEYS = ("repeat", "orient", "supercell", "defects")
+
+
+def parent_crystal(source, phase=None, a=None, what="this defect") -> Crystal:
+    """The conventional cell of an element name or of a Crystal's lattice.
+
+    A string is built with :func:`crystalview.build` (``phase``/``a`` passed
+    on); a Crystal gives its lattice (the conventional cell it was built from),
+    not its atoms, so supercells and defects already in it are not carried.
+    """
+    if isinstance(source, Crystal):
+        lat = source.lattice
+        if lat is None:
+            raise UserError(f"{what} needs a crystal with a known lattice (built from an element or lattice type)")
+        from ..elements import atomic_number
+
+        z = np.array([atomic_number(s) for s in lat.basis_symbols], np.uint8)
+        meta = {k: v for k, v in source.metadata.items() if k not in _CELL_KEYS}
+        return Crystal(lat.cell, lat.basis_frac @ lat.cell, z, lattice=lat, metadata=meta,
+                       species_radii=source.species_radii)
+    if not isinstance(source, str):
+        raise UserError(f"{what} needs an element symbol (e.g. 'Cu') or a Crystal, not {type(source).__name__}")
+    from ..build import build
+
+    return build(source, phase=phase, a=a)
+
+
+def oriented(parent: Crystal, orient, repeat=None, max_atoms=None) -> Crystal:
+    """The parent's lattice as an oriented (and repeated) supercell."""
+    from ..build import _supercell_of
+
+    return _supercell_of(parent, repeat=repeat, orient=orient, max_atoms=max_atoms)
+
+
+def repeats(values, n, what, example):
+    """n whole numbers >= 1."""
+    try:
+        vals = tuple(int(v) for v in values)
+        if any(float(v) != int(v) for v in values):
+            raise ValueError
+    except (TypeError, ValueError):
+        raise UserError(f"{what} {values!r} must be {n} whole numbers, e.g. {example}") from None
+    if len(vals) != n:
+        raise UserError(f"{what} {values!r} must be {n} whole numbers, e.g. {example}")
+    if any(v < 1 for v in vals):
+        raise UserError(f"{what} {vals} must be at least 1 each, e.g. {example}")
+    return vals
+
+
+def rotation_to_frame(x_axis, z_axis):
+    """3x3 matrix Rm with v_new = v_old @ Rm, taking z_axis to +z and the part
+    of x_axis normal to it to +x."""
+    z = np.asarray(z_axis, float)
+    z = z / np.linalg.norm(z)
+    x = np.asarray(x_axis, float)
+    x = x - np.dot(x, z) * z
+    x = x / np.linalg.norm(x)
+    y = np.cross(z, x)
+    return np.column_stack([x, y, z])
+
+
+def indices_text(frac_vec, tol=1e-6):
+    """'a/2[1-10]'-style text for a vector given in conventional fractional units."""
+    from fractions import Fraction
+    from math import gcd
+
+    v = np.asarray(frac_vec, float)
+    fr = [Fraction(float(x)).limit_denominator(12) for x in v]
+    if max(abs(float(f) - x) for f, x in zip(fr, v)) > tol:
+        return "[" + ", ".join(f"{x:.4f}" for x in v) + "]"
+    den = 1
+    for f in fr:
+        den = den * f.denominator // gcd(den, f.denominator)
+    ints = [int(f * den) for f in fr]
+    g = 0
+    for i in ints:
+        g = gcd(g, abs(i))
+    g = g or 1
+    ints = [i // g for i in ints]
+    num = Fraction(g, den)
+    from ..lattice import format_indices
+
+    body = format_indices(ints, "direction")
+    if num == 1:
+        return "a" + body
+    if num.numerator == 1:
+        return f"a/{num.denominator}{body}"
+    return f"{num.numerator}a/{num.denominator}{body}"
