@@ -68,11 +68,8 @@ _API = {
     "export": "crystalview.exchange:export",
     "read_cif": "crystalview.exchange.cif:read_cif",
     "run_scene": "crystalview.scene:run_scene",
-    "__end__": "",
-
     "burgers_circuit": "crystalview.defects.dislocation:burgers_circuit",
 }
-_API.pop("__end__", None)
 
 __all__ = sorted(_API) + ["CAUTION", "__version__"]
 
