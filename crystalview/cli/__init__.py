@@ -19,6 +19,7 @@ class _Parser(argparse.ArgumentParser):
     """argparse with one-line errors and exit status 2."""
 
     def error(self, message):
+        message = " ".join(str(message).split())      # one line, whatever the user typed
         sys.stderr.write(f"{self.prog}: error: {message} (see {self.prog} --help)\n")
         sys.exit(2)
 
