@@ -663,6 +663,10 @@ def sphere_mesh(radius, res=36):
     return pv.Sphere(radius=float(radius), theta_resolution=res, phi_resolution=max(8, res * 2 // 3)).triangulate()
 
 
+_PLURAL = {"vacancy": ("vacancy", "vacancies"), "substitution": ("substitution", "substitutions"),
+           "interstitial": ("interstitial", "interstitials"), "frenkel_pair": ("Frenkel pair", "Frenkel pairs")}
+
+
 def caption_lines(crystal, view, st, slip_info=None):
     lat = crystal.lattice
     md = crystal.metadata
@@ -685,9 +689,19 @@ def caption_lines(crystal, view, st, slip_info=None):
     second = f"{len(crystal):,} atoms"
     if rep:
         second += f" ({' x '.join(str(x) for x in rep)} cells)"
-    defects = [d.get("kind") for d in md.get("defects", []) or []]
+    defects = []
+    for d in md.get("defects", []) or []:
+        label = str(d.get("kind"))
+        if d.get("kind") == "stacking" and d.get("sequence"):
+            label = f"stacking {d.get('name') + ' ' if d.get('name') else ''}{d['sequence']}"
+        elif d.get("count") is not None and d.get("kind") in _PLURAL:
+            one, many = _PLURAL[d["kind"]]
+            what = f"{d['element']} " if d.get("element") and d["kind"] != "vacancy" else ""
+            label = f"{d['count']} {what}{one if d['count'] == 1 else many}"
+        if label not in defects:
+            defects.append(label)
     if defects:
-        second += ", defects: " + ", ".join(sorted(set(str(d) for d in defects)))
+        second += ", defects: " + ", ".join(defects)
     second += f"; view along {view.label}, {view.up_label} up; {st.name}"
     lines.append(second)
     if slip_info and slip_info.get("label"):
