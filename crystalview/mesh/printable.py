@@ -41,7 +41,7 @@ ROD_FRACTION = 0.15             # rod radius / smaller hard-sphere radius (ball-
 KIT_ROD_FRACTION = 0.22         # kit rod radius / smaller ball radius
 BOND_TOLERANCE = 1.05           # bond when distance <= 1.05 x (r_i + r_j)
 STYLES = ("ball-and-stick", "space-filling")
-PRINT_CAUTION = "A printed crystal model is a display piece, not a to-scale or load-bearing engineering part."
+PRINT_CAUTION = "A printed crystal model is a display piece, not a load-bearing engineering part."
 SUFFIXES = (".stl", ".3mf")
 
 
