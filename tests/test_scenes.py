@@ -87,3 +87,24 @@ def test_one_failing_scene_does_not_stop_the_others(tmp_path, cli):
     assert rc == 2
     assert (tmp_path / "runs" / "t" / "manifest.json").is_file()
     assert "unknown key 'oops'" in err and "summary:" in out
+
+
+@pytest.mark.parametrize("defect,check", [
+    ('kind = "vacancies"\ncount = 2\nseed = 3', lambda c: len(c) == 6),
+    ('kind = "substitute"\nelement = "Cr"\ncount = 3', lambda c: c.counts().get("Cr") == 3),
+    ('kind = "interstitials"\nelement = "C"\nsite = "octahedral"\nfraction = 0.5', lambda c: c.counts().get("C") == 4),
+    ('kind = "frenkel"\ncount = 1', lambda c: len(c) == 8 and "frenkel_pair" in str(c.metadata["defects"])),
+    ('kind = "stack"\nsequence = "ABCABABC"', lambda c: len(c) == 8),
+    ('kind = "slab"\nplane = "(111)"\nlayers = 4', lambda c: not c.pbc[2]),
+    ('kind = "dislocation"\ncharacter = "edge"', lambda c: c.metadata["defects"][-1]["kind"] == "dislocation"),
+    ('kind = "tilt-boundary"\naxis = "[001]"\nplane = "(310)"', lambda c: "grain_boundary" in str(c.metadata["defects"])
+     or "boundary" in str(c.metadata["defects"])),
+])
+def test_every_defect_kind_from_a_scene(tmp_path, defect, check):
+    from crystalview.scene import load_crystal
+
+    text = '[scene]\nname = "d"\n[structure]\nelement = "Ni"\nrepeat = [2, 1, 1]\n[[defects]]\n' + defect + "\n"
+    p = tmp_path / "d.toml"
+    p.write_text(text)
+    c = load_crystal(p)
+    assert check(c), c
