@@ -43,7 +43,8 @@ def run(args):
         print_json(info)
         return 0
     print(repr(c))
-    print(f"  memory for the atoms: {info['memory_MB']:.1f} MB")
+    mb = info["memory_MB"]
+    print(f"  memory for the atoms: {mb:.1f} MB" if mb >= 0.1 else f"  memory for the atoms: {mb * 1000:.1f} kB")
     for d in info["defects"]:
         print("  defect: " + ", ".join(f"{k}={v}" for k, v in d.items() if not isinstance(v, (list, dict))))
     if args.output:
