@@ -76,7 +76,7 @@ __all__ = sorted(_API) + ["CAUTION", "__version__"]
 # The function must win over the submodule of the same name: importing
 # crystalview.build anywhere would otherwise rebind cv.build to the module.
 # (crystalview.render is a callable package for the same reason.)
-from .build import build  # noqa: E402
+from .build import build  # noqa: E402,F401
 
 
 def __getattr__(name):

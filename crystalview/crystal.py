@@ -7,7 +7,7 @@ plus 2 bytes of species and role per atom.
 from __future__ import annotations
 
 import copy as _copy
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass
 
 import numpy as np
 

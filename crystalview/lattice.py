@@ -160,19 +160,32 @@ def reciprocal(cell):
     return np.linalg.inv(np.asarray(cell, float)).T
 
 
+def as_indices(value, kind, what=None) -> Indices:
+    """Indices of the given kind from text ('[1-10]', '(111)', bare '110'),
+    an Indices, or a sequence of three (four, hexagonal) whole numbers;
+    checked: not all zero, t = -(u + v) / i = -(h + k) for four-index forms."""
+    what = what or kind
+    if isinstance(value, Indices):
+        ind = value
+    elif isinstance(value, str):
+        ind = parse_indices(value, kind=kind)
+    else:
+        try:
+            floats = [float(x) for x in value]
+        except (TypeError, ValueError):
+            raise UserError(f"{what} {value!r} must be indices like "
+                            + ("'[001]'" if kind == "direction" else "'(111)'") + " or whole numbers") from None
+        if len(floats) not in (3, 4) or not all(math.isfinite(x) and x == int(x) for x in floats):
+            raise UserError(f"{what} {value!r} must be three (or four, hexagonal) whole numbers")
+        text = format_indices([int(x) for x in floats], kind)
+        ind = parse_indices(text, kind=kind)         # one place checks zero and four-index rules
+    if ind.kind != kind:
+        raise UserError(f"{what} must be a {kind}, not the {ind.kind} {ind}")
+    return ind
+
+
 def _ind3(ind, kind):
-    if isinstance(ind, str):
-        ind = parse_indices(ind, kind=kind)
-    if isinstance(ind, Indices):
-        if ind.kind != kind:
-            raise UserError(f"{ind} is a {ind.kind}; a {kind} is needed here")
-        return np.array(ind.three().values, dtype=float)
-    vals = tuple(int(v) for v in ind)
-    if len(vals) == 4:
-        vals = mb_to_miller_direction(vals) if kind == "direction" else mb_to_miller_plane(vals)
-    if len(vals) != 3 or not any(vals):
-        raise UserError(f"indices {ind} must be three (or four) integers, not all zero")
-    return np.array(vals, dtype=float)
+    return np.array(as_indices(ind, kind).three().values, dtype=float)
 
 
 def direction_vector(cell, uvw):

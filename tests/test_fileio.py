@@ -1,5 +1,4 @@
 """Atomic, non-clobbering writes (crash-safety is also tested under SIGKILL in test_hardening.py)."""
-import os
 
 import pytest
 

@@ -27,8 +27,8 @@ from fractions import Fraction
 import numpy as np
 
 from ..errors import UserError
-from ..lattice import (Indices, _gcd_reduce, direction_vector, format_indices, mb_to_miller_direction,
-                       mb_to_miller_plane, parse_indices, plane_normal)
+from ..lattice import (_gcd_reduce, direction_vector, format_indices, mb_to_miller_direction,
+                       mb_to_miller_plane, plane_normal, as_indices)
 
 _TOL = 1e-9
 
@@ -319,26 +319,7 @@ def load_axis(crystal, axis, cartesian=False):
         if n < 1e-12:
             raise UserError("the loading axis is zero; give a direction such as [001]")
         return v / n, "(" + ", ".join(f"{x:.4g}" for x in v) + ") cartesian"
-    if isinstance(axis, Indices):
-        ind = axis
-    elif isinstance(axis, str):
-        ind = parse_indices(axis, kind="direction")
-    else:
-        try:
-            vals = [float(x) for x in axis]
-        except (TypeError, ValueError):
-            raise UserError(f"loading axis {axis!r} must be indices like '[001]' or three whole numbers") from None
-        if len(vals) not in (3, 4) or not all(math.isfinite(x) and x == int(x) for x in vals):
-            raise UserError(f"loading axis {axis!r} must be three (or four, hexagonal) whole numbers, "
-                            f"e.g. [0, 0, 1]; pass cartesian=True for a Cartesian vector")
-        vals = tuple(int(x) for x in vals)
-        if not any(vals):
-            raise UserError("the loading axis [000] is zero; give a direction such as [001]")
-        if len(vals) == 4 and vals[2] != -(vals[0] + vals[1]):
-            raise UserError(f"four-index axis {list(vals)} breaks t = -(u + v): t should be {-(vals[0] + vals[1])}")
-        ind = Indices("direction", vals)
-    if ind.kind != "direction":
-        raise UserError(f"the loading axis must be a direction like [001], not the plane {ind}")
+    ind = as_indices(axis, "direction", what="the loading axis")
     if ind.four and not lat.is_hexagonal:
         raise UserError(f"four-index axis {ind} is only for hexagonal crystals; give three indices, e.g. [001]")
     v = direction_vector(lat.cell, ind.three().values)

@@ -102,7 +102,6 @@ def tilt_boundary(element, axis="[001]", plane="(310)", size=None, overlap=0.6, 
         the nearest-neighbour distance.
     periodic : periodic along y (two boundaries) or free surfaces (one).
     """
-    from scipy.spatial import cKDTree
 
     from ..analysis.neighbours import nearest_neighbour_distance, neighbour_pairs
 

@@ -1,7 +1,6 @@
 """Interstitial solutes in named sites: fill_sites()."""
 from __future__ import annotations
 
-import math
 
 import numpy as np
 
@@ -20,12 +19,9 @@ def fill_sites(crystal, element, kind="octahedral", fraction=1.0, seed=0):
     from .. import elements as E
     from ..analysis.sites import interstitial_sites
 
-    try:
-        frac = float(fraction)
-    except (TypeError, ValueError):
-        raise UserError(f"fraction {fraction!r} must be a number between 0 and 1, e.g. 0.05") from None
-    if not math.isfinite(frac) or frac < 0 or frac > 1:
-        raise UserError(f"fraction {fraction!r} must lie between 0 and 1 (a fraction of the sites), e.g. 0.05")
+    from .point import fraction_value
+
+    frac = fraction_value(fraction, what="of the sites", example="0.05")
     sym = E._canon(element)
     E.atomic_number(sym)
     radius, _mode, _src = E.solute_radius(sym)

@@ -313,7 +313,6 @@ def stacking_sequence(crystal: Crystal, details=False, sample=400):
         # up by its height along the normal and shifts its letter by its own
         # in-plane offset.  Unfold the layers found in the cell into one
         # period of the pure translation along the normal.
-        import itertools
 
         H = crystal.cell @ nrm
         kc = classify(crystal.cell)

@@ -25,6 +25,18 @@ from ..errors import UserError
 # ------------------------------------------------------------------ choosing how many
 
 
+def fraction_value(fraction, what="of the sites", example="0.01"):
+    """A fraction in [0, 1] from user input, or a one-line UserError."""
+    try:
+        f = float(fraction)
+    except (TypeError, ValueError):
+        raise UserError(f"fraction {fraction!r} must be a number between 0 and 1, e.g. {example}") from None
+    if not math.isfinite(f) or f < 0 or f > 1:
+        raise UserError(f"fraction {fraction} is outside [0, 1]; give e.g. {example} for "
+                        f"{float(example) * 100:g} % {what}")
+    return f
+
+
 def _count_from(n_available, count=None, fraction=None, what="vacancies"):
     """Exact count from a count or a fraction of the available sites."""
     if count is not None and fraction is not None:
@@ -32,13 +44,7 @@ def _count_from(n_available, count=None, fraction=None, what="vacancies"):
     if count is None and fraction is None:
         raise UserError(f"say how many {what}: a count (e.g. count=5) or a fraction of the sites (e.g. fraction=0.01)")
     if fraction is not None:
-        try:
-            f = float(fraction)
-        except (TypeError, ValueError):
-            raise UserError(f"fraction {fraction!r} must be a number between 0 and 1, e.g. 0.01") from None
-        if not math.isfinite(f) or f < 0 or f > 1:
-            raise UserError(f"fraction {fraction} is outside [0, 1]; give e.g. 0.01 for 1 % of the sites")
-        n = int(round(f * n_available))
+        n = int(round(fraction_value(fraction) * n_available))
     else:
         if isinstance(count, bool) or not isinstance(count, (numbers.Integral, float, str)):
             raise UserError(f"count {count!r} must be a whole number, e.g. 5")

@@ -15,7 +15,6 @@ not in z (pbc = (True, True, False)).
 """
 from __future__ import annotations
 
-import itertools
 import math
 from dataclasses import replace
 
@@ -23,26 +22,12 @@ import numpy as np
 
 from ..crystal import Crystal
 from ..errors import UserError
-from ..lattice import Indices, _gcd_reduce, parse_indices, reciprocal
+from ..lattice import _gcd_reduce, as_indices, reciprocal
 from .point import parent_crystal, repeats, rotation_to_frame
 
 
 def _plane(hkl, lat):
-    if isinstance(hkl, Indices):
-        ind = hkl
-    elif isinstance(hkl, str):
-        ind = parse_indices(hkl, kind="plane")
-    else:
-        vals = tuple(int(v) for v in hkl)
-        if not any(vals):
-            raise UserError(f"Miller indices {vals} are all zero: that is no plane; use e.g. (111)")
-        if len(vals) not in (3, 4):
-            raise UserError(f"Miller indices {vals} need 3 numbers (4 for hexagonal), e.g. (111) or (10-10)")
-        if len(vals) == 4 and vals[2] != -(vals[0] + vals[1]):
-            raise UserError(f"four-index plane {vals} breaks i = -(h + k): i should be {-(vals[0] + vals[1])}")
-        ind = Indices("plane", vals)
-    if ind.kind != "plane":
-        raise UserError(f"{ind} is a direction; a slab needs a plane like (111)")
+    ind = as_indices(hkl, "plane", what="the slab plane")
     if ind.four and not lat.is_hexagonal:
         raise UserError(f"four-index plane {ind} is only for hexagonal cells; use (hkl)")
     return ind, np.array(_gcd_reduce(ind.three().values), dtype=float)

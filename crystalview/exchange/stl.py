@@ -29,7 +29,8 @@ def write_model_stl(model, path, force=False):
 
 def write(crystal, path, *, force=False, style=None, scale=None, clip_to_cell=None, base=None, kit=None,
           min_feature=None, bed=None, material_density=None, clearance=None, max_triangles=None, segments=None):
-    """Export a printable solid as STL (same model as ``print_model``, no report file)."""
+    """Export a printable solid as STL or 3MF, by the file's extension (the
+    same model as ``print_model``, without the report file)."""
     from ..mesh.printable import print_model
 
     kw = dict(style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit, min_feature=min_feature,

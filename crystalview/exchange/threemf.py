@@ -99,12 +99,6 @@ def write_model_3mf(model, path, force=False):
     return atomic_write(path, threemf_bytes(bodies, colours, title), force=force)
 
 
-def write(crystal, path, *, force=False, style=None, scale=None, clip_to_cell=None, base=None, kit=None,
-          min_feature=None, bed=None, material_density=None, clearance=None, max_triangles=None, segments=None):
-    """Export a printable solid as 3MF (same model as ``print_model``, no report file)."""
-    from ..mesh.printable import print_model
+# the same printable model as STL; print_model picks the file format from the extension
+from .stl import write  # noqa: E402,F401
 
-    kw = dict(style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit, min_feature=min_feature,
-              bed=bed, material_density=material_density, clearance=clearance, max_triangles=max_triangles,
-              segments=segments)
-    return print_model(crystal, path, force=force, write_report=False, **{k: v for k, v in kw.items() if v is not None})

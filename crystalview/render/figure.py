@@ -9,7 +9,6 @@ discs), because VTK's own vector export rasterises 3D geometry.
 """
 from __future__ import annotations
 
-import math
 import struct
 import zlib
 from dataclasses import dataclass
@@ -309,7 +308,6 @@ def _arrow_mesh(start, vec, radius, double=False):
 
 def raster(scene, lay, transparent=False, plotter=None):
     """RGBA (H, W, 4) uint8 image of the scene, and the number of atoms drawn."""
-    import pyvista as pv
 
     pl = plotter or _plotter((lay.W, lay.H), transparent)
     actors = add_scene(pl, scene, lay, cull=True)

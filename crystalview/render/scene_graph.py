@@ -306,7 +306,7 @@ def classify_layers(crystal, normal_text=None):
 
     Returns (positions (N,) int, normal label).  Raises UserError for
     crystals that are not close-packed along that normal."""
-    from ..lattice import format_indices, miller_to_mb_plane, parse_indices, plane_normal
+    from ..lattice import parse_indices, plane_normal
 
     lat = crystal.lattice
     if normal_text is None:
@@ -498,7 +498,7 @@ def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites
             planes.append(planes_s[0])
         if dirs_s:
             directions.append((dirs_s[0], "slip"))
-    from ..lattice import format_indices, parse_indices, plane_normal
+    from ..lattice import parse_indices, plane_normal
 
     plane_polys = []
     for ptxt in planes:
