@@ -281,7 +281,7 @@ def build(spec, phase=None, *, element=None, elements=None, lattice=None, a=None
     if isinstance(spec, (str, Path)) and str(spec).lower().endswith(".cif"):
         from .exchange.cif import read_cif
 
-        base = read_cif(spec)
+        base = read_cif(spec, max_atoms=max_atoms)
         return _supercell_of(base, repeat=repeat, supercell=supercell, orient=orient, max_atoms=max_atoms)
     if isinstance(spec, (str, Path)) and str(spec).lower().endswith(".toml"):
         raise UserError(f"'{spec}' is a scene file; run it with `crystalview run {spec}` or crystalview.scene.load_crystal()")

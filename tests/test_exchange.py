@@ -265,3 +265,142 @@ def test_cli_export(tmp_path):
     r = subprocess.run([sys.executable, "-m", "crystalview", "export", "Cu", "-o", "cu.glb"], cwd=tmp_path,
                        capture_output=True, text=True, env=env)
     assert r.returncode == 2 and "already exists" in r.stderr
+
+
+# ---------------------------------------------------------------- CIF with its space group
+# Space-group numbers: International Tables for Crystallography Vol. A (Cu, Ni Fm-3m 225; alpha-Fe Im-3m 229;
+# alpha-Ti P6_3/mmc 194; Ni3Al L1_2 Pm-3m 221; TiAl L1_0 P4/mmm 123; Si diamond Fd-3m 227).
+# Independent oracles: gemmi reads and expands the file, spglib finds the group of what gemmi expanded.
+SPACE_GROUPS = [("Cu", {}, 225), ("Fe", {}, 229), ("Ti", {}, 194), ("Ni3Al", {}, 221), ("TiAl", {}, 123),
+                ("Si", {}, 227), ("Cu", {"repeat": (2, 2, 2)}, 225)]
+
+
+def _gemmi_expand(path):
+    import gemmi
+
+    st = gemmi.make_small_structure_from_block(gemmi.cif.read(str(path)).sole_block())
+    sites = st.get_all_unit_cell_sites()
+    frac = np.array([[s.fract.x, s.fract.y, s.fract.z] for s in sites]) % 1.0
+    nums = np.array([s.element.atomic_number for s in sites])
+    return st, np.array(st.cell.orth.mat).T, frac, nums
+
+
+@pytest.mark.parametrize("spec,kw,number", SPACE_GROUPS, ids=[f"{s}{'x2' if k else ''}" for s, k, _ in SPACE_GROUPS])
+def test_cif_written_with_space_group(tmp_path, spec, kw, number):
+    import spglib
+
+    c = cv.build(spec, **kw)
+    out = tmp_path / f"{spec}.cif"
+    info = cv.export(c, out)
+    assert info["space_group_number"] == number and info["sites_listed"] < len(c)
+    text = out.read_text()
+    assert "_space_group_symop_operation_xyz" in text and f"_space_group_IT_number {number}" in text
+    st, cell, frac, nums = _gemmi_expand(out)
+    # gemmi (independent reader) expands the asymmetric unit back to every atom of the same cell
+    assert len(st.sites) == info["sites_listed"]
+    assert len(frac) == len(c)
+    assert st.cell.volume == pytest.approx(c.volume, rel=1e-6)
+    assert sorted(nums) == sorted(c.numbers.astype(int))
+    # spglib: the same space group before and after
+    s0 = spglib.get_symmetry_dataset((c.cell, c.frac, c.numbers.astype(int)), symprec=1e-3)
+    s1 = spglib.get_symmetry_dataset((cell, frac, nums), symprec=1e-3)
+    assert s0.number == s1.number == number
+    # the atoms are the same ones, not just as many: every expanded atom sits on an original one
+    from scipy.spatial import cKDTree
+
+    f0 = c.frac % 1.0
+    f0[f0 > 1 - 1e-9] = 0
+    d, _ = cKDTree(f0, boxsize=1.0).query(np.where(frac > 1 - 1e-9, 0, frac))
+    assert d.max() < 1e-6
+    # our reader: the right group number and family in the lattice info
+    back = cv.read_cif(out)
+    assert back.lattice.space_group == number and back.metadata["space_group_number"] == number
+    fam = {225: "cubic", 229: "cubic", 221: "cubic", 227: "cubic", 194: "hexagonal", 123: "tetragonal"}[number]
+    assert back.lattice.family == fam
+    assert len(back) == len(c)
+
+
+def test_cif_tabulated_setting_has_symbol(tmp_path):
+    import gemmi
+
+    for spec, hm in (("Cu", "F m -3 m"), ("Fe", "I m -3 m"), ("Ti", "P 63/m m c"), ("Si", "F d -3 m:1")):
+        out = tmp_path / f"{spec}.cif"
+        cv.export(cv.build(spec), out)
+        st = gemmi.make_small_structure_from_block(gemmi.cif.read(str(out)).sole_block())
+        # gemmi recognises the listed operations as the tabulated setting named in the file
+        assert st.spacegroup is not None and st.spacegroup.xhm() == hm
+        assert f"_space_group_name_H-M_alt '{hm}'" in out.read_text()
+
+
+def test_cif_supercell_kept_as_given(tmp_path):
+    """A 2x2x2 Cu repeat is written as that cell (not reduced to the 4-atom
+    cell): 1 site and 48 x 32 = 1536 operations (International Tables Vol. A:
+    Fm-3m has 48 point operations; the 2x2x2 cell holds 32 lattice points)."""
+    c = cv.build("Cu", repeat=(2, 2, 2))
+    out = tmp_path / "cu222.cif"
+    info = cv.export(c, out)
+    assert info["symmetry_operations"] == 48 * 32 and info["sites_listed"] == 1
+    text = out.read_text()
+    assert "_space_group_name_H-M_alt" not in text     # not a tabulated setting: no symbol readers could misuse
+    back = cv.read_cif(out)
+    np.testing.assert_allclose(np.linalg.norm(back.cell, axis=1), np.linalg.norm(c.cell, axis=1), rtol=1e-7)
+    assert back.lattice.space_group == 225 and len(back) == 32
+    # a 3x3x3 repeat (5184 operations) is listed in P 1 with spglib's group named in a comment
+    info = cv.export(cv.build("Cu", repeat=(3, 3, 3)), tmp_path / "cu333.cif")
+    assert info["space_group_number"] == 1 and info["sites_listed"] == 108
+    assert "F m -3 m (No. 225)" in (tmp_path / "cu333.cif").read_text()
+
+
+def test_cif_defects_p1_roles_kept(tmp_path):
+    c = cv.fill_sites(cv.build("Fe", phase="gamma", repeat=(2, 2, 2)), "C", fraction=0.25, seed=1)
+    out = tmp_path / "fec.cif"
+    info = cv.export(c, out)
+    assert info["space_group_number"] == 1 and "defects" in info["note"]
+    back = cv.read_cif(out)
+    assert back.role_counts() == c.role_counts() == {"host": 32, "interstitial": 8}
+    assert back.lattice.space_group == 1
+    # roles survive a symmetric file too: every octahedral site filled (no defect record) stays Fm-3m
+    full = cv.fill_sites(cv.build("Fe", phase="gamma"), "C", fraction=1.0)
+    full.metadata.pop("defects")
+    info = cv.export(full, tmp_path / "fec_full.cif")
+    # source: International Tables Vol. A, rock-salt arrangement Fm-3m (225), sites 4a + 4b
+    assert info["space_group_number"] == 225 and info["sites_listed"] == 2
+    back = cv.read_cif(tmp_path / "fec_full.cif")
+    assert back.role_counts() == {"host": 4, "interstitial": 4}
+    assert set(back.symbols[back.roles == 2]) == {"C"}
+    # symmetry switched off: P 1
+    assert cv.export(cv.build("Cu"), tmp_path / "p1.cif", symmetry=False)["sites_listed"] == 4
+
+
+def test_cif_reader_symbol_number_and_incomplete_ops(tmp_path):
+    head = ("data_x\n_cell_length_a 2.8665\n_cell_length_b 2.8665\n_cell_length_c 2.8665\n"
+            "_cell_angle_alpha 90\n_cell_angle_beta 90\n_cell_angle_gamma 90\n")
+    atoms = ("loop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n_atom_site_fract_y\n"
+             "_atom_site_fract_z\nFe1 Fe 0 0 0\n")
+    # only the number: its standard setting (Im-3m, Wyckoff 2a: 2 atoms; International Tables Vol. A)
+    p = tmp_path / "n.cif"
+    p.write_text(head + "_space_group_IT_number 229\n" + atoms)
+    c = cv.read_cif(p)
+    assert len(c) == 2 and c.lattice.space_group == 229 and c.lattice.family == "cubic"
+    # operations that do not close into a group are refused, not silently ignored
+    p.write_text(head + "loop_\n_space_group_symop_operation_xyz\nx,y,z\ny,z,x\n" + atoms)
+    with pytest.raises(UserError, match="complete space group"):
+        cv.read_cif(p)
+    # a cubic-looking cell with a tetragonal group is not called cubic
+    p.write_text(head + "_symmetry_space_group_name_H-M 'P 4/m m m'\n" + atoms)
+    assert cv.read_cif(p).lattice.family == "tetragonal"
+    # the atom cap is applied to (operations x sites) before gemmi expands anything
+    p.write_text(head + "_symmetry_space_group_name_H-M 'F m -3 m'\n" + atoms)
+    from crystalview.errors import LimitError
+
+    with pytest.raises(LimitError, match="192 symmetry operations"):
+        cv.read_cif(p, max_atoms=100)
+
+
+def test_cli_info_reads_space_group(tmp_path, cli):
+    out = tmp_path / "ti.cif"
+    cv.export(cv.build("Ti"), out)
+    rc, text, err = cli("info", out, "--json")
+    assert rc == 0, err
+    s = json.loads(text)
+    assert s["space_group"] == 194 and s["atoms"] == 2      # International Tables Vol. A: P6_3/mmc, 2c

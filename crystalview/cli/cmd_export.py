@@ -52,5 +52,7 @@ def run(args):
         extra = ""
         if "scale" in info:
             extra = f", {info['scale']}" + (", EXT_mesh_gpu_instancing" if info.get("instancing") else "")
+        if "space_group" in info and info.get("format") == "cif":
+            extra += f", space group {info['space_group']}"
         print(f"wrote {info['file']}: {info['atoms']} atoms, {info['bytes']:,} bytes{extra}")
     return 0

@@ -1,9 +1,31 @@
-"""CIF (IUCr CIF 1.1): write every atom of the cell in space group P 1, and
-read any small-molecule/inorganic CIF with gemmi, expanding the asymmetric
-unit by the space group's symmetry operations.
+"""CIF (IUCr CIF 1.1): write a crystal with its space group, read any
+small-molecule/inorganic CIF with gemmi.
 
-Reading is gemmi's job (``gemmi.cif.read`` + ``gemmi.make_small_structure_from_block``
-+ ``get_all_unit_cell_sites``); no CIF parsing is done here by hand.
+Writing
+    spglib finds the crystal's symmetry in the cell exactly as the user has
+    it (no standardising, so a 2x2x2 repeat stays a 2x2x2 repeat).  The file
+    lists the atoms of the asymmetric unit, the space group's operations
+    expressed in that cell (``_space_group_symop_operation_xyz``), the IT
+    number, and the Hermann-Mauguin symbol where the operations are a
+    tabulated setting of International Tables Vol. A (then readers that go by
+    the symbol expand it the same way).  Role information (solute,
+    interstitial) is kept: roles take part in the symmetry search, each label
+    carries a non-host role as a suffix (``C1_interstitial``), and a local
+    column ``_[local]_atom_site_role`` (CIF 1.1's reserved prefix for local
+    data names) lists the role of every site.
+
+    Every atom is listed in P 1 instead when the crystal records defects (a
+    vacancy or a substituted atom is about one atom, not about a symmetry
+    class), when spglib finds no symmetry beyond the lattice translations,
+    when the cell holds over SYMMETRY_MAX_ATOMS atoms, or when the cell's
+    operations would be over SYMMETRY_MAX_OPS lines; a comment says which,
+    and names spglib's space group where one was found.
+
+Reading
+    gemmi does the parsing (``gemmi.cif.read`` + ``make_small_structure_from_block``
+    + ``get_all_unit_cell_sites``); nothing here parses CIF by hand.  The
+    expanded atom count is estimated (operations x listed sites) and checked
+    against the atom cap BEFORE gemmi expands anything.
 """
 from __future__ import annotations
 
@@ -12,28 +34,101 @@ from pathlib import Path
 
 import numpy as np
 
-from ..errors import UserError
+from ..errors import LimitError, UserError
+
+#: Above this many atoms in the cell the writer does not search for symmetry
+#: (spglib's cost grows with atoms x operations) and lists every atom in P 1.
+SYMMETRY_MAX_ATOMS = 1000
+#: At most this many symmetry operations are written: 192 (the largest
+#: conventional-cell group, e.g. F m -3 m, International Tables Vol. A) x 8,
+#: i.e. a 2x2x2 repeat of any cell.  Larger repeats are listed in P 1.
+SYMMETRY_MAX_OPS = 1536
+#: Operations read from a file beyond which it is refused (every real space
+#: group has at most 192 in its conventional cell).
+READ_MAX_OPS = 10000
+#: Cap on operations^2 x sites, the comparisons gemmi's expansion makes (about
+#: 2e7 a second): keeps a pathological file from hanging the reader.
+READ_MAX_WORK = 500_000_000
+#: Bounds on a cell read from a file, A: outside them the numbers are not a
+#: crystal's cell (and a cell thinner than this makes periodic searches blow up).
+MIN_CELL_HEIGHT, MAX_CELL_LENGTH, MAX_CELL_ASPECT = 0.5, 10000.0, 1000.0
+ROLE_TAG = "_[local]_atom_site_role"
+
+
+def symprec_for(cell):
+    """spglib's distance tolerance (A) for a cell: 1e-4 A, growing as
+    1e-5 x the longest cell edge for cells over 10 A (coordinates are written
+    with 8 decimals, so an exactly built crystal sits far inside it)."""
+    lengths = np.linalg.norm(np.asarray(cell, float), axis=1)
+    return float(max(1e-4, 1e-5 * lengths.max()))
 
 
 # ------------------------------------------------------------------ reading
-def _family(a, b, c, al, be, ga, tol_len=1e-3, tol_ang=0.01):
+_SYSTEMS = ((2, "triclinic"), (15, "monoclinic"), (74, "orthorhombic"), (142, "tetragonal"),
+            (167, "trigonal"), (194, "hexagonal"), (230, "cubic"))
+
+
+def crystal_system(number):
+    """Crystal system of a space-group number (International Tables Vol. A)."""
+    for top, name in _SYSTEMS:
+        if number <= top:
+            return name
+    raise ValueError(number)
+
+
+def _family(a, b, c, al, be, ga, tol_len=1e-3, tol_ang=0.01, number=None):
+    """cubic / hexagonal / tetragonal / other from the cell's metric, never
+    higher than the space group's crystal system allows."""
     def eq(x, y):
         return abs(x - y) <= tol_len * max(x, y)
 
     right = all(abs(x - 90.0) < tol_ang for x in (al, be, ga))
     if right and eq(a, b) and eq(b, c):
-        return "cubic"
-    if eq(a, b) and abs(al - 90) < tol_ang and abs(be - 90) < tol_ang and abs(ga - 120) < tol_ang:
-        return "hexagonal"
-    if right and eq(a, b):
-        return "tetragonal"
-    return "other"
+        fam = "cubic"
+    elif eq(a, b) and abs(al - 90) < tol_ang and abs(be - 90) < tol_ang and abs(ga - 120) < tol_ang:
+        fam = "hexagonal"
+    elif right and eq(a, b):
+        fam = "tetragonal"
+    else:
+        fam = "other"
+    if number is not None and 1 <= number <= 230:
+        system = crystal_system(number)
+        if fam == "cubic" and system != "cubic":
+            fam = "tetragonal" if system == "tetragonal" else "other"
+        elif (fam == "hexagonal" and system not in ("hexagonal", "trigonal")) or \
+                (fam == "tetragonal" and system not in ("tetragonal", "cubic")):
+            fam = "other"
+    return fam
 
 
-def read_cif(path, block=None):
+def _clean(exc, path=None):
+    text = str(exc)
+    if path is not None:
+        text = text.replace(str(path), Path(path).name)
+    return " ".join(text.split())[:200]
+
+
+def _int_or_none(text):
+    if text in (None, "?", "."):
+        return None
+    try:
+        v = float(str(text).strip("'\""))
+    except ValueError:
+        return None
+    return int(v) if math.isfinite(v) and v == int(v) else None
+
+
+def read_cif(path, block=None, max_atoms=None):
     """A :class:`~crystalview.crystal.Crystal` from a CIF file: the full unit
     cell (asymmetric unit expanded by the space group), lattice prototype
     "cif", the CIF's cell as the conventional cell.
+
+    The space group comes from the file: its symmetry operations (gemmi
+    recognises a tabulated setting; otherwise the operations are used as
+    listed and the number from ``_space_group_IT_number``), else its
+    Hermann-Mauguin symbol, else its IT number (standard setting).  The
+    expanded atom count (operations x listed sites) is checked against the
+    atom cap (``max_atoms``, default crystalview.build's) before expanding.
 
     Hard-sphere radii: for one species, half the nearest-neighbour distance
     (touching spheres); for several, the CN12 metallic radius from the
@@ -42,7 +137,8 @@ def read_cif(path, block=None):
     """
     import gemmi
 
-    from ..crystal import Crystal, LatticeInfo
+    from ..build import check_atom_count
+    from ..crystal import ROLES, Crystal, LatticeInfo
     from ..elements import atomic_number
 
     p = Path(path)
@@ -50,9 +146,9 @@ def read_cif(path, block=None):
         raise UserError(f"CIF file '{p}' not found")
     try:
         doc = gemmi.cif.read(str(p))
-    except (ValueError, RuntimeError) as exc:
-        msg = " ".join(str(exc).split())
-        raise UserError(f"'{p.name}' is not a readable CIF file ({msg}); check its syntax against CIF 1.1") from None
+    except (ValueError, RuntimeError, UnicodeError, OSError) as exc:
+        raise UserError(f"'{p.name}' is not a readable CIF file ({_clean(exc, p)}); "
+                        f"check its syntax against CIF 1.1") from None
     blocks = [b for b in doc if b.find_value("_cell_length_a") is not None]
     if block is not None:
         blocks = [b for b in blocks if b.name == block]
@@ -62,41 +158,91 @@ def read_cif(path, block=None):
     b = blocks[0]
     try:
         st = gemmi.make_small_structure_from_block(b)
-    except (ValueError, RuntimeError) as exc:
-        msg = " ".join(str(exc).split())
-        raise UserError(f"'{p.name}': cannot read the structure ({msg})") from None
+    except (ValueError, RuntimeError, IndexError) as exc:
+        raise UserError(f"'{p.name}': cannot read the structure ({_clean(exc, p)})") from None
     cell = st.cell
     pars = (cell.a, cell.b, cell.c, cell.alpha, cell.beta, cell.gamma)
-    if not all(math.isfinite(x) and x > 0 for x in pars) or cell.volume <= 0:
-        raise UserError(f"'{p.name}' has no valid unit cell (lengths and angles must be positive numbers)")
+    if not all(math.isfinite(x) and x > 0 for x in pars) or not math.isfinite(cell.volume) or cell.volume <= 0:
+        raise UserError(f"'{p.name}' has no valid unit cell (lengths and angles must be positive numbers "
+                        f"making a cell of positive volume)")
+    rows = np.array(cell.orth.mat, float).T          # rows = lattice vectors; a along x, b in the xy plane
+    from ..analysis.neighbours import cell_heights
+
+    with np.errstate(all="ignore"):
+        heights = cell_heights(rows) if np.all(np.isfinite(rows)) else np.zeros(3)
+    if max(pars[:3]) > MAX_CELL_LENGTH or not np.all(np.isfinite(heights)) or heights.min() < MIN_CELL_HEIGHT \
+            or max(pars[:3]) > MAX_CELL_ASPECT * heights.min():
+        raise UserError(f"'{p.name}': the cell {pars[0]:.4g} x {pars[1]:.4g} x {pars[2]:.4g} A, angles "
+                        f"{pars[3]:.4g} {pars[4]:.4g} {pars[5]:.4g} deg is not a crystal's cell; give edges of at most "
+                        f"{MAX_CELL_LENGTH:g} A, at least {MIN_CELL_HEIGHT} A between opposite faces, and no edge "
+                        f"over {MAX_CELL_ASPECT:g} times that thickness")
     if not st.sites:
         raise UserError(f"'{p.name}' lists no atoms (_atom_site_fract_x ... loop); give a CIF with atom sites")
-    if st.spacegroup is None:
+    for s in st.sites:
+        f = (s.fract.x, s.fract.y, s.fract.z)
+        if not all(math.isfinite(x) and abs(x) < 1e6 for x in f):
+            raise UserError(f"'{p.name}': atom site '{s.label}' has no valid fractional coordinates "
+                            f"({', '.join(f'{x:g}' for x in f)}); give three numbers")
+    number_tag = _int_or_none(b.find_value("_space_group_IT_number")) or \
+        _int_or_none(b.find_value("_symmetry_Int_Tables_number"))
+    if number_tag is not None and not 1 <= number_tag <= 230:
+        raise UserError(f"'{p.name}': space-group number {number_tag} does not exist; "
+                        f"International Tables number 1 to 230")
+    n_ops = 1
+    if len(st.symops) > READ_MAX_OPS:
+        raise UserError(f"'{p.name}' lists {len(st.symops):,} symmetry operations; a space group has at most "
+                        f"192 in its conventional cell - check the file")
+    if st.spacegroup is not None:
+        n_ops = _order(st.spacegroup.operations())
+    elif st.symops:
+        n_ops = len(cell.images) + 1
+        if n_ops != len(st.symops):
+            raise UserError(f"'{p.name}': its {len(st.symops)} symmetry operations (_space_group_symop_operation_xyz) "
+                            f"do not form a complete space group; list all of them as x,y,z triplets")
+    else:
         hm = b.find_value("_symmetry_space_group_name_H-M") or b.find_value("_space_group_name_H-M_alt")
         if hm not in (None, "?", "."):
-            raise UserError(f"'{p.name}': unknown space group {hm}; write it as a Hermann-Mauguin symbol, "
-                            f"e.g. 'F m -3 m'")
+            raise UserError(f"'{p.name}': unknown space group {_clean(hm)[:40]}; write it as a Hermann-Mauguin "
+                            f"symbol, e.g. 'F m -3 m'")
+        if number_tag is not None and number_tag > 1:
+            st.determine_and_set_spacegroup("N")          # only a number: its standard setting
+            if st.spacegroup is not None:
+                n_ops = _order(st.spacegroup.operations())
+    est = n_ops * len(st.sites)
+    check_atom_count(est, max_atoms, what=f"'{p.name}' ({len(st.sites):,} sites x {n_ops} symmetry operations)")
+    if n_ops * n_ops * len(st.sites) > READ_MAX_WORK:     # gemmi compares each image with the site's others
+        raise LimitError(f"'{p.name}': expanding {len(st.sites):,} sites by {n_ops:,} symmetry operations would take "
+                         f"about {n_ops * n_ops * len(st.sites):,} comparisons, over {READ_MAX_WORK:,}; give the "
+                         f"crystal in a smaller cell (a real space group has at most 192 operations)")
     sites = st.get_all_unit_cell_sites()
-    symbols, frac, partial = [], [], False
+    symbols, frac, partial, labels = [], [], False, []
     for s in sites:
         el = s.element.name
         if el in ("X", ""):
-            raise UserError(f"'{p.name}': atom site '{s.label}' has no element (type '{s.type_symbol}'); "
-                            f"give _atom_site_type_symbol")
-        f = np.array([s.fract.x, s.fract.y, s.fract.z], float)
-        frac.append(f - np.floor(f))
+            raise UserError(f"'{p.name}': atom site '{_clean(s.label)[:40]}' has no element (type "
+                            f"'{_clean(s.type_symbol)[:20]}'); give _atom_site_type_symbol")
+        frac.append([s.fract.x, s.fract.y, s.fract.z])
         symbols.append(el)
+        labels.append(s.label)
         if s.occ < 0.999:
             partial = True
-    frac = np.array(frac).reshape(-1, 3)
+    frac = np.array(frac, float).reshape(-1, 3)
+    frac -= np.floor(frac)
     frac[frac >= 1 - 1e-9] = 0.0
-    rows = np.array(cell.orth.mat).T          # rows = lattice vectors; a along x, b in the xy plane
-    numbers = np.array([atomic_number(s) for s in symbols], np.uint8)
-    family = _family(*pars)
     uniq = sorted(set(symbols), key=symbols.index)
+    z_of = {s: atomic_number(s) for s in uniq}
+    numbers = np.array([z_of[s] for s in symbols], np.uint8)
+    roles = _roles_from_block(b, labels, ROLES)
+    if st.spacegroup is not None:
+        sg_num, sg_name = int(st.spacegroup.number), st.spacegroup.xhm()
+    else:
+        sg_num = number_tag if (st.symops or number_tag == 1) else None
+        sg_name = None
+        if sg_num is None and len(st.symops) <= 1:
+            sg_num, sg_name = 1, "P 1"
+    family = _family(*pars, number=sg_num)
     name = b.find_value("_chemical_formula_sum") or b.name
     name = str(name).strip("'\"")
-    sg_num = st.spacegroup.number if st.spacegroup is not None else None
     lat = LatticeInfo(
         prototype="cif", title=f"from CIF {p.name}", cell=rows, a=float(cell.a),
         c=None if family == "cubic" else float(cell.c), elements=tuple(uniq), basis_frac=frac,
@@ -104,14 +250,38 @@ def read_cif(path, block=None):
     )
     meta = {"built_from": str(p), "name": name, "lattice": "cif", "a": float(cell.a), "b": float(cell.b),
             "c": float(cell.c), "angles": [float(cell.alpha), float(cell.beta), float(cell.gamma)],
-            "space_group": st.spacegroup.xhm() if st.spacegroup is not None else None,
-            "space_group_number": sg_num, "source": f"CIF file {p.name}", "cif_block": b.name,
-            "asymmetric_unit_sites": len(st.sites)}
+            "space_group": sg_name, "space_group_number": sg_num, "symmetry_operations": n_ops,
+            "source": f"CIF file {p.name}", "cif_block": b.name, "asymmetric_unit_sites": len(st.sites)}
     if partial:
         meta["note"] = "the CIF has partly occupied sites; every site is shown as a full atom"
-    crystal = Crystal(rows, frac @ rows, numbers, metadata=meta, lattice=lat)
+    crystal = Crystal(rows, frac @ rows, numbers, roles=roles, metadata=meta, lattice=lat)
     crystal.species_radii = _radii(crystal, uniq)
     return crystal
+
+
+def _order(gops):
+    return len(gops.sym_ops) * len(gops.cen_ops)
+
+
+def _roles_from_block(b, labels, roles_table):
+    """Per-atom role codes from the local role column (all host without it)."""
+    import gemmi
+
+    out = np.zeros(len(labels), np.uint8)
+    try:
+        lab_col, role_col = b.find_values("_atom_site_label"), b.find_values(ROLE_TAG)
+        pairs = [(gemmi.cif.as_string(x), gemmi.cif.as_string(y)) for x, y in zip(lab_col, role_col)]
+    except (ValueError, RuntimeError, TypeError):
+        return out
+    if len(lab_col) != len(role_col):
+        return out
+    table = {}
+    for lab, role in pairs:
+        if role in roles_table:
+            table[lab] = roles_table.index(role)
+    if table:
+        out[:] = [table.get(lab, 0) for lab in labels]
+    return out
 
 
 def _radii(crystal, species):
@@ -144,22 +314,175 @@ def _q(text):
     return f'"{t}"'
 
 
-def cif_text(crystal):
+def _triplet(rot, tran24):
+    """'x,y,z' text of an operation: integer rotation, translation in 1/24."""
+    import gemmi
+
+    op = gemmi.Op()
+    op.rot = (np.asarray(rot, int) * op.DEN).tolist()
+    op.tran = [int(x) % op.DEN for x in tran24]
+    return op
+
+
+def symmetry_of(crystal):
+    """How the crystal would be written: a dict with ``mode`` "symmetry" or
+    "P1", ``reason`` (for P1), the space group found by spglib
+    (``spglib_number``, ``spglib_symbol``) and, for "symmetry": ``ops``
+    (gemmi Ops in the crystal's own cell), ``number``/``hm``/``hall`` of the
+    group those operations form, ``sites`` (indices of one atom per
+    asymmetric-unit site) and ``frac`` (their symmetrised fractional
+    coordinates)."""
+    from ..crystal import ROLES
+
+    n = len(crystal)
+    out = {"mode": "P1", "reason": "", "spglib_number": None, "spglib_symbol": None}
+    if n == 0:
+        out["reason"] = "the crystal has no atoms"
+        return out
+    if crystal.metadata.get("defects"):
+        kinds = sorted({str(d.get("kind", "defect")) for d in crystal.metadata["defects"]})
+        out["reason"] = f"the crystal carries defects ({', '.join(kinds)}); every atom is listed"
+        return out
+    if n > SYMMETRY_MAX_ATOMS:
+        out["reason"] = f"over {SYMMETRY_MAX_ATOMS} atoms: no symmetry search, every atom is listed"
+        return out
+    import spglib
+
+    cell = np.asarray(crystal.cell, float)
+    frac = crystal.frac
+    frac -= np.floor(frac)
+    frac[frac >= 1 - 1e-12] = 0.0
+    types = crystal.numbers.astype(int) * len(ROLES) + crystal.roles.astype(int)
+    prec = symprec_for(cell)
+    import warnings
+
+    spglib_errors = (RuntimeError, ValueError, TypeError, getattr(getattr(spglib, "error", None), "SpglibError",
+                                                                  RuntimeError))
+    try:
+        with warnings.catch_warnings():          # spglib 2.x warns about its error-handling switch
+            warnings.simplefilter("ignore", DeprecationWarning)
+            ds = spglib.get_symmetry_dataset((cell, frac, types), symprec=prec)
+    except spglib_errors:
+        ds = None
+    if ds is None:
+        out["reason"] = "spglib found no space group"
+        return out
+    out["spglib_number"], out["spglib_symbol"] = int(ds.number), _hm_of(int(ds.number))
+    rots = np.asarray(ds.rotations, int)
+    trans = np.asarray(ds.translations, float) % 1.0
+    if len(rots) <= 1:
+        out["reason"] = "no symmetry beyond the lattice translations (P 1)"
+        return out
+    if len(rots) > SYMMETRY_MAX_OPS:
+        out["reason"] = (f"this cell has {len(rots):,} symmetry operations (a large repeat of a smaller cell), "
+                         f"over {SYMMETRY_MAX_OPS}; every atom is listed")
+        return out
+    t24 = trans * 24.0
+    if np.abs(t24 - np.round(t24)).max() > 0.02:
+        out["reason"] = "the symmetry translations of this cell are not multiples of 1/24; every atom is listed"
+        return out
+    t24 = np.round(t24).astype(int) % 24
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", DeprecationWarning)
+            sg_type = spglib.get_spacegroup_type_from_symmetry(rots, t24 / 24.0, lattice=cell, symprec=prec)
+    except spglib_errors:
+        sg_type = None
+    if sg_type is None:
+        out["reason"] = "spglib could not name the group of this cell's operations"
+        return out
+    import gemmi
+
+    ops = [_triplet(r, t) for r, t in zip(rots, t24)]
+    try:
+        tab = gemmi.find_spacegroup_by_ops(gemmi.GroupOps(ops))
+    except (ValueError, RuntimeError):
+        tab = None
+    # one atom per orbit, moved exactly onto its special position: the mean of
+    # its images under the operations that keep it (its site-symmetry group)
+    reps = sorted({int(k) for k in ds.equivalent_atoms})
+    tf = t24 / 24.0
+    sym = np.empty((len(reps), 3))
+    for m, k in enumerate(reps):
+        img = np.einsum("oij,j->oi", rots, frac[k]) + tf
+        d = img - frac[k]
+        d -= np.round(d)
+        fixed = np.linalg.norm(d @ cell, axis=1) < 2 * prec
+        sym[m] = (frac[k] + d[fixed].mean(axis=0)) % 1.0
+    sym[sym >= 1 - 1e-12] = 0.0
+    # the operations applied to the sites must give back exactly these atoms
+    if not _expands_to(sym, types[reps], rots, tf, frac, types, cell, prec):
+        out["reason"] = "the symmetry-expanded sites do not reproduce the atoms; every atom is listed"
+        return out
+    out.update(mode="symmetry", ops=ops, number=int(sg_type.number),
+               hm=tab.xhm() if tab is not None else None, hall=tab.hall.strip() if tab is not None else None,
+               system=crystal_system(int(sg_type.number)), choice=tab.ext if tab is not None else "",
+               sites=reps, frac=sym, symprec=prec, type_symbol=_hm_of(int(sg_type.number)))
+    return out
+
+
+def _hm_of(number):
+    import gemmi
+
+    sg = gemmi.find_spacegroup_by_number(number)
+    return sg.hm if sg is not None else str(number)
+
+
+def _expands_to(site_frac, site_types, rots, tf, frac, types, cell, prec):
+    from scipy.spatial import cKDTree
+
+    img = (np.einsum("oij,sj->soi", rots, site_frac) + tf[None, :, :]) % 1.0
+    img[img >= 1 - 1e-12] = 0.0
+    img_types = np.repeat(site_types, len(rots))
+    img = img.reshape(-1, 3)
+    tree = cKDTree(frac, boxsize=1.0)
+    # a fractional tolerance covering 4 x symprec along the shortest cell height
+    from ..analysis.neighbours import cell_heights
+
+    tol = 4 * prec / cell_heights(cell).min()
+    d, idx = tree.query(img, k=1, distance_upper_bound=tol)
+    if not np.all(np.isfinite(d)):
+        return False
+    if np.any(types[idx] != img_types):
+        return False
+    return len(np.unique(idx)) == len(frac)
+
+
+def cif_text(crystal, *, symmetry=True):
+    """The CIF 1.1 text of a crystal (see the module docstring)."""
+    return _cif_text(crystal, symmetry=symmetry)[0]
+
+
+def _cif_text(crystal, *, symmetry=True):
     from .. import __version__
     from ..crystal import ROLES
     from ..lattice import cell_parameters
 
     a, b, c, al, be, ga = cell_parameters(crystal.cell)
-    frac = crystal.frac
-    frac = frac - np.floor(frac)
-    frac[np.abs(frac - 1.0) < 1e-10] = 0.0
+    info = symmetry_of(crystal) if symmetry else {"mode": "P1", "reason": "symmetry search switched off",
+                                                  "spglib_number": None, "spglib_symbol": None}
     name = crystal.metadata.get("name") or "crystal"
-    block = "".join(ch if ch.isalnum() or ch in "-_" else "_" for ch in str(name)) or "crystal"
+    block = "".join(ch if ch.isascii() and (ch.isalnum() or ch in "-_") else "_" for ch in str(name)) or "crystal"
     counts = crystal.counts()
     formula = " ".join(f"{s}{n if n != 1 else ''}" for s, n in counts.items())
-    lines = [
-        "#\\#CIF_1.1",
-        f"# written by crystalview {__version__}: every atom of the cell, space group P 1",
+    lines = ["#\\#CIF_1.1", f"# written by crystalview {__version__}"]
+    if info["mode"] == "symmetry":
+        sg_line = f"space group {info['hm'] or info['type_symbol']} (No. {info['number']})"
+        lines.append(f"# {sg_line} found by spglib (symprec {info['symprec']:.0e} A) in this cell as given; "
+                     f"{len(info['sites'])} site(s) of the asymmetric unit, {len(crystal)} atoms in the cell")
+        if info["hm"] is None:
+            lines.append(f"# the operations below are {info['type_symbol']} expressed in this cell, not its "
+                         f"standard setting: expand the sites with them, not with the symbol")
+        if info["spglib_number"] != info["number"]:
+            lines.append(f"# the crystal itself has space group {info['spglib_symbol']} (No. "
+                         f"{info['spglib_number']}); this cell keeps the operations of its subgroup "
+                         f"{info['type_symbol']}")
+    else:
+        lines.append(f"# every atom of the cell, space group P 1: {info['reason']}")
+        if info["spglib_number"] and info["spglib_number"] > 1:
+            lines.append(f"# spglib finds space group {info['spglib_symbol']} (No. {info['spglib_number']}) "
+                         f"for this crystal")
+    lines += [
         f"data_{block}",
         f"_chemical_formula_sum {_q(formula)}",
         f"_cell_length_a {a:.6f}",
@@ -169,38 +492,67 @@ def cif_text(crystal):
         f"_cell_angle_beta {be:.6f}",
         f"_cell_angle_gamma {ga:.6f}",
         f"_cell_volume {crystal.volume:.6f}",
-        "_symmetry_space_group_name_H-M 'P 1'",
-        "_symmetry_Int_Tables_number 1",
-        "loop_",
-        "_symmetry_equiv_pos_as_xyz",
-        "'x, y, z'",
-        "loop_",
-        "_atom_site_label",
-        "_atom_site_type_symbol",
-        "_atom_site_fract_x",
-        "_atom_site_fract_y",
-        "_atom_site_fract_z",
-        "_atom_site_occupancy",
     ]
+    if info["mode"] == "symmetry":
+        lines.append(f"_space_group_crystal_system {info['system']}")
+        lines.append(f"_space_group_IT_number {info['number']}")
+        lines.append(f"_symmetry_Int_Tables_number {info['number']}")
+        if info["hm"]:
+            lines.append(f"_space_group_name_H-M_alt {_q(info['hm'])}")
+            lines.append(f"_symmetry_space_group_name_H-M {_q(info['hm'])}")
+            lines.append(f"_space_group_name_Hall {_q(info['hall'])}")
+        lines += ["loop_", "_space_group_symop_id", "_space_group_symop_operation_xyz"]
+        lines += [f"{k + 1} {_q(op.triplet())}" for k, op in enumerate(info["ops"])]
+        idx, frac = info["sites"], info["frac"]
+    else:
+        lines += ["_space_group_crystal_system triclinic", "_space_group_IT_number 1",
+                  "_symmetry_Int_Tables_number 1", "_space_group_name_H-M_alt 'P 1'",
+                  "_symmetry_space_group_name_H-M 'P 1'", "loop_", "_space_group_symop_id",
+                  "_space_group_symop_operation_xyz", "1 x,y,z"]
+        idx = list(range(len(crystal)))
+        frac = crystal.frac
+        frac = frac - np.floor(frac)
+        frac[np.abs(frac - 1.0) < 1e-10] = 0.0
+    roles = crystal.roles[idx] if len(idx) else np.zeros(0, np.uint8)
+    with_roles = bool(np.any(roles != 0))
+    if with_roles:
+        lines.append(f"# {ROLE_TAG}: the crystalview role of each site ({', '.join(ROLES)}); "
+                     f"the label ends in the role too")
+    lines += ["loop_", "_atom_site_label", "_atom_site_type_symbol", "_atom_site_fract_x", "_atom_site_fract_y",
+              "_atom_site_fract_z", "_atom_site_occupancy"]
+    if with_roles:
+        lines.append(ROLE_TAG)
     syms = crystal.symbols
     seen = {}
-    for k in range(len(crystal)):
+    for m, k in enumerate(idx):
         s = str(syms[k])
         seen[s] = seen.get(s, 0) + 1
         role = ROLES[int(crystal.roles[k])]
         label = f"{s}{seen[s]}" + ("" if role == "host" else f"_{role}")
-        lines.append(f"{label} {s} {frac[k, 0]:.8f} {frac[k, 1]:.8f} {frac[k, 2]:.8f} 1")
-    return "\n".join(lines) + "\n"
+        row = f"{label} {s} {frac[m, 0]:.8f} {frac[m, 1]:.8f} {frac[m, 2]:.8f} 1"
+        lines.append(row + (f" {role}" if with_roles else ""))
+    return "\n".join(lines) + "\n", info
 
 
-def write_cif(crystal, path, *, force=False):
-    """Write ``crystal`` as an IUCr CIF 1.1 file (P 1, all atoms); returns a summary dict."""
+def write_cif(crystal, path, *, force=False, symmetry=True):
+    """Write ``crystal`` as an IUCr CIF 1.1 file: its space group and the
+    asymmetric unit in the crystal's own cell, or every atom in P 1 (see the
+    module docstring for when); returns a summary dict."""
     from ..fileio import atomic_write
 
     if crystal.pbc != (True, True, True):
         raise UserError("CIF describes a crystal periodic in three directions; this one is not "
                         "(a slab or a finite piece) - export it as .xyz or .glb")
-    text = cif_text(crystal)
+    text, info = _cif_text(crystal, symmetry=symmetry)
     atomic_write(path, text, force=force)
-    return {"file": str(path), "format": "cif", "atoms": len(crystal), "space_group": "P 1 (all atoms listed)",
-            "bytes": len(text.encode("utf-8"))}
+    if info["mode"] == "symmetry":
+        sg = f"{info['hm'] or info['type_symbol']} (No. {info['number']})"
+        sites, ops = len(info["sites"]), len(info["ops"])
+    else:
+        sg, sites, ops = "P 1 (all atoms listed)", len(crystal), 1
+    out = {"file": str(path), "format": "cif", "atoms": len(crystal), "space_group": sg,
+           "space_group_number": info.get("number", 1) if info["mode"] == "symmetry" else 1,
+           "sites_listed": sites, "symmetry_operations": ops, "bytes": len(text.encode("utf-8"))}
+    if info["mode"] != "symmetry":
+        out["note"] = info["reason"]
+    return out
