@@ -35,10 +35,13 @@ def max_atoms_default():
 def check_atom_count(n, max_atoms=None, what="this request"):
     """Refuse a request over the atom cap, before anything is allocated."""
     cap = max_atoms_default() if max_atoms is None else int(max_atoms)
+    if cap < 1:
+        raise UserError(f"the atom cap {cap} must be a positive number of atoms, e.g. --max-atoms 1000000")
     if n > cap:
-        gb = n * BYTES_PER_ATOM / 1e9
+        size = n * BYTES_PER_ATOM
+        mem = f"{size / 1e9:.1f} GB" if size >= 1e8 else f"{size / 1e6:.1f} MB"
         raise LimitError(
-            f"{what} would make {n:,} atoms (about {gb:.1f} GB of memory for the atoms alone), "
+            f"{what} would make {n:,} atoms (about {mem} of memory for the atoms alone), "
             f"over the cap of {cap:,}; make it smaller or raise the cap with --max-atoms {n}"
         )
 
@@ -278,6 +281,8 @@ def build(spec, phase=None, *, element=None, elements=None, lattice=None, a=None
         the new x, y, z; each cell edge is the shortest lattice period along it.
     max_atoms : atom cap (default 50 million).
     """
+    if max_atoms is not None:
+        check_atom_count(0, max_atoms)          # the cap itself must make sense
     if isinstance(spec, (str, Path)) and str(spec).lower().endswith(".cif"):
         from .exchange.cif import read_cif
 

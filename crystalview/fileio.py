@@ -26,7 +26,7 @@ def check_target(path, force=False, suffixes=None):
     if p.exists() and p.is_dir():
         raise UserError(f"'{p}' is a folder; give a file name")
     if p.exists() and not force:
-        raise UserError(f"'{p}' already exists; pass --force to overwrite it")
+        raise UserError(f"'{p}' already exists; pass --force (force=True in Python) to overwrite it")
     parent = p.parent if str(p.parent) else Path(".")
     if not parent.exists():
         raise UserError(f"cannot write '{p}': folder '{parent}' does not exist")
@@ -64,7 +64,7 @@ def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
         os.umask(mask)
         os.chmod(tmp, 0o666 & ~mask)   # mkstemp makes 0600; give the file the usual permissions
         if p.exists() and not force:  # appeared while we were writing
-            raise UserError(f"'{p}' already exists; pass --force to overwrite it")
+            raise UserError(f"'{p}' already exists; pass --force (force=True in Python) to overwrite it")
         os.replace(tmp, p)
     except BaseException:
         try:

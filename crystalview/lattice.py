@@ -250,3 +250,23 @@ def linear_density(cell, basis_frac, uvw):
                 if np.all(_frac_int(diff)):
                     count += 1
     return count / length
+
+
+def atomic_layer_spacings(cell, basis_frac, hkl):
+    """Distinct spacings (A) between successive atom layers parallel to (hkl).
+
+    The lattice formula d_hkl counts planes of lattice points of the
+    conventional cell; atom layers can be closer (fcc (100): a/2, while
+    d_100 = a).  Atoms are grouped by their height along the plane normal
+    within one period of the reduced plane family; returns the sorted
+    distinct gaps (one value when the layers are evenly spaced).
+    """
+    hkl = np.array(_gcd_reduce(_ind3(hkl, "plane").astype(int)), dtype=float)
+    basis = np.asarray(basis_frac, float)
+    d = d_spacing(cell, hkl)
+    t = np.sort(np.unique(np.round((basis @ hkl) % 1.0, 9) % 1.0))
+    if len(t) == 0:
+        return [d]
+    gaps = np.diff(np.concatenate([t, [t[0] + 1.0]])) * d
+    out = sorted({round(float(g), 6) for g in gaps if g > 1e-9})
+    return out

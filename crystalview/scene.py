@@ -324,6 +324,28 @@ def plan_outputs(data, out_dir):
     return files
 
 
+def make_folder(path):
+    """Create an output folder, or a one-line UserError saying why not."""
+    try:
+        Path(path).mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise UserError(f"cannot create the output folder '{path}': {exc.strerror or exc}; "
+                        f"choose a writable folder with --out") from None
+    if not Path(path).is_dir():
+        raise UserError(f"'{path}' is a file, not a folder; choose a folder with --out")
+
+
+def existing_outputs(paths, out=None):
+    """Files that running these scenes would overwrite (for an up-front check)."""
+    found = []
+    for path in paths:
+        data = load(path)
+        name = data["scene"]["name"]
+        out_dir = (Path(out) / name if len(paths) > 1 else Path(out)) if out is not None else Path("exports") / name
+        found += [str(f) for f in plan_outputs(data, out_dir) if f.exists()]
+    return found
+
+
 def run_scene(path, out=None, force=False, log=print):
     """Do everything a scene file asks; returns the manifest dict."""
     import crystalview as cv
@@ -339,8 +361,8 @@ def run_scene(path, out=None, force=False, log=print):
         if existing:
             raise UserError(f"{path}: {existing[0]} already exists (and {len(existing) - 1} more); "
                             f"pass --force to overwrite or --out to write elsewhere")
-    out_dir.mkdir(parents=True, exist_ok=True)
-    crystal = crystal_from_scene(data, path.parent)
+    crystal = crystal_from_scene(data, path.parent)     # bad structure or defects: fail before writing
+    make_folder(out_dir)
     inputs = [{"file": str(path), "sha256": _sha256(path)}]
     if "cif" in data["structure"]:
         cif = path.parent / data["structure"]["cif"]
@@ -386,6 +408,7 @@ def run_scene(path, out=None, force=False, log=print):
         if "bed" in opts:
             opts["bed"] = tuple(opts["bed"])
         rep = cv.print_model(crystal, out_dir / m["file"], force=force, **opts)
+        caution = True
         done(out_dir / m["file"], f"print model, {opts.get('style', 'ball-and-stick')}")
         for extra in _report_files(rep):
             if Path(extra).exists() and all(w["file"] != str(extra) for w in written):

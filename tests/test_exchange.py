@@ -103,7 +103,8 @@ def test_gltf_content_units_materials_instancing(tmp_path):
     atoms = [n for n in doc["nodes"] if n["name"] == "Cu atoms (host)"][0]
     inst = atoms["extensions"]["EXT_mesh_gpu_instancing"]["attributes"]
     t = _accessor(doc, blob, inst["TRANSLATION"])
-    assert len(t) == ex["atoms"] == 9 * 9 * 9 + 3 * 8 * 8 * 9   # 8x8x8 FCC with its boundary images
+    assert len(t) == ex["spheres"] == 9 * 9 * 9 + 3 * 8 * 8 * 9   # 8x8x8 FCC with its boundary images
+    assert ex["atoms"] == len(c) == 4 * 8 ** 3
     # metres, +Y up: the crystal's 8a edge is 8 x 3.6149 A x 0.01 m/A
     a8 = c.cell[0, 0] * 0.01
     np.testing.assert_allclose(t.max(axis=0) - t.min(axis=0), [a8, a8, a8], atol=1e-5)
@@ -114,7 +115,7 @@ def test_gltf_content_units_materials_instancing(tmp_path):
     # every bond is one nearest-neighbour distance a / sqrt(2) long (FCC geometry)
     np.testing.assert_allclose(s[:, 1], c.cell[0, 0] / 8 / 2 ** 0.5 * 0.01, rtol=1e-5)
     # large crystals stay small: well under 100 bytes per atom + bond
-    assert out.stat().st_size < 100 * (ex["atoms"] + ex["bonds"])
+    assert out.stat().st_size < 100 * (ex["spheres"] + ex["bonds"])
 
 
 def test_gltf_sphere_faces_outward():
@@ -261,7 +262,7 @@ def test_cli_export(tmp_path):
     r = subprocess.run([sys.executable, "-m", "crystalview", "export", "Cu", "-o", "cu.glb", "--json"], cwd=tmp_path,
                        capture_output=True, text=True, env=env)
     assert r.returncode == 0, r.stderr
-    assert json.loads(r.stdout)["atoms"] == 14
+    assert json.loads(r.stdout)["atoms"] == 4 and json.loads(r.stdout)["spheres"] == 14   # with face images
     r = subprocess.run([sys.executable, "-m", "crystalview", "export", "Cu", "-o", "cu.glb"], cwd=tmp_path,
                        capture_output=True, text=True, env=env)
     assert r.returncode == 2 and "already exists" in r.stderr

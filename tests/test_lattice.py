@@ -97,3 +97,30 @@ def test_angles():
     h = cv.build("Mg")
     assert L.angle_between(h.lattice.cell, "[2-1-10]", "[-12-10]") == pytest.approx(120.0)
     assert L.angle_between(h.lattice.cell, "[2-1-10]", "[0001]") == pytest.approx(90.0)
+
+
+def test_atomic_layer_spacings():
+    # common practice: fcc (100) atom layers are a/2 apart although d_100 = a (the first fcc
+    # reflection is (200)); bcc (100) likewise; hcp (10-10) layers alternate a/(2 sqrt3) and a/sqrt3
+    cu, fe, mg = cv.build("Cu"), cv.build("Fe"), cv.build("Mg")
+    lay = lambda c, p: L.atomic_layer_spacings(c.lattice.cell, c.lattice.basis_frac, p)
+    assert lay(cu, "(100)") == [pytest.approx(cu.lattice.a / 2)]
+    assert lay(cu, "(111)") == [pytest.approx(cu.lattice.a / math.sqrt(3))]
+    assert lay(fe, "(100)") == [pytest.approx(fe.lattice.a / 2)]
+    a = mg.lattice.a
+    assert lay(mg, "(10-10)") == [pytest.approx(a / (2 * math.sqrt(3)), abs=1e-6), pytest.approx(a / math.sqrt(3), abs=1e-6)]
+    assert lay(mg, "(0001)") == [pytest.approx(mg.lattice.c / 2)]
+
+
+def test_direction_repeat_is_the_lattice_period():
+    # source: Hull & Bacon, Introduction to Dislocations: shortest lattice vectors (Burgers vectors)
+    # a/2<110> in fcc and a/2<111> in bcc
+    from crystalview.analysis.properties import direction_numbers
+
+    cu, fe = cv.build("Cu"), cv.build("Fe")
+    assert direction_numbers(cu, "[110]")["repeat_length_A"] == pytest.approx(cu.lattice.a / math.sqrt(2))
+    assert direction_numbers(fe, "[111]")["repeat_length_A"] == pytest.approx(fe.lattice.a * math.sqrt(3) / 2)
+    assert direction_numbers(cu, "[100]")["repeat_length_A"] == pytest.approx(cu.lattice.a)
+    # B2 NiAl: the body centre holds the other species, so [111] repeats only after the full diagonal
+    nial = cv.build("NiAl")
+    assert direction_numbers(nial, "[111]")["repeat_length_A"] == pytest.approx(nial.lattice.a * math.sqrt(3))

@@ -97,7 +97,9 @@ def plane_numbers(crystal: Crystal, hkl):
         raise UserError(f"four-index plane {ind} is only for hexagonal cells; use (hkl)")
     d = L.d_spacing(lat.cell, ind)
     pd = L.planar_density(lat.cell, lat.basis_frac, ind)
-    return {"plane": str(ind), "d_spacing_A": d, "planar_density_per_nm2": pd * 100.0}
+    layers = L.atomic_layer_spacings(lat.cell, lat.basis_frac, ind)
+    return {"plane": str(ind), "d_spacing_A": d, "atomic_layer_spacings_A": layers,
+            "planar_density_per_nm2": pd * 100.0}
 
 
 def direction_numbers(crystal: Crystal, uvw):
@@ -107,9 +109,13 @@ def direction_numbers(crystal: Crystal, uvw):
     ind = L.parse_indices(uvw, kind="direction") if isinstance(uvw, str) else uvw
     if isinstance(ind, L.Indices) and ind.four and not lat.is_hexagonal:
         raise UserError(f"four-index direction {ind} is only for hexagonal cells; use [uvw]")
-    v = L.direction_vector(lat.cell, ind)
+    from ..build import centering_vectors, lattice_period
+
+    ind3 = L.as_indices(ind, "direction").three().values
+    period = lattice_period(ind3, centering_vectors(lat.basis_frac, list(lat.basis_symbols)))
     ld = L.linear_density(lat.cell, lat.basis_frac, ind)
-    return {"direction": str(ind), "repeat_length_A": float(np.linalg.norm(v)), "linear_density_per_nm": ld * 10.0}
+    return {"direction": str(ind), "repeat_length_A": float(np.linalg.norm(period @ lat.cell)),
+            "linear_density_per_nm": ld * 10.0}
 
 
 def summary(crystal: Crystal, part_volume_mm3=None, planes=(), directions=(), angles=()):

@@ -42,7 +42,13 @@ def run(args):
     if args.json:
         print_json(info)
         return 0
-    print(repr(c))
+    name = c.metadata.get("name") or "/".join(c.elements)
+    lat = f" {c.lattice.title}" if c.lattice is not None else ""
+    comp = ", ".join(f"{k} {v}" for k, v in info["composition"].items())
+    rep = c.metadata.get("repeat")
+    print(f"{name}{',' + lat if lat else ''}: {len(c):,} atoms ({comp}) in a "
+          + " x ".join(f"{x:.4f}" for x in info["cell_lengths_A"]) + " A cell"
+          + (f", repeat {' x '.join(map(str, rep))}" if rep else ""))
     mb = info["memory_MB"]
     print(f"  memory for the atoms: {mb:.1f} MB" if mb >= 0.1 else f"  memory for the atoms: {mb * 1000:.1f} kB")
     for d in info["defects"]:

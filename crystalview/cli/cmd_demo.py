@@ -40,7 +40,14 @@ def run(args):
     paths = [d / n for n in DEMO_SCENES if (d / n).is_file()]
     if not paths:
         raise UserError(f"no demo scenes found in {d}; run the demo from a checkout of crystalview")
-    Path(args.out).mkdir(parents=True, exist_ok=True)
+    from ..scene import existing_outputs, make_folder
+
+    make_folder(args.out)
+    if not args.force:
+        clash = existing_outputs([str(p) for p in paths], out=args.out)
+        if clash:
+            raise UserError(f"an earlier demo left {len(clash)} files under {args.out}/ (e.g. {clash[0]}); "
+                            f"pass --force to write them again, or --out DIR for a fresh folder")
     t = time.perf_counter()
     rc = run_many([str(p) for p in paths], out=args.out, force=args.force, debug=args.debug)
     print(f"demo finished in {time.perf_counter() - t:.1f} s; outputs under {Path(args.out).resolve()}/")

@@ -54,5 +54,7 @@ def run(args):
             extra = f", {info['scale']}" + (", EXT_mesh_gpu_instancing" if info.get("instancing") else "")
         if "space_group" in info and info.get("format") == "cif":
             extra += f", space group {info['space_group']}"
-        print(f"wrote {info['file']}: {info['atoms']} atoms, {info['bytes']:,} bytes{extra}")
+        shown = info.get("spheres")
+        images = f" ({shown} spheres with the images on the cell faces)" if shown and shown != info["atoms"] else ""
+        print(f"wrote {info['file']}: {info['atoms']} atoms{images}, {info['bytes']:,} bytes{extra}")
     return 0

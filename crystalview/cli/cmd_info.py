@@ -53,15 +53,16 @@ def render_text(s):
     if s.get("note"):
         lines.append(f"  note: {s['note']}")
     lines.append("")
+    differs = bool(s["defects"])
     shells = " + ".join(f"{c['count']:g} at {c['distance_A']:.4f} A" for c in s["coordination_shells"])
     rows = [
         ("atoms per conventional cell", s["atoms_per_conventional_cell"]),
         ("nearest-neighbour distance", f"{fmt(s['nearest_neighbour_distance_A'])} A"),
         ("coordination number", f"{s['coordination_number']:g}  ({shells})"),
         ("hard-sphere radius", ", ".join(f"{k} {v:.4f} A" for k, v in s["hard_sphere_radius_A"].items())),
-        ("atomic packing factor", fmt(s["packing_factor"], 4)),
-        ("density", f"{s['density_g_cm3']:.3f} g/cm^3"),
-        ("atoms per mm^3", f"{s['atoms_per_mm3']:.4g}"),
+        ("atomic packing factor", fmt(s["packing_factor"], 4) + ("  (perfect lattice)" if differs else "")),
+        ("density", f"{s['density_g_cm3']:.3f} g/cm^3" + ("  (this crystal, as built)" if differs else "")),
+        ("atoms per mm^3", f"{s['atoms_per_mm3']:.4g}" + ("  (this crystal, as built)" if differs else "")),
     ]
     if "atoms_in_part" in s:
         rows.append((f"atoms in {s['part_volume_mm3']:g} mm^3", f"{s['atoms_in_part']:.4g}"))
@@ -79,10 +80,11 @@ def render_text(s):
     w = max(len(r[0]) for r in rows)
     lines += [f"  {k.ljust(w)}  {v}" for k, v in rows]
     for p in s.get("planes", []):
-        lines.append(f"  plane {p['plane']}: d = {p['d_spacing_A']:.4f} A, planar density "
-                     f"{p['planar_density_per_nm2']:.3f} atoms/nm^2")
+        layers = " / ".join(f"{x:.4f}" for x in p["atomic_layer_spacings_A"])
+        lines.append(f"  plane {p['plane']}: d_hkl = {p['d_spacing_A']:.4f} A (lattice formula), atom layers "
+                     f"{layers} A apart, planar density {p['planar_density_per_nm2']:.3f} atoms/nm^2")
     for d in s.get("directions", []):
-        lines.append(f"  direction {d['direction']}: repeat {d['repeat_length_A']:.4f} A, linear density "
+        lines.append(f"  direction {d['direction']}: repeats every {d['repeat_length_A']:.4f} A, linear density "
                      f"{d['linear_density_per_nm']:.3f} atoms/nm")
     for a in s.get("angles", []):
         lines.append(f"  angle {a['from']} to {a['to']}: {a['angle_deg']:.2f} deg")

@@ -272,7 +272,7 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
     doc = {
         "asset": {"version": "2.0", "generator": f"crystalview {__version__}", "extras": {
             "units": "metres (glTF), +Y up = crystal z", "scale": scale_note, "metres_per_angstrom": m_per_A,
-            "style": style, "atoms": int(len(pts)), "bonds": int(len(bonds)),
+            "style": style, "atoms": int(len(crystal)), "spheres": int(len(pts)), "bonds": int(len(bonds)),
             "cell_angstrom": [[float(x) for x in row] for row in crystal.cell]}},
         "scene": 0,
         "scenes": [{"name": f"{name}", "nodes": [root]}],
@@ -301,6 +301,7 @@ def glb_bytes(doc, blob):
 def _summary(path, doc, size):
     ex = doc["asset"]["extras"]
     return {"file": str(path), "format": str(path).rsplit(".", 1)[-1], "bytes": size, "atoms": ex["atoms"],
+            "spheres": ex["spheres"],
             "bonds": ex["bonds"], "scale": ex["scale"], "metres_per_angstrom": ex["metres_per_angstrom"],
             "instancing": "EXT_mesh_gpu_instancing" in doc.get("extensionsUsed", []),
             "materials": [m["name"] for m in doc["materials"]]}

@@ -33,7 +33,9 @@ def report_text(rep):
         ("minimum feature", f"{rep.get('min_feature_mm', 0):g} mm"),
     ]
     if rep.get("volume_fraction_of_cell") is not None:
-        rows.append(("volume / cell volume", f"{rep['volume_fraction_of_cell']:.4f} (the packing factor)"))
+        note = ("the packing factor" if not rep.get("adjustments") else
+                "the packing factor, plus the added neck rods")
+        rows.append(("volume / cell volume", f"{rep['volume_fraction_of_cell']:.4f} ({note})"))
     w = max(len(k) for k, _ in rows)
     lines = ["print report"] + [f"  {k.ljust(w)}  {v}" for k, v in rows]
     for a in rep.get("adjustments") or []:
