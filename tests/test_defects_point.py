@@ -130,3 +130,50 @@ def test_cli_point_defects(cli):
     assert rc == 2 and "outside [0, 1]" in err and err.count("\n") == 1
     rc, out, err = cli("info", "Cu", "--vacancies", "9")
     assert rc == 2 and "only 4 sites" in err
+
+
+def test_frenkel_record_keeps_vacancy_and_interstitial_positions():
+    # figures mark both ends of each pair: 'positions' (emptied sites) and
+    # 'interstitial_positions' (where the atoms went), key names fixed
+    c = build("Cu", repeat=(3, 3, 3))
+    f = cv.frenkel_pairs(c, 3, seed=4)
+    rec = f.metadata["defects"][-1]
+    assert set(rec) >= {"kind", "count", "positions", "interstitial_positions", "seed"}
+    from crystalview.crystal import role_code
+
+    moved = np.nonzero(f.roles == role_code("interstitial"))[0]
+    assert len(moved) == rec["count"] == len(rec["positions"]) == len(rec["interstitial_positions"]) == 3
+    # the emptied sites are the moved atoms' old sites, now empty; the
+    # interstitial positions are where those atoms are now
+    from scipy.spatial import cKDTree
+
+    assert cKDTree(c.positions[moved]).query(np.array(rec["positions"]))[0].max() < 1e-9
+    assert cKDTree(f.positions[moved]).query(np.array(rec["interstitial_positions"]))[0].max() < 1e-9
+    assert cKDTree(f.positions).query(np.array(rec["positions"]))[0].min() > 1.0
+    # plain lists of [x, y, z], so the record survives JSON
+    import json
+
+    back = json.loads(json.dumps(rec))
+    assert back["positions"] == rec["positions"] and len(back["interstitial_positions"][0]) == 3
+    zero = cv.frenkel_pairs(c, 0).metadata["defects"][-1]
+    assert zero["positions"] == [] and zero["interstitial_positions"] == []
+
+
+@pytest.mark.parametrize("seed", [-1, 2.5, "x", True])
+def test_bad_seed_says_zero_or_more(cu, seed):
+    # numpy.random.default_rng accepts only non-negative integer seeds (numpy docs)
+    for call in (lambda: cv.add_vacancies(cu, count=1, seed=seed),
+                 lambda: cv.substitute(cu, "Ni", count=1, seed=seed),
+                 lambda: cv.frenkel_pairs(cu, 0, seed=seed)):
+        with pytest.raises(UserError) as e:
+            call()
+        assert "whole number of 0 or more" in str(e.value) and "\n" not in str(e.value)
+
+
+def test_cli_negative_seed(cli):
+    import crystalview.cli.defect_args  # noqa: F401
+
+    rc, out, err = cli("info", "Cu", "--repeat", "2", "2", "2", "--vacancies", "1", "--seed", "-1")
+    assert rc == 2 and "whole number of 0 or more" in err and err.count("\n") == 1
+    rc, out, err = cli("info", "Cu", "--repeat", "2", "2", "2", "--vacancies", "1", "--seed", "0")
+    assert rc == 0, err

@@ -63,8 +63,12 @@ def test_stack_hcp_uses_element_c():
 @pytest.mark.parametrize("name", list(NAMED_SEQUENCES))
 def test_stacking_sequence_reads_every_named_stack(name):
     seq = NAMED_SEQUENCES[name][0]
-    for el in ("Cu", "Co"):
-        c = cv.stack(el, name, repeat=(2, 2))
+    # FCC fault names need an fcc parent, HCP ones an hcp parent (Co: hcp alpha, fcc beta)
+    parents = {"intrinsic": [("Cu", None), ("Co", "beta")], "extrinsic": [("Cu", None), ("Co", "beta")],
+               "twin": [("Cu", None), ("Co", "beta")], "I1": [("Co", None), ("Mg", None)],
+               "I2": [("Co", None), ("Mg", None)], "E": [("Co", None), ("Mg", None)]}
+    for el, phase in parents.get(name, [("Cu", None), ("Co", None)]):
+        c = cv.stack(el, name, repeat=(2, 2), phase=phase)
         assert cv.stacking_sequence(c) == seq
         assert c.metadata["defects"][-1]["sequence"] == seq
 
@@ -128,3 +132,62 @@ def test_cli_stack_shows_defect(cli):
     assert rc == 2 and "not close-packed" in err
     rc, out, err = cli("info", "Mg", "--fault", "I2")
     assert rc == 0 and "ABABABCACACACB" in out
+
+
+# Fault names belong to one parent lattice: intrinsic / extrinsic / twin are
+# faults of the FCC ABC stacking, I1 / I2 / E basal faults of the HCP AB
+# stacking (source: Hirth & Lothe, Theory of Dislocations, ch. 10, from memory).
+@pytest.mark.parametrize("el,name,valid", [("Mg", "intrinsic", ("I1", "I2", "E")), ("Zn", "twin", ("I1", "I2", "E")),
+                                           ("Co", "extrinsic", ("I1", "I2", "E")),
+                                           ("Cu", "I1", ("intrinsic", "extrinsic", "twin")),
+                                           ("Al", "E", ("intrinsic", "extrinsic", "twin"))])
+def test_fault_names_must_match_parent_lattice(el, name, valid):
+    with pytest.raises(UserError) as e:
+        cv.stack(el, name)
+    msg = str(e.value)
+    assert "\n" not in msg and f"'{name}'" in msg and all(v in msg for v in valid)
+    with pytest.raises(UserError):
+        cv.stack(build(el), name)                 # a Crystal parent too
+
+
+def test_fault_names_on_matching_parents_and_raw_sequences_anywhere():
+    # Co: hcp alpha, fcc beta in the element data; each takes its own faults
+    assert cv.stack("Co", "intrinsic", phase="beta").metadata["defects"][-1]["parent_lattice"] == "fcc"
+    assert cv.stack("Co", "I1").metadata["defects"][-1]["parent_lattice"] == "hcp"
+    # a raw sequence stays allowed on any close-packed metal; the layer spacing follows the parent:
+    # Mg ABC is spaced c/2 of Mg, c = 5.21 A (Pearson's handbook, from memory)
+    m = cv.stack("Mg", "ABCABABCABC")
+    rec = m.metadata["defects"][-1]
+    assert rec["sequence"] == "ABCABABCABC" and rec["parent_lattice"] == "hcp" and "name" not in rec
+    assert rec["layer_spacing_A"] == pytest.approx(5.21 / 2, abs=0.01)
+    assert cv.stacking_sequence(m) == "ABCABABCABC"
+    # Cu AB is spaced ideally: sqrt(2/3) d (common practice)
+    d = build("Cu").lattice.a / math.sqrt(2)
+    assert cv.stack("Cu", "AB").metadata["defects"][-1]["layer_spacing_A"] == pytest.approx(math.sqrt(2 / 3) * d)
+    for neutral in ("fcc", "hcp", "dhcp"):
+        assert len(cv.stack("Mg", neutral)) == len(NAMED_SEQUENCES[neutral][0])
+
+
+@pytest.mark.parametrize("seq,words", [("", "empty"), ("  ", "empty"), ("A", "one layer"), ("b", "one layer")])
+def test_empty_and_single_layer_sequences_refused(seq, words):
+    with pytest.raises(UserError) as e:
+        cv.stack("Cu", seq)
+    assert words in str(e.value) and "two layers" in str(e.value)
+
+
+def test_cli_fault_names_and_empty_stack(cli):
+    import crystalview.cli.defect_args  # noqa: F401
+
+    rc, out, err = cli("info", "Mg", "--fault", "intrinsic")
+    assert rc == 2 and "I1, I2 or E" in err and err.count("\n") == 1
+    rc, out, err = cli("info", "Cu", "--fault", "I2")
+    assert rc == 2 and "intrinsic, extrinsic or twin" in err
+    rc, out, err = cli("info", "Co", "--phase", "beta", "--fault", "twin")
+    assert rc == 0, err
+    assert "sequence=ABCABCACBACB" in out
+    rc, out, err = cli("info", "Mg", "--stack", "ABCABABCABC")
+    assert rc == 0 and "parent_lattice=hcp" in out
+    for args, words in ((("--stack", ""), "empty"), (("--stack", "A"), "one layer"), (("--fault", ""), "not a named"),
+                        (("--fault", "ABC"), "not a named")):
+        rc, out, err = cli("info", "Cu", *args)
+        assert rc == 2 and words in err and err.count("\n") == 1, (args, err)

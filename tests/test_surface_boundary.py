@@ -132,3 +132,90 @@ def test_cli_slab_and_tilt(cli):
     assert "sigma=5" in out
     rc, out, err = cli("info", "Cu", "--slab", "(000)")
     assert rc == 2 and "all zero" in err
+
+
+@pytest.mark.parametrize("el,axis,plane", [("Cu", "[001]", "(100)"), ("Cu", "[001]", "(110)"), ("Cu", "[001]", "(010)"),
+                                           ("Fe", "[111]", "(1-10)"), ("Al", "[1-10]", "(001)")])
+def test_sigma1_planes_refused(el, axis, plane):
+    # the mirror in a {100} or {110} plane is a symmetry of the cube: no misorientation, Sigma 1
+    # independent check: every lattice point of the rotated copy coincides (CSL counting)
+    from crystalview.lattice import parse_indices
+
+    n = np.array(parse_indices(plane, kind="plane").values, float)
+    n /= np.linalg.norm(n)
+    assert _csl_sigma_by_counting(2 * np.outer(n, n) - np.eye(3), span=4) == pytest.approx(1.0)
+    with pytest.raises(UserError) as e:
+        cv.tilt_boundary(el, axis=axis, plane=plane)
+    msg = str(e.value)
+    assert "\n" not in msg and "no misorientation" in msg and axis in msg
+
+
+def test_sigma1_message_suggests_planes_that_work():
+    from crystalview.defects.boundary import boundary_planes, mirror_sigma
+
+    ideas = boundary_planes((0, 0, 1), count=5)
+    assert {"(310)", "(210)", "(510)"} <= set(ideas)
+    with pytest.raises(UserError) as e:
+        cv.tilt_boundary("Cu", axis="[001]", plane="(100)")
+    assert all(p in str(e.value) for p in boundary_planes((0, 0, 1)))
+    # each suggestion is a real boundary; Sigma from the mirror rotation agrees with
+    # an independent count of coincidence sites, and with the [001] rule h^2 + k^2
+    # halved until odd (common practice)
+    for text in ideas:
+        h, k, _ = (int(x) for x in text.strip("()"))
+        rule = h * h + k * k
+        while rule % 2 == 0:
+            rule //= 2
+        n = np.array([h, k, 0], float) / math.hypot(h, k)
+        assert mirror_sigma((h, k, 0)) == rule
+        assert _csl_sigma_by_counting(2 * np.outer(n, n) - np.eye(3), span=13) == pytest.approx(rule, rel=0.15)
+    # about <111>: the {211} mirror is the Sigma 3 twin, 60 deg about <111> (Randle, from memory)
+    assert boundary_planes((1, 1, 1), count=1) == ["(2-1-1)"]
+    g = cv.tilt_boundary("Fe", axis="[111]", plane="(2-1-1)")
+    rec = g.metadata["defects"][-1]
+    assert rec["sigma"] == 3 and rec["misorientation_deg"] == pytest.approx(60.0, abs=1e-6)
+
+
+def test_cli_sigma1_boundary(cli):
+    import crystalview.cli.defect_args  # noqa: F401
+
+    for plane in ("(100)", "(110)"):
+        rc, out, err = cli("info", "Cu", "--tilt-boundary", plane)
+        assert rc == 2 and "no misorientation" in err and "(310)" in err and err.count("\n") == 1
+    rc, out, err = cli("info", "Cu", "--tilt-boundary", "")
+    assert rc == 2 and err.count("\n") == 1
+
+
+def test_hcp_prism_slab_records_uneven_spacings():
+    # Mg (10-10): atoms at (1/3, 2/3, 1/4) and (2/3, 1/3, 3/4) put the prism planes
+    # a/(2 sqrt 3) and a/sqrt 3 apart in turn (hcp geometry, common practice); their
+    # sum is d(10-10) = a sqrt(3)/2, here from gemmi's UnitCell
+    import gemmi
+
+    lat = build("Mg").lattice
+    s = cv.slab("Mg", "(10-10)", layers=6)
+    rec = s.metadata["defects"][-1]
+    a = lat.a
+    assert rec["layer_spacings_A"] == pytest.approx([a / (2 * math.sqrt(3)), a / math.sqrt(3)], abs=1e-4)
+    d = gemmi.UnitCell(lat.a, lat.a, lat.c, 90, 90, 120).calculate_d([1, 0, 0])
+    assert sum(rec["layer_spacings_A"]) == pytest.approx(d, abs=2e-4)
+    assert rec["layer_spacing_average_A"] == pytest.approx(d / 2, abs=1e-5)
+    assert "layer_spacing_A" not in rec and "uneven" in rec["layer_spacing_note"]
+    # the atoms of the slab really alternate between the two spacings
+    gaps = np.diff(np.unique(np.round(s.positions[:, 2], 4)))
+    assert gaps[::2] == pytest.approx(gaps[0], abs=2e-4) and gaps[1::2] == pytest.approx(gaps[1], abs=2e-4)
+    assert sorted([gaps[0], gaps[1]]) == pytest.approx(rec["layer_spacings_A"], abs=2e-4)
+    # an evenly spaced plane keeps one value under the plain key
+    cu = cv.slab("Cu", "(111)", layers=4).metadata["defects"][-1]
+    assert cu["layer_spacings_A"] == pytest.approx([cu["layer_spacing_A"]], abs=1e-4)
+    assert "layer_spacing_average_A" not in cu
+
+
+def test_cli_slab_shows_uneven_spacings(cli):
+    import crystalview.cli.defect_args  # noqa: F401
+
+    rc, out, err = cli("info", "Mg", "--slab", "(10-10)")
+    assert rc == 0, err
+    assert "layer_spacing_average_A=" in out and "0.9265 and 1.8529 A apart" in out
+    rc, out, err = cli("info", "Cu", "--slab", "")
+    assert rc == 2 and err.count("\n") == 1

@@ -19,11 +19,14 @@ def add_arguments(p):
     g.add_argument("--substitute", action="append", default=[], metavar="ELEMENT:AMOUNT",
                    help="random substitutional solutes, e.g. Ni:0.1 (fraction) or Ni:5 (count); repeatable")
     g.add_argument("--frenkel", type=int, metavar="N", help="move N atoms into neighbouring interstitial holes")
-    g.add_argument("--seed", type=int, default=0, metavar="N", help="seed for the random choices (default 0)")
+    g.add_argument("--seed", type=int, default=0, metavar="N",
+                   help="seed for the random choices, 0 or more (default 0)")
     g.add_argument("--stack", metavar="SEQUENCE",
-                   help="close-packed layers in this order, e.g. ABC, AB, ABCABABC (replaces the SPEC cell)")
+                   help="close-packed layers in this order, at least 2, e.g. ABC, AB, ABCABABC (replaces the SPEC "
+                        "cell; any close-packed metal, layer spacing from the metal)")
     g.add_argument("--fault", metavar="NAME",
-                   help="named stacking: intrinsic, extrinsic, twin (FCC); I1, I2, E (HCP); fcc, hcp, dhcp")
+                   help="named stacking: intrinsic, extrinsic, twin (fcc metals only); I1, I2, E (hcp metals "
+                        "only); fcc, hcp, dhcp")
     g.add_argument("--dislocation", choices=["edge", "screw"], help="a straight dislocation (FCC or BCC)")
     g.add_argument("--poisson", type=float, metavar="NU", help="Poisson ratio for --dislocation (default 0.3)")
     g.add_argument("--slab", metavar="(hkl)", help="a surface slab with this plane normal along z, e.g. (111)")
@@ -68,7 +71,8 @@ def apply(crystal, args):
                                         ("--fault", getattr(args, "fault", None)),
                                         ("--dislocation", getattr(args, "dislocation", None)),
                                         ("--slab", getattr(args, "slab", None)),
-                                        ("--tilt-boundary", getattr(args, "tilt_boundary", None))) if val]
+                                        ("--tilt-boundary", getattr(args, "tilt_boundary", None)))
+                 if val is not None]
     if len(replacing) > 1:
         raise UserError(f"{' and '.join(replacing)} each make a new crystal; give only one of them")
     if replacing and getattr(args, "orient", None):
@@ -79,33 +83,43 @@ def apply(crystal, args):
         raise UserError(f"{replacing[0]} makes its own cell; use --defect-size instead of --repeat")
     for flag, val in (("--slab-layers", getattr(args, "slab_layers", None)),
                       ("--slab-thickness", getattr(args, "slab_thickness", None))):
-        if val is not None and not getattr(args, "slab", None):
+        if val is not None and getattr(args, "slab", None) is None:
             raise UserError(f"{flag} goes with --slab, e.g. --slab (111) {flag} 6")
-    if getattr(args, "poisson", None) is not None and not getattr(args, "dislocation", None):
+    if getattr(args, "poisson", None) is not None and getattr(args, "dislocation", None) is None:
         raise UserError("--poisson goes with --dislocation, e.g. --dislocation edge --poisson 0.34")
     max_atoms = int(args.max_atoms) if getattr(args, "max_atoms", None) is not None else None
-    if getattr(args, "stack", None) or getattr(args, "fault", None):
+    seed = getattr(args, "seed", 0)
+    if seed is not None and (isinstance(seed, bool) or not isinstance(seed, int) or seed < 0):
+        raise UserError(f"--seed {seed} must be a whole number of 0 or more, e.g. --seed 42")
+    if getattr(args, "fault", None) is not None:
+        from ..defects.planar import FCC_FAULTS, HCP_FAULTS, NAMED_SEQUENCES
+
+        if args.fault.strip().lower() not in {k.lower() for k in NAMED_SEQUENCES}:
+            raise UserError(f"--fault '{args.fault}' is not a named stacking; use {', '.join(FCC_FAULTS)} (fcc metals), "
+                            f"{', '.join(HCP_FAULTS)} (hcp metals) or fcc, hcp, dhcp, or give the layers with "
+                            f"--stack, e.g. --stack ABCABABC")
+    if getattr(args, "stack", None) is not None or getattr(args, "fault", None) is not None:
         from ..defects.planar import stack
 
         size = _size(args, 3)
-        crystal = stack(crystal, args.stack or args.fault, repeat=size or (1, 1), max_atoms=max_atoms)
-    elif getattr(args, "dislocation", None):
+        seq = args.stack if getattr(args, "stack", None) is not None else args.fault
+        crystal = stack(crystal, seq, repeat=size or (1, 1), max_atoms=max_atoms)
+    elif getattr(args, "dislocation", None) is not None:
         from ..defects.dislocation import dislocation
 
         crystal = dislocation(crystal, args.dislocation, size=_size(args, 3), poisson=args.poisson,
                               max_atoms=max_atoms)
-    elif getattr(args, "slab", None):
+    elif getattr(args, "slab", None) is not None:
         from ..defects.surface import slab
 
         size = _size(args, 2)
         crystal = slab(crystal, args.slab, layers=args.slab_layers, thickness=args.slab_thickness, vacuum=args.vacuum,
                        repeat=size or (1, 1), max_atoms=max_atoms)
-    elif getattr(args, "tilt_boundary", None):
+    elif getattr(args, "tilt_boundary", None) is not None:
         from ..defects.boundary import tilt_boundary
 
         crystal = tilt_boundary(crystal, axis=args.tilt_axis, plane=args.tilt_boundary, size=_size(args, 3),
                                 max_atoms=max_atoms)
-    seed = getattr(args, "seed", 0)
     for k, item in enumerate(getattr(args, "substitute", None) or []):
         if ":" not in item:
             raise UserError(f"--substitute '{item}' must be ELEMENT:AMOUNT, e.g. Ni:0.1 or Ni:5")

@@ -86,6 +86,44 @@ def misorientation(M, axis=None):
     return best
 
 
+def mirror_rotation(plane):
+    """The misorientation of the two grains in cubic axes: grain 2 is grain 1
+    mirrored in the boundary plane, i.e. (the lattice being centrosymmetric)
+    rotated 180 degrees about the plane normal n: R = 2 n n^T - I (for a
+    cubic lattice the normal of (hkl) is [hkl])."""
+    n = np.asarray(plane, float)
+    n = n / np.linalg.norm(n)
+    return 2.0 * np.outer(n, n) - np.eye(3)
+
+
+def mirror_sigma(plane):
+    """Sigma of the symmetric tilt boundary on ``plane`` (hkl); 1 when the
+    plane is a mirror plane of the cube ({100}, {110}), i.e. no boundary."""
+    return sigma_of(mirror_rotation(plane))
+
+
+def boundary_planes(axis, count=3, span=5):
+    """Up to ``count`` low-index planes (hkl) containing ``axis`` [uvw] that
+    give a real boundary (Sigma > 1), lowest Sigma first, then lowest indices."""
+    t = np.asarray(axis, int)
+    found = {}
+    r = range(-span, span + 1)
+    for h, k, l in itertools.product(r, r, r):
+        p = np.array(_gcd_reduce((h, k, l)), int) if (h, k, l) != (0, 0, 0) else None
+        if p is None or int(p @ t) != 0 or not np.any(np.cross(p, t)):
+            continue
+        key = tuple(sorted(np.abs(p)))
+        sig = mirror_sigma(p)
+        if sig is None or sig == 1:
+            continue
+        # one plane per family, with positive leading index, preferring the listed form
+        p = p if p[np.nonzero(p)[0][0]] > 0 else -p
+        cand = (sig, int(np.abs(p).sum()), tuple(-p))
+        if key not in found or cand < found[key][0]:
+            found[key] = (cand, format_indices(p, "plane"))
+    return [text for _, text in sorted(found.values())[:count]]
+
+
 def tilt_boundary(element, axis="[001]", plane="(310)", size=None, overlap=0.6, periodic=True, phase=None,
                   a=None, max_atoms=None) -> Crystal:
     """A symmetric tilt grain boundary (bicrystal) in an FCC, BCC or simple
@@ -123,6 +161,11 @@ def tilt_boundary(element, axis="[001]", plane="(310)", size=None, overlap=0.6, 
     xv = np.array(_gcd_reduce(np.cross(pv, tv)), int)
     if np.all(np.abs(np.cross(pv, tv)) == 0):
         raise UserError("the tilt axis lies along the plane normal; that is a twist, not a tilt")
+    if mirror_sigma(pv) == 1:
+        ideas = boundary_planes(tv, count=3)
+        hint = f"; planes that do, about {format_indices(tv)}: {', '.join(ideas)}" if ideas else ""
+        raise UserError(f"plane {format_indices(pv, 'plane')} is a mirror plane of the cubic lattice: it gives no "
+                        f"misorientation about {format_indices(tv)} (Sigma 1, no boundary){hint}")
     orient = (format_indices(xv), format_indices(pv), format_indices(tv))
     cell1 = oriented(parent, orient)
     L = np.linalg.norm(cell1.cell, axis=1)

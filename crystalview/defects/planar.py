@@ -47,13 +47,22 @@ NAMED_SEQUENCES = {
     "E": ("ABABABABABC", "one extrinsic E basal fault (...ABAB|C|ABAB...) per 11 layers"),
 }
 
+#: Fault names belong to one parent lattice: the FCC faults are faults of the
+#: ABC stacking, the HCP basal faults of the AB stacking.  'fcc', 'hcp',
+#: 'dhcp' and raw letter sequences are allowed for any close-packed metal.
+FCC_FAULTS = ("intrinsic", "extrinsic", "twin")
+HCP_FAULTS = ("I1", "I2", "E")
+
 _OFFSETS = {"A": (0.0, 0.0), "B": (1.0 / 3.0, 2.0 / 3.0), "C": (2.0 / 3.0, 1.0 / 3.0)}
 
 
 def check_sequence(sequence):
     """The sequence as upper-case letters, or UserError."""
-    if not isinstance(sequence, str) or not sequence.strip():
+    if not isinstance(sequence, str):
         raise UserError("a stacking sequence is a string of the letters A, B and C, e.g. 'ABC' (FCC) or 'AB' (HCP)")
+    if not sequence.strip():
+        raise UserError("the stacking sequence is empty; give at least two layers of A, B and C, "
+                        "e.g. 'ABC' (FCC) or 'AB' (HCP)")
     key = sequence.strip()
     for name, (seq, _) in NAMED_SEQUENCES.items():
         if key.lower() == name.lower():
@@ -65,7 +74,8 @@ def check_sequence(sequence):
                         f"letters A, B and C, or a name ({', '.join(NAMED_SEQUENCES)})"
                         f"{suggest(sequence, list(NAMED_SEQUENCES))}")
     if len(s) < 2:
-        raise UserError(f"stacking sequence '{sequence}' needs at least two layers, e.g. 'AB' (HCP) or 'ABC' (FCC)")
+        raise UserError(f"stacking sequence '{sequence}' has one layer: a periodic cell of it puts {s} on {s}, which "
+                        f"is not close-packed; give at least two layers, e.g. 'AB' (HCP) or 'ABC' (FCC)")
     for i in range(len(s) - 1):
         if s[i] == s[i + 1]:
             raise UserError(f"stacking sequence '{sequence}' puts layer {s[i]} on {s[i]} (layers {i + 1} and {i + 2}); "
@@ -114,6 +124,30 @@ def _close_packed_parent(element, phase=None, a=None):
     return build(el.symbol, phase=ph.name), ph.lattice
 
 
+def _check_fault_matches(named, kind, parent, element):
+    """UserError when a named fault belongs to the other close-packed lattice."""
+    if named in FCC_FAULTS and kind != "fcc":
+        wrong, fault_lat, valid_kind, names = "an FCC stacking fault", "fcc", "HCP basal faults", HCP_FAULTS
+    elif named in HCP_FAULTS and kind != "hcp":
+        wrong, fault_lat, valid_kind, names = "an HCP basal fault", "hcp", "FCC stacking faults", FCC_FAULTS
+    else:
+        return
+    sym = parent.elements[0] if len(parent) else "this metal"
+    other = ""
+    try:
+        from .. import elements as E
+
+        el = E.element(element if isinstance(element, str) else sym)
+        alt = [p for p, ph in el.phases.items() if ph.lattice == fault_lat]
+    except UserError:
+        alt = []
+    if alt:
+        other = f", or choose {sym}'s {fault_lat} phase '{alt[0]}'"
+    raise UserError(f"fault '{named}' is {wrong} but {sym} is {kind}: for {sym} use "
+                    f"{', '.join(names[:-1])} or {names[-1]} ({valid_kind}){other}, or give the layers as a "
+                    f"sequence of A, B and C")
+
+
 def stack(element, sequence, a=None, repeat=(1, 1), spacing=None, phase=None, max_atoms=None) -> Crystal:
     """A periodic cell of close-packed layers in the given sequence.
 
@@ -124,6 +158,11 @@ def stack(element, sequence, a=None, repeat=(1, 1), spacing=None, phase=None, ma
     sequence : letters A, B, C (e.g. 'ABC' FCC, 'AB' HCP, 'ABCABABC' an
         intrinsic fault, 'ABCACB' twins) or a name from NAMED_SEQUENCES
         ('fcc', 'hcp', 'dhcp', 'intrinsic', 'extrinsic', 'twin', 'I1', 'I2', 'E').
+        Fault names must match the parent: 'intrinsic', 'extrinsic', 'twin'
+        only for an fcc parent, 'I1', 'I2', 'E' only for an hcp parent
+        (UserError otherwise).  Letter sequences and 'fcc', 'hcp', 'dhcp'
+        are allowed for any close-packed parent; the layer spacing then
+        still follows the parent (so 'ABC' of Mg has Mg's c/2 spacing).
     a : in-plane nearest-neighbour distance (A); default from the element.
     repeat : (nx, ny) in-plane copies, or (nx, ny, nz) with nz copies of the
         whole sequence along the normal.
@@ -139,6 +178,7 @@ def stack(element, sequence, a=None, repeat=(1, 1), spacing=None, phase=None, ma
     nx, ny, nz = repeats(rep, 3, "repeat", "(3, 3) or (3, 3, 2)")
     check_atom_count(len(seq) * nx * ny * nz, max_atoms, what="this stack")
     parent, kind = _close_packed_parent(element, phase=phase, a=a)
+    _check_fault_matches(named, kind, parent, element)
     lat = parent.lattice
     if kind == "fcc":
         d = lat.a / math.sqrt(2.0)

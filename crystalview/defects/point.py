@@ -216,11 +216,11 @@ def frenkel_pairs(crystal: Crystal, count, seed=0) -> Crystal:
         raise UserError("frenkel_pairs needs a Crystal, e.g. frenkel_pairs(build('Cu', repeat=(4, 4, 4)), 2)")
     pool = _candidates(crystal, role="host")
     n = _count_from(len(pool), count=count, what="Frenkel pairs")
+    rng = _rng(seed)
     out = crystal.copy()
     if n == 0:
         out.record_defect("frenkel_pair", count=0, positions=[], interstitial_positions=[], seed=seed)
         return out
-    rng = _rng(seed)
     movers = rng.choice(pool, size=n, replace=False)
     dnn = nearest_neighbour_distance(crystal)
     reach = 1.5 * dnn
@@ -273,12 +273,19 @@ def frenkel_pairs(crystal: Crystal, count, seed=0) -> Crystal:
 
 # ================================================================== shared helpers
 def _rng(seed):
+    """numpy Generator for a seed that is None or a whole number >= 0."""
+    msg = f"seed {seed!r} must be a whole number of 0 or more, e.g. 0 or 42"
+    if seed is None:
+        return np.random.default_rng()
     if isinstance(seed, bool):
-        raise UserError(f"seed {seed!r} must be a whole number, e.g. 0 or 42")
+        raise UserError(msg)
     try:
-        return np.random.default_rng(None if seed is None else int(seed))
+        f = float(seed)
     except (TypeError, ValueError):
-        raise UserError(f"seed {seed!r} must be a whole number, e.g. 0 or 42") from None
+        raise UserError(msg) from None
+    if not math.isfinite(f) or f != int(f) or f < 0:
+        raise UserError(msg)
+    return np.random.default_rng(int(f))
 
 
 #: metadata keys that describe a particular supercell, not the material

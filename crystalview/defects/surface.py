@@ -83,6 +83,27 @@ def _cell_rows(lat, hkl):
     return P, n, float(hmin)
 
 
+def plane_spacings(heights, period, tol=1e-4):
+    """Distinct spacings (A, ascending) between neighbouring atomic planes of
+    the bulk, from the atom heights along the normal in one period of the
+    stack (``period`` = height of the out-of-plane cell vector).  One value
+    when the planes are evenly spaced (Cu (111)), several when they are not
+    (Mg (10-10): a/(2 sqrt 3) and a/sqrt 3 alternate)."""
+    h = np.sort(np.mod(np.asarray(heights, float), period))
+    levels = [h[0]]
+    for x in h[1:]:
+        if x - levels[-1] > tol:
+            levels.append(x)
+    if len(levels) > 1 and levels[0] + period - levels[-1] <= tol:
+        levels.pop()                                   # the same plane seen at 0 and at the period
+    gaps = np.diff(np.append(levels, levels[0] + period))
+    out = []
+    for g in np.sort(gaps):
+        if not out or g - out[-1] > 1e-3:
+            out.append(float(g))
+    return out
+
+
 def slab(crystal_or_element, hkl, layers=None, thickness=None, vacuum=10.0, repeat=(1, 1), phase=None,
          max_atoms=None) -> Crystal:
     """An (hkl) slab with the plane normal along z.
@@ -120,6 +141,7 @@ def slab(crystal_or_element, hkl, layers=None, thickness=None, vacuum=10.0, repe
     # atomic planes in one cell, to size the stack
     h_cell = (frac @ cellP) @ n
     planes_per_cell = len(np.unique(np.round(h_cell / 1e-4)))
+    spacings = plane_spacings(h_cell, hstep)
     if layers is not None:
         try:
             nl = float(layers)
@@ -176,8 +198,15 @@ def slab(crystal_or_element, hkl, layers=None, thickness=None, vacuum=10.0, repe
     meta["repeat"] = [nx, ny, 1]
     out = Crystal(cell, pos[order], z[order], pbc=(True, True, False), metadata=meta,
                   lattice=replace(lat, cell=lat.cell @ Rm), species_radii=parent.species_radii)
-    out.record_defect("surface", plane=str(ind), layers=n_planes, thickness_A=round(height, 6),
-                      layer_spacing_A=round(hstep if planes_per_cell == 1 else height / max(n_planes - 1, 1), 6),
+    if len(spacings) == 1:
+        spacing_info = {"layer_spacing_A": round(spacings[0], 6), "layer_spacings_A": [round(spacings[0], 4)]}
+    else:
+        spacing_info = {"layer_spacings_A": [round(x, 4) for x in spacings],
+                        "layer_spacing_average_A": round(hstep / planes_per_cell, 6),
+                        "layer_spacing_note": "uneven: neighbouring atomic planes are "
+                                              + " and ".join(f"{x:.4f}" for x in spacings)
+                                              + " A apart; the average is the bulk period / planes per period"}
+    out.record_defect("surface", plane=str(ind), layers=n_planes, thickness_A=round(height, 6), **spacing_info,
                       vacuum_A=vac, area_A2=round(float(np.linalg.norm(np.cross(cell[0], cell[1]))), 6),
                       normal="z", boundaries="periodic in x and y; free surfaces along z")
     return out
