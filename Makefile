@@ -24,7 +24,7 @@ bench: $(STAMP)
 	for f in bench/bench_*.py; do echo "== $$f"; $(BIN)/python $$f || exit 1; done
 
 fuzz: $(STAMP)
-	CRYSTALVIEW_FUZZ_EXAMPLES=20000 $(BIN)/python -m pytest tests/test_fuzz.py -q
+	CRYSTALVIEW_FUZZ_EXAMPLES=20000 $(BIN)/python -m pytest tests/test_fuzz.py tests/test_fuzz_cif.py -q -p no:cacheprovider
 
 clean:
 	rm -rf $(VENV) build *.egg-info
