@@ -94,7 +94,7 @@ def test_sites_of_supercell_and_oriented_cell():
 
 
 def test_other_lattices_have_sites():
-    for spec, kw, kinds in [("Si", {}, {"tetrahedral", "octahedral"}), ("hex", {"element": "Mg"}, {"trigonal prismatic"}),
+    for spec, kw, kinds in [("Si", {}, {"tetrahedral", "hexagonal"}), ("hex", {"element": "Mg"}, {"trigonal prismatic"}),
                             ("NiAl", {}, {"octahedral", "tetrahedral"}), ("Ni3Al", {}, {"octahedral", "tetrahedral"}),
                             ("TiAl", {}, {"octahedral", "tetrahedral"})]:
         got = {r["kind"] for r in site_table(cv.build(spec, **kw))}
@@ -164,3 +164,107 @@ def test_sites_fast_start():
     r = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60)
     assert r.returncode == 0
     assert r.stderr.strip().endswith("[]"), r.stderr
+
+
+# ---------------------------------------------------------------- diamond cubic: tetrahedral and hexagonal sites
+def test_diamond_sites_are_tetrahedral_and_hexagonal():
+    c = cv.build("Si")
+    a = c.cell[0, 0]
+    rows = {r["kind"]: r for r in site_table(c)}
+    assert set(rows) == {"tetrahedral", "hexagonal"}          # no "octahedral" in diamond cubic
+    hexf = np.array(rows["hexagonal"]["frac_conventional"])
+    tetf = np.array(rows["tetrahedral"]["frac_conventional"])
+    assert any(np.allclose(f, (5 / 8, 5 / 8, 5 / 8)) for f in hexf)
+    assert any(np.allclose(f, (1 / 2, 1 / 2, 1 / 2)) for f in tetf)
+    assert len(hexf) == 16 and len(tetf) == 8
+
+    # independent geometry from the atom positions (numpy only, periodic images)
+    shifts = np.array([(i, j, k) for i in (-1, 0, 1) for j in (-1, 0, 1) for k in (-1, 0, 1)], float)
+    img = ((c.frac[None, :, :] + shifts[:, None, :]).reshape(-1, 3)) @ c.cell
+    bond = a * np.sqrt(3) / 4                                 # common practice: diamond bond length a*sqrt(3)/4
+
+    x = np.array([5 / 8, 5 / 8, 5 / 8]) @ c.cell
+    d = np.linalg.norm(img - x, axis=1)
+    o = np.argsort(d)
+    six = img[o[:6]]
+    # common practice (from memory): the hexagonal site has 6 atoms at sqrt(11)/8 a, then a clear gap
+    assert np.allclose(d[o[:6]], np.sqrt(11) / 8 * a, atol=1e-9) and d[o[6]] > d[o[5]] + 0.1
+    # the six form a ring: each is bonded to exactly two of the others
+    dd = np.linalg.norm(six[:, None] - six[None], axis=2)
+    bonded = np.abs(dd - bond) < 1e-6
+    assert np.all(bonded.sum(axis=1) == 2)
+    # ... a single six-membered cycle, puckered: alternately above and below the mean plane, normal to <111>
+    ring, prev = [0], None
+    while len(ring) < 6:
+        nxt = [j for j in np.nonzero(bonded[ring[-1]])[0] if j != prev and j not in ring]
+        prev = ring[-1]
+        ring.append(int(nxt[0]))
+    assert bonded[ring[-1], ring[0]]
+    n = np.array([1.0, 1.0, 1.0]) / np.sqrt(3)
+    h = (six[ring] - x) @ n
+    assert np.allclose(np.abs(h), np.abs(h[0])) and abs(h[0]) > 0.05 * a
+    assert np.all(np.sign(h) == np.sign(h[0]) * np.array([1, -1, 1, -1, 1, -1]))
+    # reported radius and bounding atoms agree
+    assert rows["hexagonal"]["coordination"] == 6
+    assert rows["hexagonal"]["radius_A"] == pytest.approx(np.sqrt(11) / 8 * a - c.radius_of("Si"), abs=1e-9)
+    assert "six-ring" in rows["hexagonal"]["note"]
+
+    # the tetrahedral site: 4 atoms at the bond length
+    y = np.array([0.5, 0.5, 0.5]) @ c.cell
+    dt = np.sort(np.linalg.norm(img - y, axis=1))
+    assert np.allclose(dt[:4], bond, atol=1e-9) and dt[4] > bond + 0.1
+
+
+def test_diamond_site_wyckoff_letters_from_spglib():
+    import spglib
+
+    c = cv.build("Si")
+    rows = {r["kind"]: r for r in site_table(c)}
+    hexf = np.array(rows["hexagonal"]["frac_conventional"])
+    tetf = np.array(rows["tetrahedral"]["frac_conventional"])
+    frac = np.vstack([c.frac, hexf, tetf])
+    nums = [14] * len(c) + [1] * len(hexf) + [2] * len(tetf)
+    ds = spglib.get_symmetry_dataset((c.cell, frac, nums))
+    # source: International Tables Vol. A, Fd-3m (227): atoms 8a, tetrahedral hole 8b, hexagonal hole 16d
+    # (spglib's standard setting; independent of our site tables)
+    assert ds.number == 227
+    w = list(ds.wyckoffs)
+    assert set(w[:8]) == {"a"} and set(w[8:24]) == {"d"} and set(w[24:]) == {"b"}
+    assert "16d" in rows["hexagonal"]["note"] and "8b" in rows["tetrahedral"]["note"]
+
+
+def test_cli_sites_diamond(cli):
+    rc, out, err = cli("sites", "Si")
+    assert rc == 0 and "hexagonal" in out and "octahedral" not in out
+
+
+def test_site_repr_is_plain():
+    s = cv.interstitial_sites(cv.build("Cu"))[0]
+    r = repr(s)
+    assert "np." not in r and "array(" not in r and r.startswith("<Site ")
+    assert all(type(v) is float for v in s.frac)
+
+
+def test_defected_hole_measurement_is_capped():
+    import time
+
+    from crystalview.errors import LimitError
+
+    c = cv.build("Fe", repeat=(3, 3, 3))
+    d = c.delete([0])
+    d.record_defect("vacancy", count=1)
+    with pytest.raises(LimitError, match="defected crystal"):
+        cv.interstitial_sites(d, max_atoms=50)
+    assert len(cv.interstitial_sites(d, max_atoms=53)) > 0
+    from crystalview.analysis.sites import sites_report
+
+    with pytest.raises(LimitError, match=r"about .* MB of memory"):
+        sites_report(d, max_atoms=50)
+    # 4 million atoms with one vacancy: refused at once, before any site array is built
+    big = cv.build("Cu", repeat=(100, 100, 100))
+    gone = big.delete([0])
+    gone.record_defect("vacancy", count=1)
+    t = time.perf_counter()
+    with pytest.raises(LimitError, match=r"3,999,999 atoms would need about 16.0 GB"):
+        site_table(gone)
+    assert time.perf_counter() - t < 2.0

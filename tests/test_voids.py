@@ -104,3 +104,52 @@ def test_bad_input():
     empty = c.select(np.zeros(len(c), bool))
     with pytest.raises(UserError):
         cv.find_voids(empty)
+
+
+def test_voids_repr_is_plain():
+    v = cv.find_voids(cv.build("Cu"))
+    assert repr(v) == "<Voids 12 holes {'octahedral': 4, 'tetrahedral': 8}, 32 channels>"
+    r = repr(v[0])
+    assert r.startswith("<Void 0 ") and "np." not in r and "array(" not in r
+
+
+def test_huge_void_analysis_is_refused_fast():
+    import time
+
+    from crystalview.analysis.voids import DEFAULT_MAX_HOLE_ATOMS, void_estimate
+    from crystalview.errors import LimitError
+
+    c = cv.build("Cu", repeat=(100, 100, 100))                # 4,000,000 atoms: ~100 MB, fine to build
+    assert len(c) == 4_000_000
+    est = void_estimate(c)
+    # bench/bench_voids.py: about 1 GB per 100,000 atoms -> tens of GB here
+    assert est["points"] > len(c) and est["bytes"] > 20e9
+    t = time.perf_counter()
+    with pytest.raises(LimitError, match=r"void analysis of 4,000,000 atoms would need about .* GB of memory "
+                                         r"and about .* min \(over the cap of 300,000 atoms\)"):
+        cv.find_voids(c)
+    assert time.perf_counter() - t < 2.0
+    assert DEFAULT_MAX_HOLE_ATOMS == 300_000
+    # the cap is the caller's to raise (checked on a small crystal so nothing big is built)
+    small = cv.build("Cu", repeat=(2, 2, 2))
+    with pytest.raises(LimitError, match="--max-atoms 32"):
+        cv.find_voids(small, max_atoms=31)
+    assert len(cv.find_voids(small, max_atoms=32)) == 96
+
+
+def test_cli_sites_voids_cap(cli):
+    import time
+
+    t = time.perf_counter()
+    rc, out, err = cli("sites", "Cu", "--voids", "--repeat", "100", "100", "100")
+    dt = time.perf_counter() - t
+    assert rc == 2 and out == "" and err.count("\n") == 1
+    assert "4,000,000 atoms" in err and "GB" in err and "--max-atoms" in err
+    assert dt < 5.0                                            # the build itself takes about 1 s
+    # --max-atoms is one cap for the build and the hole analysis
+    rc, out, err = cli("sites", "Cu", "--voids", "--repeat", "2", "2", "2", "--max-atoms", "31")
+    assert rc == 2 and "--max-atoms 32" in err
+    rc, out, err = cli("sites", "Cu", "--voids", "--repeat", "2", "2", "2", "--max-atoms", "32", "--json")
+    assert rc == 0
+    rc, out, err = cli("sites", "Cu", "--voids", "--repeat", "2", "2", "2", "--json")
+    assert rc == 0

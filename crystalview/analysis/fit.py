@@ -9,13 +9,22 @@ ratio r_s / r_h and the linear strain it implies,
 the fractional stretch of the distance from the site centre to its nearest
 host atom (radius R) needed for the solute to touch that atom without
 overlapping it; the number of such sites per host atom; the preferred site.
+For hydrogen only the largest hole is named: where hydrogen sits is not
+decided by hard-sphere geometry, and the caution adds a hydrogen line.
 
 Substitutional solutes (metals): the Hume-Rothery rules (Callister &
 Rethwisch, ch. 4): atomic size difference within 15 %, the same crystal
-structure, similar electronegativity (within 0.4 on the Pauling scale, the
-half-width of the Darken-Gurry map; common practice) and, other things being
-equal, a solute of equal or higher valence.  Each criterion is shown with its
-numbers and pass/fail, with an overall verdict.
+structure (any phase of the solute with the host's lattice counts, e.g.
+fcc beta-Co in nickel), similar electronegativity (within 0.4 on the Pauling
+scale, the half-width of the Darken-Gurry map; common practice) and, other
+things being equal, a solute of equal or higher valence.  Each criterion is
+shown with its numbers and pass/fail.  The verdict counts the size,
+structure and electronegativity rules only: the valence rule is advisory (it
+says in which direction solubility is likely larger), so it does not make
+the verdict for Cu in Ni differ from that for Ni in Cu.  The verdict says
+what the rules allow, never that a solid solution is complete, and always
+adds that the rules are necessary, not sufficient (Cu-Ag meets them all and
+is a eutectic system).
 """
 from __future__ import annotations
 
@@ -29,6 +38,22 @@ EN_LIMIT = 0.4             # common practice: Darken-Gurry ellipse half-width in
 RULES_SOURCE = ("Hume-Rothery rules as stated in Callister & Rethwisch, Materials Science and Engineering: "
                 "An Introduction, ch. 4 (solid solutions), from memory; electronegativity window 0.4 from the "
                 "Darken-Gurry map (common practice)")
+
+#: Said with every substitutional verdict.
+NECESSARY_NOTE = ("The rules are necessary, not sufficient: check the phase diagram (Cu-Ag meets all of them yet is a "
+                  "eutectic system with limited solid solubility; Callister & Rethwisch, ch. 9, and ASM Handbook "
+                  "Vol. 3, Alloy Phase Diagrams, from memory)")
+VALENCE_NOTE = ("the valence rule is advisory: it says in which direction solubility is likely larger, not whether "
+                "the two metals mix, so it is shown but not counted in the verdict (Cu in Ni and Ni in Cu get the "
+                "same verdict)")
+
+#: Hydrogen: where it sits is not decided by hole size.
+HYDROGEN_NOTE = ("hydrogen site occupancy is not set by hard-sphere geometry: zero-point (quantum) vibration and "
+                 "electronic effects decide it, and measured occupancies differ from metal to metal (tetrahedral "
+                 "sites are reported for H in alpha-Zr although the octahedral hole is larger; octahedral in Pd and "
+                 "Ni; from memory): the table gives hole sizes only, not where hydrogen goes")
+HYDROGEN_CAUTION = ("Hydrogen: geometric hole sizes say nothing about embrittlement susceptibility; follow the "
+                    "applicable hydrogen-service standards and testing.")
 
 #: Preferred sites in body-centred cubic hosts, where the geometry alone
 #: (the larger tetrahedral hole) is not what is observed.
@@ -54,9 +79,14 @@ def _caution():
     return CAUTION
 
 
-def fit(solute, crystal, phase=None):
+def fit(solute, crystal, phase=None, max_atoms=None):
     """Fit report of ``solute`` (symbol) in ``crystal`` (a Crystal or a spec
-    such as "Fe"; ``phase`` picks a named phase when a spec is given)."""
+    such as "Fe"; ``phase`` picks a named phase when a spec is given).
+
+    ``max_atoms``: cap of the hole-by-hole analysis a defected or unknown
+    structure needs (default 300,000 atoms; see
+    :func:`crystalview.analysis.sites.interstitial_sites`); over it a
+    LimitError gives the estimated memory and time."""
     if isinstance(crystal, str):
         from ..build import build
 
@@ -64,7 +94,7 @@ def fit(solute, crystal, phase=None):
     sym = E._canon(solute)
     E.atomic_number(sym)          # not an element at all -> UserError
     if sym in E.interstitial_symbols():
-        return _interstitial(sym, crystal)
+        return _interstitial(sym, crystal, max_atoms)
     if sym in E.metal_symbols():
         return _substitutional(sym, crystal)
     raise UserError(f"no radius data for solute '{solute}'; interstitial solutes: {', '.join(E.interstitial_symbols())}; "
@@ -84,12 +114,12 @@ def _host_description(crystal):
     }
 
 
-def _interstitial(sym, crystal):
+def _interstitial(sym, crystal, max_atoms=None):
     from .sites import is_perfect, site_table
 
     sol = E.interstitial(sym)
     rs = sol.radius
-    rows = site_table(crystal)
+    rows = site_table(crystal, max_atoms)
     rows = [r for r in rows if r["kind"] != "vacancy"] + [r for r in rows if r["kind"] == "vacancy"]
     if not rows:
         raise UserError("the host has no interstitial holes to fit a solute into")
@@ -119,7 +149,13 @@ def _interstitial(sym, crystal):
     largest = max(named, key=lambda r: r["hole_radius_A"])
     preferred, reason = largest["label"], "the largest hole (smallest misfit)"
     lattice = crystal.lattice.prototype if crystal.lattice is not None else None
-    if lattice in ("bcc", "B2") and sym in BCC_OCTAHEDRAL_SOLUTES:
+    caution = _caution()
+    hydrogen = sym == "H"
+    if hydrogen:
+        # geometry does not tell where hydrogen sits: report the largest hole only
+        preferred, reason = None, HYDROGEN_NOTE
+        caution = caution + "\n" + HYDROGEN_CAUTION
+    elif lattice in ("bcc", "B2") and sym in BCC_OCTAHEDRAL_SOLUTES:
         octs = [r for r in named if r["kind"] == "octahedral"]
         if octs:
             preferred, reason = octs[0]["label"], BCC_NOTE
@@ -133,8 +169,44 @@ def _interstitial(sym, crystal):
         host=_host_description(crystal), host_radius_A=R, perfect=perfect,
         strain_definition="(r_solute - r_hole) / (R_host + r_hole): stretch of the site-to-neighbour distance",
         sites=out_rows, largest_hole=largest["label"], preferred_site=preferred, preferred_reason=reason,
-        notes=notes, caution=_caution(),
+        site_basis="largest hole (geometry only)" if hydrogen else "preferred site",
+        hydrogen_note=HYDROGEN_NOTE if hydrogen else None, notes=notes, caution=caution,
     )
+
+
+def _structure_criterion(sym, s, host_lat):
+    """The crystal-structure rule: passes when ANY phase of the solute has
+    the host's lattice type (e.g. beta-Co, fcc, in nickel)."""
+    by_name = getattr(s, "phases", None) or {}
+    phases = list(by_name.values())
+    ref = s.reference_phase
+    ref_ph = by_name.get(ref) if ref else None
+    ref_lat = ref_ph.lattice if ref_ph is not None else None
+    match = None
+    if host_lat is not None:
+        same = [p for p in phases if p.lattice == host_lat]
+        match = next((p for p in same if p.name == ref), same[0] if same else None)
+
+    def name(p):
+        return p.lattice if p.name == p.lattice else f"{p.name} ({p.lattice})"
+
+    all_lat = ", ".join(name(p) for p in phases) or "no phase data"
+    detail = ""
+    if match is not None:
+        text = (f"{sym} is {host_lat}, as is the host" if match.name == match.lattice
+                else f"{sym} {match.name} phase is {match.lattice}, as is the host")
+        if match.name != ref:
+            detail = f"{sym} {match.name} ({match.lattice}), not the reference phase {ref} ({ref_lat})"
+        if match.note:
+            detail = (detail + ": " if detail else f"{sym} {match.name}: ") + match.note
+    else:
+        text = f"no phase of {sym} ({all_lat}) is {host_lat}"
+    return {"rule": "crystal structure", "host": host_lat, "solute": ref_lat, "unit": "", "value": None,
+            "limit": "a solute phase with the host's lattice", "pass": match is not None, "advisory": False,
+            "matching_phase": None if match is None else match.name,
+            "matching_phase_note": None if match is None else (match.note or ""),
+            "solute_phases": {p.name: p.lattice for p in phases},
+            "text": text, "detail": detail, "source": "element phase data"}
 
 
 def _substitutional(sym, crystal):
@@ -155,40 +227,59 @@ def _substitutional(sym, crystal):
             raise UserError(f"{el.symbol} has no {', '.join(missing)} in the data file; cannot apply the solid-solution rules")
     size = abs(s.metallic_radius - h.metallic_radius) / h.metallic_radius
     host_lat = crystal.lattice.prototype if crystal.lattice is not None else None
-    sol_lat = s.phase.lattice if s.reference_phase else None
     den = abs(s.electronegativity - h.electronegativity)
+    dv = s.valence - h.valence
+    if dv > 0:
+        vdir = (f"solute valence higher than the host's: by this rule {sym} dissolves more readily in {host} "
+                f"than {host} in {sym}")
+    elif dv < 0:
+        vdir = (f"solute valence lower than the host's: by this rule {sym} dissolves less readily in {host} "
+                f"than {host} in {sym}")
+    else:
+        vdir = "equal valences: this rule favours neither direction"
     criteria = [
         {"rule": "atomic size", "host": h.metallic_radius, "solute": s.metallic_radius, "unit": "A",
          "value": size * 100.0, "limit": f"<= {SIZE_LIMIT * 100:.0f} %", "pass": size <= SIZE_LIMIT + 1e-12,
+         "advisory": False, "detail": "",
          "text": f"radius {s.metallic_radius:.3f} vs {h.metallic_radius:.3f} A: {size * 100:.1f} % difference",
          "source": h.sources["metallic_radius"]},
-        {"rule": "crystal structure", "host": host_lat, "solute": sol_lat, "unit": "", "value": None,
-         "limit": "same", "pass": host_lat == sol_lat and host_lat is not None,
-         "text": f"{sym} ({s.reference_phase}) is {sol_lat}, host is {host_lat}", "source": "element phase data"},
+        _structure_criterion(sym, s, host_lat),
         {"rule": "electronegativity", "host": h.electronegativity, "solute": s.electronegativity, "unit": "Pauling",
-         "value": den, "limit": f"<= {EN_LIMIT}", "pass": den <= EN_LIMIT + 1e-12,
+         "value": den, "limit": f"<= {EN_LIMIT}", "pass": den <= EN_LIMIT + 1e-12, "advisory": False, "detail": "",
          "text": f"{s.electronegativity:.2f} vs {h.electronegativity:.2f}: difference {den:.2f}",
          "source": h.sources["electronegativity"]},
-        {"rule": "valence", "host": h.valence, "solute": s.valence, "unit": "", "value": s.valence - h.valence,
-         "limit": "solute valence >= host valence", "pass": s.valence >= h.valence,
+        {"rule": "valence", "host": h.valence, "solute": s.valence, "unit": "", "value": dv,
+         "limit": "solute valence >= host valence", "pass": s.valence >= h.valence, "advisory": True,
+         "direction": vdir, "detail": vdir,
          "text": f"{sym} {s.valence} vs {host} {h.valence}", "source": h.sources["valence"]},
     ]
-    ok = {c["rule"]: c["pass"] for c in criteria}
-    if not ok["atomic size"]:
-        code, verdict = "limited", "limited solid solubility expected: the size factor is unfavourable"
-    elif not ok["crystal structure"]:
-        code, verdict = "partial", ("partial solid solubility at most: different crystal structures rule out "
-                                    "complete miscibility")
-    elif ok["electronegativity"] and ok["valence"]:
-        code, verdict = "complete", "all four rules pass: extensive, possibly complete, solid solubility"
-    else:
-        failed = [c["rule"] for c in criteria if not c["pass"]]
-        code, verdict = "extensive", (f"size and structure pass: extensive solid solubility likely "
-                                      f"({' and '.join(failed)} not met: ordering, compounds or one-sided "
-                                      f"solubility possible)")
+    counted = [c for c in criteria if not c["advisory"]]
+    failed = [c["rule"] for c in counted if not c["pass"]]
     if host == sym:
-        code, verdict = "complete", f"{sym} in {sym}: the same element"
+        code, main = "same", f"{sym} in {sym}: the same element, nothing to dissolve"
+    elif not failed:
+        code, main = "extensive", "the size, structure and electronegativity rules allow extensive solid solubility"
+    else:
+        why = {"atomic size": f"radii differ by {size * 100:.1f} %, over {SIZE_LIMIT * 100:.0f} %",
+               "crystal structure": f"no phase of {sym} shares the host's {host_lat} lattice, so a solid solution "
+                                    f"cannot run across the whole composition range",
+               "electronegativity": f"an electronegativity difference of {den:.2f} (over {EN_LIMIT}) favours "
+                                    f"intermetallic compounds or ordering"}
+        limiting = [f for f in failed if f != "electronegativity"]
+        if not limiting:
+            code = "compounds"
+            main = ("the size and structure rules allow extensive solid solubility, but the electronegativity rule "
+                    "does not: " + why["electronegativity"])
+        else:
+            names = [f.replace("atomic ", "").replace("crystal ", "") for f in limiting]
+            head = names[0] if len(names) == 1 else " and ".join(names)
+            code = "limited"
+            main = (f"the {head} rule{'s' if len(names) > 1 else ''} limit{'' if len(names) > 1 else 's'} "
+                    f"solubility: " + "; ".join(why[f] for f in failed))
+    verdict = main + ". " + NECESSARY_NOTE
     return FitReport(
         mode="substitutional", solute=sym, host_element=host, host=_host_description(crystal),
-        criteria=criteria, verdict=verdict, verdict_code=code, rules_source=RULES_SOURCE, caution=_caution(),
+        criteria=criteria, verdict=verdict, verdict_code=code, verdict_rules=[c["rule"] for c in counted],
+        failed_rules=failed, necessary_not_sufficient=NECESSARY_NOTE, valence_note=VALENCE_NOTE,
+        rules_source=RULES_SOURCE, caution=_caution(),
     )

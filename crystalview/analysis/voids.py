@@ -45,10 +45,73 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import UserError
+from ..errors import LimitError, UserError
 
 #: Classification codes.
 KINDS = ("tetrahedral", "octahedral", "cubic", "vacancy", "other")
+
+#: Atom cap of the per-hole analyses (the void analysis, and the hole-by-hole
+#: measurement of a defected crystal); raise it with ``max_atoms=`` or the
+#: command line's ``--max-atoms``.  At the cap the void analysis needs about
+#: 2-3 GB and a few minutes.
+DEFAULT_MAX_HOLE_ATOMS = 300_000
+#: Cost of the void analysis per triangulated point (atoms plus the periodic
+#: images in the padding), measured with bench/bench_voids.py: 30,000 atoms
+#: (45,700 points) 12.4 s and 310 MB, 100,000 atoms (132,000 points) 68 s and
+#: 950 MB above the interpreter, on the 2-core reference machine.
+VOID_BYTES_PER_POINT = 7_500
+VOID_SECONDS_PER_POINT = 5e-4
+
+
+def _padding_factor(crystal):
+    """Points the triangulation sees per atom (atoms + images in the padding)."""
+    from .neighbours import cell_heights
+
+    n = max(len(crystal), 1)
+    h = cell_heights(crystal.cell)
+    pad = 2.25 * (crystal.volume / n) ** (1.0 / 3.0)      # the first padding of find_voids
+    pbc = np.asarray(crystal.pbc, bool)
+    return float(np.prod(np.where(pbc, (h + 2.0 * pad) / h, 1.0)))
+
+
+def _duration(seconds):
+    if seconds < 90:
+        return f"{seconds:.0f} s"
+    if seconds < 5400:
+        return f"{seconds / 60:.0f} min"
+    return f"{seconds / 3600:.1f} h"
+
+
+def _size(nbytes):
+    if nbytes >= 1e9:
+        return f"{nbytes / 1e9:.1f} GB"
+    return f"{nbytes / 1e6:.0f} MB"
+
+
+def void_estimate(crystal):
+    """Estimated cost of :func:`find_voids` on ``crystal`` (no allocation):
+    dict with atoms, points (atoms + periodic images), bytes, seconds."""
+    n = len(crystal)
+    pts = int(round(n * _padding_factor(crystal))) if n else 0
+    return {"atoms": n, "points": pts, "bytes": pts * VOID_BYTES_PER_POINT,
+            "seconds": pts * VOID_SECONDS_PER_POINT}
+
+
+def check_hole_atoms(n_atoms, est_bytes, est_seconds, max_atoms=None, what="the void analysis"):
+    """Refuse a per-hole analysis over the atom cap (LimitError with the
+    estimated memory and time), before anything is allocated."""
+    cap = DEFAULT_MAX_HOLE_ATOMS if max_atoms is None else int(max_atoms)
+    if n_atoms > cap:
+        raise LimitError(
+            f"{what} of {n_atoms:,} atoms would need about {_size(est_bytes)} of memory and about "
+            f"{_duration(est_seconds)} (over the cap of {cap:,} atoms); use a smaller crystal (fewer repeats) "
+            f"or raise the cap with max_atoms= / --max-atoms {n_atoms}")
+
+
+def check_void_size(crystal, max_atoms=None):
+    """:func:`check_hole_atoms` for the void analysis of ``crystal``."""
+    e = void_estimate(crystal)
+    check_hole_atoms(e["atoms"], e["bytes"], e["seconds"], max_atoms, "the void analysis")
 
 
 # ---------------------------------------------------------------------- geometry
@@ -144,6 +207,11 @@ class Void:
     neighbours: np.ndarray       # indices of the atoms that bound it
     ratio: float                 # radius / mean radius of the bounding atoms
 
+    def __repr__(self):
+        x, y, z = (float(v) for v in self.position)
+        return (f"<Void {int(self.index)} {self.kind} at ({x:.4f}, {y:.4f}, {z:.4f}) A, "
+                f"r = {float(self.radius):.4f} A, r/R = {float(self.ratio):.3f}, {len(self.neighbours)} atoms>")
+
 
 class Voids:
     """Result of :func:`find_voids`: arrays, plus list-like access to
@@ -177,7 +245,7 @@ class Voids:
         return (self[i] for i in range(len(self)))
 
     def __repr__(self):
-        counts = {k: int(n) for k, n in zip(*np.unique(self.kinds, return_counts=True))}
+        counts = {str(k): int(n) for k, n in zip(*np.unique(self.kinds, return_counts=True))}
         return f"<Voids {len(self)} holes {counts}, {len(self.channels)} channels>"
 
     def summary(self):
@@ -221,7 +289,7 @@ def _check_atoms(crystal, tree, idx, radii):
                         f"possible (at least about {lim:.2f} A); check the structure")
 
 
-def find_voids(crystal, *, channels=True, tolerance=0.1):
+def find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None):
     """Holes (maxima of the empty-sphere function) of any structure, with
     periodic boundaries, classified and linked by channels.
 
@@ -231,6 +299,9 @@ def find_voids(crystal, *, channels=True, tolerance=0.1):
     channels : also compute the bottleneck radius between neighbouring holes.
     tolerance : an atom counts as bounding a hole when it comes within
         ``tolerance`` x its radius of touching it (classification only).
+    max_atoms : atom cap (default :data:`DEFAULT_MAX_HOLE_ATOMS`, 300,000);
+        a larger crystal is refused with a :class:`~crystalview.errors.LimitError`
+        giving the estimated memory and time, before anything is allocated.
 
     Returns a :class:`Voids` (list-like of :class:`Void`).
     """
@@ -242,6 +313,7 @@ def find_voids(crystal, *, channels=True, tolerance=0.1):
     n = len(crystal)
     if n == 0:
         raise UserError("the crystal has no atoms; there are no holes to find")
+    check_void_size(crystal, max_atoms)
     radii_atoms = crystal.atom_radii()
     if not np.all(np.isfinite(radii_atoms)) or np.any(radii_atoms <= 0):
         raise UserError("every atom needs a positive hard-sphere radius for the hole search; "

@@ -10,6 +10,8 @@ def register(sub):
                                    "Metals: size, structure, electronegativity and valence rules with a verdict.")
     p.add_argument("solute", metavar="SOLUTE", help="solute element: C, N, O, H, B (interstitial) or a metal (Ni, Cr, ...)")
     add_spec_arguments(p)
+    # --max-atoms (from the SPEC arguments) also caps the hole-by-hole analysis of a defected or unknown
+    # structure (default 300,000 atoms)
     p.add_argument("--json", action="store_true", help="print JSON only")
     p.set_defaults(func=run)
 
@@ -18,7 +20,8 @@ def run(args):
     from ..analysis.fit import fit
 
     c = crystal_from_args(args)
-    rep = fit(args.solute, c)
+    cap = None if getattr(args, "max_atoms", None) is None else int(args.max_atoms)
+    rep = fit(args.solute, c, max_atoms=cap)
     if args.json:
         print_json(dict(rep))
         return 0
@@ -33,6 +36,12 @@ def _host_title(h):
     if h.get("c_A"):
         t += f", c = {h['c_A']:.4f} A"
     return t
+
+
+def _wrap(text, width=100):
+    import textwrap
+
+    return textwrap.wrap(text, width=width, initial_indent="  ", subsequent_indent="    ")
 
 
 def render_text(rep):
@@ -57,17 +66,28 @@ def render_text(rep):
             lines.append(table(rows, ["site", "hole r min (A)", "median", "max", "misfit (median)", "strain range",
                                       "sites per host atom"]))
         lines.append("")
-        lines.append(f"  largest hole: {rep['largest_hole']}")
-        lines.append(f"  preferred site: {rep['preferred_site']} ({rep['preferred_reason']})")
+        if rep.get("preferred_site") is None:
+            lines.append(f"  largest hole: {rep['largest_hole']} "
+                         f"(geometry only: no preferred site is given for {rep['solute']})")
+            lines.extend(_wrap(f"hydrogen note: {rep['hydrogen_note']}"))
+        else:
+            lines.append(f"  largest hole: {rep['largest_hole']}")
+            lines.extend(_wrap(f"preferred site: {rep['preferred_site']} ({rep['preferred_reason']})"))
         for n in rep["notes"]:
             lines.append(f"  note: {n}")
     else:
         lines.append(f"{rep['solute']} substituting for {rep['host_element']} in {_host_title(h)}")
         lines.append("")
-        rows = [(c["rule"], c["text"], c["limit"], "pass" if c["pass"] else "FAIL") for c in rep["criteria"]]
+        rows = [(c["rule"], c["text"], c["limit"],
+                 ("pass" if c["pass"] else "FAIL") + (" (advisory)" if c.get("advisory") else ""))
+                for c in rep["criteria"]]
         lines.append(table(rows, ["rule", "numbers", "criterion", "result"]))
         lines.append("")
-        lines.append(f"  verdict: {rep['verdict']}")
+        for c in rep["criteria"]:
+            if c.get("detail"):
+                tag = c["rule"] + (" (advisory, not counted in the verdict)" if c.get("advisory") else "")
+                lines.extend(_wrap(f"{tag}: {c['detail']}"))
+        lines.extend(_wrap(f"verdict: {rep['verdict']}"))
         lines.append(f"  rules: {rep['rules_source']}")
         srcs = sorted({c['source'] for c in rep['criteria'] if c['source'] != 'element phase data'})
         for s in srcs:
