@@ -7,25 +7,25 @@ import numpy as np
 from ..errors import UserError
 
 
-def fill_sites(crystal, element, kind="octahedral", fraction=1.0, seed=0):
+def fill_sites(crystal, element, kind="octahedral", fraction=1.0, seed=0, max_atoms=None):
     """A new crystal with ``element`` atoms (role "interstitial") in a
     ``fraction`` of the empty ``kind`` sites, chosen at random with ``seed``.
 
     The count is round(fraction x number of sites); the same seed gives the
     same result.  The solute's radius is its interstitial radius from the data
     file (or its metallic radius for a metal).  A defect record is added to
-    ``metadata['defects']``.
+    ``metadata['defects']``.  ``max_atoms`` raises the cap on the hole
+    analysis of large defected crystals.
     """
     from .. import elements as E
     from ..analysis.sites import interstitial_sites
-
     from .point import fraction_value
 
     frac = fraction_value(fraction, what="of the sites", example="0.05")
     sym = E._canon(element)
     E.atomic_number(sym)
     radius, _mode, _src = E.solute_radius(sym)
-    sites = interstitial_sites(crystal)
+    sites = interstitial_sites(crystal, max_atoms=max_atoms)
     kinds = sorted({s.kind for s in sites if s.kind != "vacancy"})
     kind_l = str(kind).strip().lower()
     if kind_l not in kinds:
