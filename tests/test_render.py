@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import os
+import shutil
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
@@ -176,3 +177,205 @@ def test_slip_overlay_if_available(tmp_path):
     sc = G.build_scene(cv.build("Cu"), "ball-and-stick", "[011]", slip_axis="[001]")
     assert any(a["group"] == "slip" for a in sc.arrows)
     assert any(m["group"] == "planes" for m in sc.meshes)
+
+
+# ------------------------------------------------------------------ figure review fixes
+from crystalview.crystal import Crystal  # noqa: E402
+
+
+def _bonded_share(sc):
+    """Share of the drawn atoms with at least one stick."""
+    return len(np.unique(sc.bond_atoms)) / sc.n_atoms
+
+
+@pytest.fixture(scope="module")
+def defect_crystals():
+    from crystalview.defects.boundary import tilt_boundary
+    from crystalview.defects.dislocation import dislocation
+    from crystalview.defects.point import frenkel_pairs
+    from crystalview.defects.surface import slab
+
+    cu = cv.build("Cu")
+    return dict(frenkel=frenkel_pairs(cv.build("Cu", repeat=(2, 2, 2)), 1),
+                dislocation=dislocation(cu, "edge"),
+                tilt=tilt_boundary(cu, axis="[001]", plane="(310)"),
+                slab=slab(cu, "(111)", layers=6))
+
+
+def test_bonds_survive_one_close_pair(defect_crystals):
+    # source: Callister & Rethwisch, FCC nearest-neighbour distance a/sqrt(2) (a = 2R / sqrt(2) ... R = a sqrt(2)/4)
+    a = cv.build("Cu").lattice.a
+    for name in ("frenkel", "dislocation", "tilt"):
+        c = defect_crystals[name]
+        assert abs(G._nn_distance(c) - a / np.sqrt(2)) < 1e-6, name
+        sc = G.build_scene(c, "ball-and-stick", "[001]")
+        assert _bonded_share(sc) > 0.9, (name, _bonded_share(sc))
+        assert len(sc.bonds) > 3 * sc.n_atoms * 0.9 / 2, name       # most atoms keep several sticks
+    # the interstitial (closer than a/sqrt(2) to its cage: a/2 in the octahedral hole) keeps its sticks
+    c = defect_crystals["frenkel"]
+    sc = G.build_scene(c, "ball-and-stick", "[001]")
+    from crystalview.crystal import ROLES
+    inter = np.nonzero(c.roles[sc.atom_src] == ROLES.index("interstitial"))[0]
+    assert len(inter) and np.isin(sc.bond_atoms, inter).any(axis=1).sum() >= 6
+
+
+def test_bond_length_falls_back_to_the_atoms(defect_crystals):
+    # an imported structure: no lattice record, no metadata; the median nearest-neighbour distance stands in
+    f = defect_crystals["frenkel"]
+    bare = Crystal(f.cell, f.positions, f.numbers, pbc=f.pbc)
+    a = cv.build("Cu").lattice.a
+    assert abs(G._nn_distance(bare) - a / np.sqrt(2)) < 1e-6
+    # and the shortest distance (interstitial to cage, a/2) is not what it uses
+    from crystalview.analysis.neighbours import nearest_neighbour_distance
+    assert nearest_neighbour_distance(bare) < 0.8 * a / np.sqrt(2)
+
+
+def test_site_spheres_drawn_at_the_atoms_scale():
+    pytest.importorskip("crystalview.analysis.sites")
+    c = cv.build("Cu")
+    R = float(c.atom_radii()[0])
+    sc = G.build_scene(c, "ball-and-stick", "[001]", sites=True)
+    k = G.S.get_style("ball-and-stick").atom_scale
+    sites = [s for s in sc.overlay_spheres if s["group"] == "sites"]
+    assert sites
+    for s in sites:
+        assert np.allclose(s["radius"], np.asarray(s["true_radius"]) * k)
+        assert np.max(s["radius"]) < np.min(sc.atom_radius)            # a hole never outgrows its atoms
+    oct_r = [s for s in sites if "octahedral" in s["label"]][0]["true_radius"][0]
+    # source: Smallman & Ngan, Modern Physical Metallurgy, hole radius ratios: octahedral 0.414 R in fcc
+    assert abs(oct_r / R - 0.414) < 0.002
+    assert any("atoms' scale" in e[0] for e in sc.legend)
+    full = G.build_scene(c, "space-filling", "[001]", sites=True)
+    for s in (s for s in full.overlay_spheres if s["group"] == "sites"):
+        assert np.allclose(s["radius"], s["true_radius"])
+    assert not any("atoms' scale" in e[0] for e in full.legend)
+
+
+def test_slip_axis_picks_an_oblique_view():
+    pytest.importorskip("crystalview.analysis.slip")
+    c = cv.build("Cu")
+    sc = G.build_scene(c, "ball-and-stick", None, slip_axis="[123]")
+    axis, _ = G.direction(c, "[123]")
+    t = sc.view.toward
+    assert np.degrees(np.arccos(abs(t @ axis))) > 45          # the loading axis lies across the view
+    slip = sc.info["slip"]
+    from crystalview.lattice import parse_indices, plane_normal
+    n = plane_normal(c.lattice.cell, parse_indices(slip["planes"][0], kind="plane"))
+    tilt = np.degrees(np.arcsin(abs(t @ n) / np.linalg.norm(n)))
+    assert 12 < tilt < 45                                     # the slip plane seen obliquely, not edge-on
+    d, _ = G.direction(c, slip["directions"][0])
+    assert abs(t @ d) < 0.5
+    assert np.allclose(sc.view.up, axis - (axis @ t) * t, atol=1e-9) or abs(sc.view.up @ axis) > 0.99
+    assert not sc.lines
+    # asked for a view that has the plane edge-on: it is drawn as a line and the legend says so
+    edge = G.build_scene(c, "ball-and-stick", "[110]", slip_axis="[123]")      # [110] lies in (1-1-1)
+    assert any(ln["group"] == "planes" for ln in edge.lines)
+    assert any("edge-on" in e[0] and e[2] == "line" for e in edge.legend)
+
+
+def test_frenkel_vacancy_marked(defect_crystals):
+    c = defect_crystals["frenkel"]
+    rec = [d for d in c.metadata["defects"] if d["kind"] == "frenkel_pair"][0]
+    sc = G.build_scene(c, "ball-and-stick", "[001]")
+    marks = np.vstack([m["pos"] for m in sc.markers])
+    assert np.allclose(marks, np.asarray(rec["positions"]).reshape(-1, 3))
+    assert ("vacancy (1)", palette.ROLE_COLOURS["vacancy"], "ring") in sc.legend
+    assert not G.build_scene(c, "ball-and-stick", "[001]", defects=False).markers
+
+
+def test_defect_captions(defect_crystals):
+    cap = {k: "\n".join(G.build_scene(c, "lattice", "[001]").caption) for k, c in defect_crystals.items()}
+    # source: Sutton & Balluffi, Interfaces in Crystalline Materials: a cubic (310)[001] tilt boundary is
+    # Sigma 5 (h^2 + k^2 = 10, halved while even), misorientation 2 atan(1/3) = 36.87 deg
+    assert "\u03a35 (310)[001] tilt boundary, 36.87\u00b0" in cap["tilt"]
+    # source: Hull & Bacon, Introduction to Dislocations: fcc perfect dislocation b = a/2<110> on {111}
+    assert "edge dislocation, b = a/2[1-10], line [-1-12], glide plane (111)" in cap["dislocation"]
+    assert "(111) slab, 6 layers" in cap["slab"]
+    assert "1 Frenkel pair" in cap["frenkel"]
+
+
+def test_svg_bonds_behind_their_nearer_ball_and_no_gradients(tmp_path):
+    c = cv.build("Cu")
+    sc = G.build_scene(c, "ball-and-stick", "[112]")
+    lay = F.make_layout(sc, (600, 450))
+    items = F.display_list(sc, lay)
+    where = {it["atom"]: k for k, it in enumerate(items) if it["kind"] == "ball"}
+    bonds = [(k, it) for k, it in enumerate(items) if it.get("ends") is not None]
+    assert bonds
+    depth = sc.view.project(sc.atom_pos)[:, 2]
+    checked = 0
+    for k, it in bonds:
+        i, j = it["ends"]
+        near, far = (i, j) if depth[i] >= depth[j] else (j, i)
+        assert k < where[near]                         # the nearer ball is painted over the stick
+        if depth[near] - depth[far] > 1e-6:
+            assert k > where[far]                      # the stick is painted over the farther ball
+        # the stroke starts and ends inside the two discs (no gap), not at their centres
+        for (x, y), b in zip(it["pts"], (i, j)):
+            ball = items[where[b]]
+            r = np.hypot(x - ball["x"], y - ball["y"])
+            assert r <= ball["r"] + 1e-6
+        checked += 1
+    assert checked > 10
+    out = tmp_path / "cu.svg"
+    cv.render(c, out, view="[112]", size=(600, 450))
+    text = out.read_text()
+    root = ET.fromstring(text)
+    ns = "{http://www.w3.org/2000/svg}"
+    ids = {e.get("id") for e in root.iter() if e.get("id")}
+    for e in root.iter():
+        for attr in ("fill", "stroke", "stop-color"):
+            val = e.get(attr)
+            if val is None:
+                continue
+            if val.startswith("url("):
+                assert val[5:-1] in ids                # every paint server referenced exists
+            else:
+                assert val == "none" or (val.startswith("#") and len(val) == 7), (e.tag, attr, val)
+    assert root.findall(f".//{ns}radialGradient") == []   # balls are flat discs: every SVG reader shows them
+    balls = [it for it in items if it["kind"] == "ball"]
+    convert = shutil.which("rsvg-convert") or shutil.which("convert")
+    if convert:
+        png = tmp_path / "cu_conv.png"
+        cmd = [convert, "-o", str(png), str(out)] if convert.endswith("rsvg-convert") else \
+            [convert, str(out), "-depth", "8", f"PNG24:{png}"]
+        r = subprocess.run(cmd, capture_output=True, text=True, timeout=60)
+        assert r.returncode == 0, r.stderr
+        arr = pv.read(str(png))
+        img = np.asarray(arr.point_data[arr.point_data.keys()[0]]).reshape(450, 600, -1)[::-1]
+        host = np.array(palette.hex_to_rgb(palette.ROLE_COLOURS["host"])) * 255
+        near_host = 0
+        for b in balls:                                # the ball's body shows its colour, not black
+            y, x = int(round(b["y"] + 0.2 * b["r"])), int(round(b["x"] + 0.2 * b["r"]))
+            px = np.median(img[y - 2:y + 3, x - 2:x + 3, :3].reshape(-1, 3).astype(float), axis=0)
+            assert px.sum() > 150, px
+            near_host += np.abs(px - host).sum() < 120
+        assert near_host >= 0.8 * len(balls)
+
+
+def test_free_surfaces_no_images_no_box(defect_crystals):
+    d = defect_crystals["dislocation"]
+    sc = G.build_scene(d, "ball-and-stick", None)
+    # default view: along the dislocation line (z), the glide-plane normal [111] (y) up
+    assert abs(sc.view.toward @ np.array([0, 0, 1.0])) > 0.999
+    assert abs(sc.view.up @ np.array([0, 1.0, 0])) > 0.999
+    assert sc.cell_edges is None                       # one periodic axis: a box would mean nothing
+    lo, hi = d.positions.min(axis=0), d.positions.max(axis=0)
+    assert np.all(sc.atom_pos[:, :2] >= lo[:2] - 1e-9) and np.all(sc.atom_pos[:, :2] <= hi[:2] + 1e-9)
+    s = defect_crystals["slab"]
+    sc = G.build_scene(s, "ball-and-stick", "[1-10]")
+    e = sc.cell_edges
+    assert e is not None and len(e) == 8
+    assert np.allclose(e[:, 0, 2], e[:, 1, 2])          # no edges across the free surfaces (z)
+    zs = np.unique(np.round(e[:, :, 2], 6))
+    assert np.allclose(zs, [s.positions[:, 2].min(), s.positions[:, 2].max()], atol=1e-6)
+    assert np.all(sc.atom_pos[:, 2] <= s.positions[:, 2].max() + 1e-9)
+
+
+def test_cli_dislocation_default_view(tmp_path):
+    r = _cli("render", "Cu", "--dislocation", "edge", "--defect-size", "8", "4", "1", "--style", "lattice",
+             "--size", "300", "200", "-o", str(tmp_path / "d.png"), "--json")
+    assert r.returncode == 0, r.stderr
+    import json
+    info = json.loads(r.stdout)
+    assert info["view"] == "[-1-12]" and info["up"] == "[111]"

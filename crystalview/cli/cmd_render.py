@@ -8,8 +8,9 @@ STYLE_NAMES = ["ball-and-stick", "space-filling", "lattice", "cell-cut"]
 
 def add_figure_arguments(p):
     g = p.add_argument_group("figure")
-    g.add_argument("--view", default="[001]", metavar="UVW",
-                   help="look along this crystal direction, e.g. [001], [111], [2-1-10] (default [001])")
+    g.add_argument("--view", default=None, metavar="UVW",
+                   help="look along this crystal direction, e.g. [001], [111], [2-1-10] (default [001]; along the "
+                        "line for --dislocation; across the slip system for --slip-axis)")
     g.add_argument("--up", metavar="UVW", help="crystal direction pointing up in the picture (default: c or b axis)")
     g.add_argument("--style", default="ball-and-stick", metavar="STYLE",
                    help="one of " + ", ".join(STYLE_NAMES) + " (default ball-and-stick)")

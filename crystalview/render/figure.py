@@ -108,13 +108,15 @@ def make_layout(scene, size, legend=True, scale_bar=True, caption=True):
 
 
 # ================================================================ public API
-def render(crystal, path, view="[001]", style="ball-and-stick", size=(1600, 1200), dpi=300, transparent=False,
+def render(crystal, path, view=None, style="ball-and-stick", size=(1600, 1200), dpi=300, transparent=False,
            *, up=None, sites=False, polyhedra=None, planes=(), directions=(), layers=None, defects=True,
            slip_axis=None, cell=None, legend=True, scale_bar=True, caption=True, force=False):
     """Draw ``crystal`` into a PNG, SVG or PDF report figure.
 
     ``view`` / ``up``: crystal directions ('[001]', '[2-1-10]'); orthographic,
-    fitted to the frame.  ``style``: ball-and-stick, space-filling, lattice or
+    fitted to the frame.  ``view=None``: [001], except along the line of a
+    dislocation crystal and obliquely across the slip system with
+    ``slip_axis`` (loading axis up).  ``style``: ball-and-stick, space-filling, lattice or
     cell-cut.  Overlays: ``sites`` (interstitial sites at their free radius),
     ``polyhedra`` ('coordination', 'sites', 'both'), ``planes`` ['(111)'],
     ``directions`` ['[110]'], ``layers`` (True or a plane: close-packed
@@ -415,6 +417,16 @@ def add_scene(pl, scene, lay=None, cull=False):
         a = pl.add_mesh(mesh, color=ar["colour"], smooth_shading=True)
         _prop(a)
         put(ar["group"], a)
+    for ln in scene.lines:
+        lw = ln.get("width", 3.0) * max(1.0, (lay.font if lay else 20) * 0.05)
+        seg = np.asarray(ln["segments"], float)
+        if ln.get("front") and lay is not None:     # a figure's fixed view: lift it in front of the atoms
+            pts, rad = scene.extent_points()
+            front = float(np.max(v.project(pts)[:, 2] + rad)) + 0.2     # just before the nearest thing
+            seg = seg + v.toward[None, None, :] * (front - seg @ v.toward)[..., None]
+        a = pl.add_mesh(_segments_mesh(seg), color=ln["colour"], line_width=lw)
+        a.GetProperty().SetLighting(False)
+        put(ln["group"], a)
     for mk in scene.markers:
         for p in mk["pos"]:
             sph = pv.Sphere(radius=mk["radius"], center=p, theta_resolution=32, phi_resolution=20)
@@ -542,6 +554,12 @@ def swatch_shapes(shape, x, y, s, colour):
                 ("fill", _circle_pts(x, y, s * 0.43), colour)]
     if shape == "ring":
         return [("line", _circle_pts(x, y, s * 0.45), colour)]
+    if shape == "none":
+        return []
+    if shape == "line":
+        h = max(1.0, s * 0.09)
+        return [("fill", [(x - s * 0.6, y - h), (x + s * 0.6, y - h), (x + s * 0.6, y + h), (x - s * 0.6, y + h)],
+                 colour)]
     if shape == "arrow":
         return [("fill", [(x - s * 0.6, y - s * 0.08), (x + s * 0.15, y - s * 0.08), (x + s * 0.15, y - s * 0.25),
                           (x + s * 0.6, y), (x + s * 0.15, y + s * 0.25), (x + s * 0.15, y + s * 0.08),
@@ -660,24 +678,34 @@ def display_list(scene, lay):
         q = lay.to_px(v, scene.atom_pos)
         for k in range(len(q)):
             items.append(dict(kind="ball", x=q[k, 0], y=q[k, 1], r=scene.atom_radius[k] * lay.scale,
-                              colour=scene.colours[scene.atom_colour[k]], depth=q[k, 2], opacity=1.0))
+                              colour=scene.colours[scene.atom_colour[k]], depth=q[k, 2], opacity=1.0, atom=k))
     for m in scene.cut_meshes:
         _mesh_items(items, lay, v, m["points"], m["faces"], m["colour"], 1.0, L)
-    if scene.bonds is not None:
-        a = lay.to_px(v, scene.bonds[:, 0])
-        b = lay.to_px(v, scene.bonds[:, 1])
-        w = 2 * scene.bond_radius * lay.scale
+    if scene.bonds is not None and len(scene.bonds):
+        for seg, ends, pair in bond_segments(scene):
+            a = lay.to_px(v, seg)
+            near = float(lay.to_px(v, ends)[:, 2].max())
+            if np.hypot(*(a[1, :2] - a[0, :2])) < 0.5:
+                continue                # end-on: hidden by the nearer ball
+            # painted just before the nearer ball it ends in (after the farther one)
+            items.append(dict(kind="line", pts=[(a[0, 0], a[0, 1]), (a[1, 0], a[1, 1])],
+                              width=2 * scene.bond_radius * lay.scale, colour=palette.ROLE_COLOURS["bond"],
+                              depth=near, opacity=1.0, order=-1, cap="butt", ends=pair))
+    for ln in scene.lines:
+        seg = np.asarray(ln["segments"], float)
+        a = lay.to_px(v, seg[:, 0])
+        b = lay.to_px(v, seg[:, 1])
         for k in range(len(a)):
-            items.append(dict(kind="line", pts=[(a[k, 0], a[k, 1]), (b[k, 0], b[k, 1])], width=w,
-                              colour=palette.ROLE_COLOURS["bond"], depth=(a[k, 2] + b[k, 2]) / 2 - 1e-3,
-                              opacity=1.0))
+            items.append(dict(kind="line", pts=[(a[k, 0], a[k, 1]), (b[k, 0], b[k, 1])],
+                              width=max(2.0, lay.font * 0.05 * ln.get("width", 3.0)), colour=ln["colour"],
+                              depth=np.inf if ln.get("front") else max(a[k, 2], b[k, 2]), opacity=1.0))
     if scene.cell_edges is not None:
         a = lay.to_px(v, scene.cell_edges[:, 0])
         b = lay.to_px(v, scene.cell_edges[:, 1])
         for k in range(len(a)):
             items.append(dict(kind="line", pts=[(a[k, 0], a[k, 1]), (b[k, 0], b[k, 1])],
                               width=max(1.5, lay.font * 0.11), colour=palette.ROLE_COLOURS["cell"],
-                              depth=max(a[k, 2], b[k, 2]), opacity=1.0))
+                              depth=(a[k, 2] + b[k, 2]) / 2, order=-1, opacity=1.0))
     for s in scene.overlay_spheres:
         q = lay.to_px(v, s["pos"])
         rr = np.broadcast_to(s["radius"], (len(q),))
@@ -697,8 +725,36 @@ def display_list(scene, lay):
         for k in range(len(q)):
             items.append(dict(kind="ring", x=q[k, 0], y=q[k, 1], r=mk["radius"] * lay.scale, colour=mk["colour"],
                               depth=q[k, 2], opacity=1.0, width=max(2.0, lay.font * 0.15)))
-    items.sort(key=lambda it: it["depth"])
+    items.sort(key=lambda it: (it["depth"], it.get("order", 0)))
     return items
+
+
+def bond_segments(scene):
+    """The visible part of each stick, (segment (2, 3), its two ball centres
+    (2, 3), the two balls' indices): from where the stick leaves one ball to where it enters the other
+    (the circle where a cylinder of the stick's radius meets each sphere),
+    so a flat drawing never paints a stick across the ball it ends in."""
+    out = []
+    if scene.bond_atoms is None:
+        ends = [(None, None)] * len(scene.bonds)
+    else:
+        ends = scene.bond_atoms
+    rb = scene.bond_radius
+    for (i, j), (p, q) in zip(ends, scene.bonds):
+        d = q - p
+        L = float(np.linalg.norm(d))
+        if L < 1e-9:
+            continue
+        u = d / L
+        ri = 0.0 if i is None else float(scene.atom_radius[i])
+        rj = 0.0 if j is None else float(scene.atom_radius[j])
+        si = np.sqrt(max(ri * ri - rb * rb, 0.0))
+        sj = np.sqrt(max(rj * rj - rb * rb, 0.0))
+        if si + sj >= L:
+            continue                    # the balls overlap: no stick shows
+        a, b = p + u * si, q - u * sj
+        out.append((np.array([a, b]), np.array([p, q]), (i, j)))
+    return out
 
 
 def _mesh_items(items, lay, v, points, faces, colour, opacity, L, stroke=None, flat=False):
@@ -728,7 +784,6 @@ def svg_bytes(items, lay, transparent=False):
     W, H = lay.W, lay.H
     out = [f'<?xml version="1.0" encoding="UTF-8"?>\n<svg xmlns="http://www.w3.org/2000/svg" '
            f'width="{W}" height="{H}" viewBox="0 0 {W} {H}" font-family="Helvetica, Arial, sans-serif">']
-    defs = {}
     body = []
     if not transparent:
         body.append(f'<rect x="0" y="0" width="{W}" height="{H}" fill="{S.BACKGROUND}"/>')
@@ -736,8 +791,11 @@ def svg_bytes(items, lay, transparent=False):
         k = it["kind"]
         op = f' fill-opacity="{it["opacity"]:.3f}"' if it["opacity"] < 1 else ""
         if k == "ball":
-            gid = defs.setdefault(it["colour"], f"g{len(defs)}")
-            body.append(f'<circle cx="{it["x"]:.2f}" cy="{it["y"]:.2f}" r="{it["r"]:.2f}" fill="url(#{gid})"{op}/>')
+            discs = "".join(f'<circle cx="{cx:.2f}" cy="{cy:.2f}" r="{rr:.2f}" fill="{c}" stroke="none"/>'
+                            for cx, cy, rr, c in ball_discs(it["x"], it["y"], it["r"], it["colour"]))
+            if it["opacity"] < 1:
+                discs = f'<g opacity="{it["opacity"]:.3f}">{discs}</g>'
+            body.append(discs)
         elif k == "ring":
             body.append(f'<circle cx="{it["x"]:.2f}" cy="{it["y"]:.2f}" r="{it["r"]:.2f}" fill="none" '
                         f'stroke="{it["colour"]}" stroke-width="{it["width"]:.2f}"/>')
@@ -748,25 +806,25 @@ def svg_bytes(items, lay, transparent=False):
         elif k == "line":
             (x0, y0), (x1, y1) = it["pts"]
             body.append(f'<line x1="{x0:.2f}" y1="{y0:.2f}" x2="{x1:.2f}" y2="{y1:.2f}" stroke="{it["colour"]}" '
-                        f'stroke-width="{it["width"]:.2f}" stroke-linecap="round"/>')
+                        f'stroke-width="{it["width"]:.2f}" stroke-linecap="{it.get("cap", "round")}"/>')
         elif k == "arrow":
             for poly in _arrow_2d(it):
                 pts = " ".join(f"{x:.2f},{y:.2f}" for x, y in poly)
-                body.append(f'<polygon points="{pts}" fill="{it["colour"]}"/>')
+                body.append(f'<polygon points="{pts}" fill="{it["colour"]}" stroke="none"/>')
     # annotations
     s = lay.legend_font * 1.1
     for lab, col, shape, x, y in lay.legend:
         for kind, pts, c in swatch_shapes(shape, x, y, s, col):
             p = " ".join(f"{a:.2f},{b:.2f}" for a, b in pts)
             if kind == "fill":
-                body.append(f'<polygon points="{p}" fill="{c}"/>')
+                body.append(f'<polygon points="{p}" fill="{c}" stroke="none"/>')
             else:
                 body.append(f'<polygon points="{p}" fill="none" stroke="{c}" stroke-width="{max(2.0, s * 0.12):.2f}"/>')
         body.append(f'<text x="{x + lay.legend_font:.2f}" y="{y:.2f}" font-size="{lay.legend_font:.1f}" '
-                    f'dominant-baseline="central" fill="{S.TEXT_COLOUR}">{_esc(lab)}</text>')
+                    f'dominant-baseline="central" fill="{S.TEXT_COLOUR}" stroke="none">{_esc(lab)}</text>')
     for t, x, y in lay.caption:
         body.append(f'<text x="{x:.2f}" y="{y:.2f}" font-size="{lay.caption_font:.1f}" '
-                    f'fill="{S.TEXT_COLOUR}">{_esc(t)}</text>')
+                    f'fill="{S.TEXT_COLOUR}" stroke="none">{_esc(t)}</text>')
     if lay.bar:
         x0, x1, y, L = lay.bar
         lw = max(2.0, lay.font * 0.16)
@@ -775,17 +833,31 @@ def svg_bytes(items, lay, transparent=False):
                     f'M{x1:.2f},{y - tick:.2f} V{y + tick:.2f}" stroke="{S.TEXT_COLOUR}" '
                     f'stroke-width="{lw:.2f}" fill="none"/>')
         body.append(f'<text x="{(x0 + x1) / 2:.2f}" y="{y - tick - lay.font * 0.25:.2f}" '
-                    f'font-size="{lay.font:.1f}" text-anchor="middle" fill="{S.TEXT_COLOUR}">{_esc(S.fmt_length(L))}</text>')
-    out.append("<defs>")
-    for col, gid in defs.items():
-        out.append(f'<radialGradient id="{gid}" cx="0.5" cy="0.5" r="0.5" fx="0.36" fy="0.32">'
-                   f'<stop offset="0" stop-color="{_lighter(col, 0.55)}"/>'
-                   f'<stop offset="0.55" stop-color="{col}"/>'
-                   f'<stop offset="1" stop-color="{_darker(col, 0.62)}"/></radialGradient>')
-    out.append("</defs>")
+                    f'font-size="{lay.font:.1f}" text-anchor="middle" fill="{S.TEXT_COLOUR}" stroke="none">{_esc(S.fmt_length(L))}</text>')
     out.extend(body)
     out.append("</svg>\n")
     return "\n".join(out).encode("utf-8")
+
+
+#: Shading of a ball in the vector files: (shift toward the highlight, colour
+#: change) per flat disc, rim first.  Flat discs rather than an SVG gradient:
+#: some converters (ImageMagick's built-in SVG reader among them) paint every
+#: gradient black, and flat fills look the same in every program.
+BALL_SHADES = ((0.0, ("darker", 0.62)), (0.06, ("darker", 0.74)), (0.13, ("darker", 0.86)),
+               (0.22, ("mid", 1.0)), (0.34, ("lighter", 0.14)), (0.47, ("lighter", 0.28)),
+               (0.61, ("lighter", 0.42)), (0.76, ("lighter", 0.56)))
+BALL_HIGHLIGHT = np.array([-0.36, -0.42])     # toward the key light (top left), in ball radii
+
+
+def ball_discs(x, y, r, colour):
+    """(cx, cy, r, colour) of the flat discs that draw one shaded ball: each
+    smaller disc shifted toward the highlight and lighter, all inside the rim."""
+    out = []
+    for t, (how, f) in BALL_SHADES:
+        c = colour if how == "mid" else (_darker(colour, f) if how == "darker" else _lighter(colour, f))
+        off = BALL_HIGHLIGHT * r * t / np.linalg.norm(BALL_HIGHLIGHT) * 0.9
+        out.append((x + off[0], y + off[1], r * (1 - t), c))
+    return out
 
 
 def _arrow_2d(it):
@@ -857,13 +929,15 @@ def pdf_bytes(items, lay, transparent=False):
                        f"{poly(it['pts'])} B Q")
         elif k == "line":
             (x0, y0), (x1, y1) = it["pts"]
-            ops.append(f"q {rgb(it['colour'])} RG {it['width']:.2f} w 1 J {x0:.2f} {Y(y0):.2f} m {x1:.2f} {Y(y1):.2f} l S Q")
+            cap = 0 if it.get("cap") == "butt" else 1
+            ops.append(f"q {rgb(it['colour'])} RG {it['width']:.2f} w {cap} J {x0:.2f} {Y(y0):.2f} m {x1:.2f} {Y(y1):.2f} l S Q")
         elif k == "arrow":
             for pp in _arrow_2d(it):
                 ops.append(f"q {rgb(it['colour'])} rg {poly(pp)} f Q")
     s = lay.legend_font * 1.1
 
     def text(t, x, y, size, anchor="left"):
+        t = t.replace("\u03a3", "Sigma ")        # the base-14 Helvetica has no Greek
         enc = t.encode("latin-1", "replace").decode("latin-1")
         enc = enc.replace("\\", "\\\\").replace("(", "\\(").replace(")", "\\)")
         if anchor == "middle":

@@ -86,6 +86,65 @@ def make_view(crystal, view="[001]", up=None):
     return View(t, up_vec, right, label, up_label)
 
 
+def _defect_records(crystal, kind):
+    return [d for d in ((crystal.metadata or {}).get("defects") or []) if d.get("kind") == kind]
+
+
+def auto_view(crystal, slip=None):
+    """(view, up) the figure uses when the user named no view: along the
+    dislocation line (glide-plane normal up) for a dislocation crystal, an
+    oblique view of the slip system (loading axis up) when ``slip`` (the
+    slip analysis' dict) is given, else [001] with the default up."""
+    if slip:
+        try:
+            return slip_view(crystal, slip)
+        except UserError:
+            pass
+    for d in _defect_records(crystal, "dislocation"):
+        line = d.get("line_direction")
+        orient = d.get("orient") or []
+        if line:
+            up = orient[1] if len(orient) == 3 and orient[2] == line else None
+            return str(line), (str(up) if up else None)
+    return "[001]", None
+
+
+def slip_view(crystal, slip, max_index=3, tilt_deg=25.0):
+    """A low-index view of a slip system: across the loading axis and the
+    slip direction (both then show near full length), with the slip plane
+    tilted about ``tilt_deg`` out of the line of sight so it reads as a
+    plane, not an edge.  Returns (view text, up text = the loading axis)."""
+    from ..lattice import format_indices, parse_indices, plane_normal
+
+    axis_txt = slip.get("load_axis")
+    planes, dirs = slip.get("planes") or [], slip.get("directions") or []
+    if not (axis_txt and planes and dirs):
+        raise UserError("the slip analysis gave no slip system to look at")
+    a, _ = direction(crystal, axis_txt, "slip-axis")
+    d, _ = direction(crystal, dirs[0], "direction")
+    nrm = plane_normal(_ref_cell(crystal), parse_indices(str(planes[0]), kind="plane"))
+    nrm = nrm / np.linalg.norm(nrm)
+    rng = np.arange(-max_index, max_index + 1)
+    uvw = np.array(list(itertools.product(rng, rng, rng)), float)
+    uvw = uvw[np.any(uvw != 0, axis=1)]
+    g = np.gcd.reduce(np.abs(uvw).astype(int), axis=1)
+    uvw = uvw[g == 1]
+    t = uvw @ _ref_cell(crystal)
+    t /= np.linalg.norm(t, axis=1)[:, None]
+    tilt = np.arcsin(np.clip(np.abs(t @ nrm), 0, 1))
+    cost = (2.0 * (tilt - math.radians(tilt_deg)) ** 2 + (t @ a) ** 2 + (t @ d) ** 2
+            + 0.004 * np.abs(uvw).sum(axis=1))
+    cost[np.abs(t @ a) > math.cos(math.radians(50))] = np.inf        # keep the axis well across the view
+    cost[tilt < math.radians(12)] = np.inf                          # never the plane edge-on
+    if not np.isfinite(cost).any():
+        raise UserError("no low-index view shows this slip system")
+    k = int(np.argmin(cost))
+    best = uvw[k].astype(int)
+    if best[np.nonzero(best)[0][0]] < 0:
+        best = -best
+    return format_indices(best), str(axis_txt)
+
+
 # ---------------------------------------------------------------- the scene
 @dataclass
 class Scene:
@@ -96,6 +155,7 @@ class Scene:
     atom_src: np.ndarray = None                          # index of the crystal atom drawn
     atom_frac_shown: np.ndarray = None                   # share of the atom inside the cell (cell-cut)
     bonds: np.ndarray = None                             # (K, 2, 3)
+    bond_atoms: np.ndarray = None                        # (K, 2) index into atom_pos of each stick's ends
     bond_radius: float = 0.0
     cell_edges: np.ndarray = None                        # (12, 2, 3)
     cut_meshes: list = field(default_factory=list)       # dict(points, faces, colour)
@@ -103,6 +163,7 @@ class Scene:
     meshes: list = field(default_factory=list)           # dict(points, faces, colour, opacity, group, edges)
     arrows: list = field(default_factory=list)           # dict(start, vector, colour, label, group, double)
     markers: list = field(default_factory=list)          # dict(pos, radius, colour, group) empty outline spheres
+    lines: list = field(default_factory=list)            # dict(segments (K, 2, 3), colour, width, group, label)
     legend: list = field(default_factory=list)           # (label, hex, shape)
     caption: list = field(default_factory=list)          # lines
     info: dict = field(default_factory=dict)             # numbers for picking and captions
@@ -119,7 +180,7 @@ class Scene:
             g.add("bonds")
         if self.cell_edges is not None:
             g.add("cell")
-        for lst in (self.overlay_spheres, self.meshes, self.arrows, self.markers):
+        for lst in (self.overlay_spheres, self.meshes, self.arrows, self.markers, self.lines):
             for item in lst:
                 g.add(item["group"])
         return sorted(g)
@@ -146,6 +207,9 @@ class Scene:
         for mk in self.markers:
             pts.append(mk["pos"])
             rad.append(np.full(len(mk["pos"]), mk["radius"]))
+        for ln in self.lines:
+            pts.append(np.asarray(ln["segments"], float).reshape(-1, 3))
+            rad.append(np.zeros(2 * len(ln["segments"])))
         if not pts:
             return np.zeros((1, 3)), np.zeros(1)
         return np.vstack(pts), np.concatenate(rad)
@@ -250,9 +314,63 @@ def hull_mesh(points):
 
 # ---------------------------------------------------------------- building
 def _nn_distance(crystal):
-    from ..analysis.neighbours import nearest_neighbour_distance
+    """The crystal's nearest-neighbour distance for sticks and shells.
 
-    return nearest_neighbour_distance(crystal)
+    Not the shortest distance present: one interstitial, a dislocation core
+    or a grain boundary brings a few atoms closer than the lattice allows,
+    and a cut-off scaled from them would drop every other stick.  The
+    lattice's own value is used (metadata, else the conventional cell),
+    checked against the median nearest-neighbour distance over the atoms,
+    which stands in for it for imported structures without a lattice."""
+    typical = median_nn_distance(crystal)
+    lat = lattice_nn_distance(crystal)
+    if lat is not None and (not np.isfinite(typical) or 0.75 * typical <= lat <= 1.3 * typical):
+        return lat
+    return typical
+
+
+def lattice_nn_distance(crystal):
+    """Nearest-neighbour distance of the perfect lattice the crystal was made from, or None."""
+    v = (crystal.metadata or {}).get("nearest_neighbour_distance")
+    try:
+        v = float(v)
+        if np.isfinite(v) and v > 0:
+            return v
+    except (TypeError, ValueError):
+        pass
+    if crystal.lattice is None:
+        return None
+    from ..analysis.neighbours import nearest_neighbour_distance
+    from ..analysis.properties import conventional
+
+    try:
+        v = float(nearest_neighbour_distance(conventional(crystal)))
+    except (UserError, KeyError, ValueError, TypeError):     # no usable basis: fall back to the atoms
+        return None
+    return v if np.isfinite(v) and v > 0 else None
+
+
+def median_nn_distance(crystal, sample=20000):
+    """Median over the atoms (a sample of up to ``sample``) of each atom's
+    nearest-neighbour distance, periodic images included."""
+    from scipy.spatial import cKDTree
+
+    from ..analysis.neighbours import with_images
+
+    n = len(crystal)
+    if n < 2 and not any(crystal.pbc):
+        return float("nan")
+    idx = np.arange(n) if n <= sample else np.linspace(0, n - 1, sample).astype(int)
+    cutoff = max(2.0 * (crystal.volume / max(n, 1)) ** (1 / 3), 1.0) if crystal.volume > 0 else 5.0
+    for _ in range(6):
+        pts, _ = with_images(crystal.positions, crystal.cell, crystal.pbc, cutoff)
+        d, _ = cKDTree(pts).query(crystal.positions[idx], k=2, distance_upper_bound=cutoff)
+        d = d[:, 1]
+        d = d[np.isfinite(d) & (d > 1e-6)]
+        if len(d) >= 0.5 * len(idx):
+            return float(np.median(d))
+        cutoff *= 2
+    return float("nan")
 
 
 def _neighbour_points(crystal, centre, cutoff):
@@ -363,14 +481,21 @@ def classify_layers(crystal, normal_text=None):
     return remap[cls], label
 
 
-def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites=False, polyhedra=None,
+def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=False, polyhedra=None,
                 planes=(), directions=(), layers=None, defects=True, slip_axis=None, cell=None,
                 complete_cell=True):
     """Everything a figure or the window will draw, as numpy arrays.
 
-    ``polyhedra`` is None, 'coordination', 'sites' or 'both'.  ``layers`` is
-    None, True (the close-packed planes of the lattice) or a plane '(111)'."""
+    ``view`` None picks one (:func:`auto_view`: along a dislocation's line,
+    obliquely across a slip system, else [001]).  ``polyhedra`` is None,
+    'coordination', 'sites' or 'both'.  ``layers`` is None, True (the
+    close-packed planes of the lattice) or a plane '(111)'."""
     st = S.get_style(style) if isinstance(style, str) else style
+    slip_info = _slip(crystal, slip_axis) if slip_axis else None
+    if view is None:
+        view, auto_up = auto_view(crystal, slip_info)
+        if up is None:
+            up = auto_up
     v = make_view(crystal, view, up)
     sc = Scene(view=v, crystal=crystal)
     n = len(crystal)
@@ -426,13 +551,15 @@ def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites
         sc.atom_radius = radii[src] * st.atom_scale
         sc.atom_colour = cidx[src]
     if use_cell:
-        sc.cell_edges = cell_edges(cell_mat)
+        sc.cell_edges = outline_edges(crystal)
 
     nn = None
     if st.bonds:
         nn = _nn_distance(crystal)
-        sc.bonds = _bonds(sc.atom_pos, crystal, nn)
+        sc.bond_atoms = _bonds(sc.atom_pos, crystal, nn)
+        sc.bonds = np.stack([sc.atom_pos[sc.bond_atoms[:, 0]], sc.atom_pos[sc.bond_atoms[:, 1]]], axis=1)
         sc.bond_radius = S.BOND_RADIUS * float(np.min(radii))
+        sc.info["bond_cutoff_A"] = round(nn * (1 + S.BOND_TOLERANCE), 4)
 
     # ------------------------------------------------------------ overlays
     if sites or polyhedra in ("sites", "both"):
@@ -440,6 +567,9 @@ def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites
     else:
         site_list = []
     if sites:
+        # sites share the atoms' drawing scale, so a hole never looks bigger than
+        # it is next to the atoms around it (full size in the true-radius styles)
+        site_scale = st.atom_scale if st.atom_scale < 1 else 1.0
         kinds = {}
         for s in site_list:
             kinds.setdefault(s.kind, []).append(s)
@@ -451,9 +581,13 @@ def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites
             pos = np.vstack([pos, pos[bi] + bs @ cell_mat]) if len(bi) else pos
             rad = np.concatenate([rad, rad[bi]]) if len(bi) else rad
             col = palette.ROLE_COLOURS.get(f"site-{kind}", palette.ROLE_COLOURS["site-other"])
-            sc.overlay_spheres.append(dict(pos=pos, radius=rad, colour=col, opacity=1.0, group="sites",
-                                           label=f"{kind} site (free radius {rad[0]:.3f} \u00c5)"))
+            note = " (drawn at the atoms' scale)" if site_scale < 1 else ""
+            sc.overlay_spheres.append(dict(pos=pos, radius=rad * site_scale, colour=col, opacity=1.0, group="sites",
+                                           label=f"{kind} site (free radius {rad[0]:.3f} \u00c5){note}",
+                                           true_radius=rad))
             sc.legend.append((f"{kind} site, r = {rad[0]:.3f} \u00c5", col, "ball"))
+        if kinds and site_scale < 1:
+            sc.legend.append((f"sites drawn at the atoms' scale (x {site_scale:g})", S.TEXT_COLOUR, "none"))
     if polyhedra in ("coordination", "both"):
         nn = nn or _nn_distance(crystal)
         special = crystal.roles != ROLES.index("host")
@@ -487,11 +621,9 @@ def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites
                                   edges=True, label=f"{s.kind} site polyhedron ({len(shell)} neighbours)"))
             sc.legend.append((f"{s.kind} site polyhedron ({len(shell)} corners)", col, "patch"))
 
-    slip_info = None
     planes = list(planes or [])
     directions = [(d, None) for d in (directions or [])]
-    if slip_axis:
-        slip_info = _slip(crystal, slip_axis)
+    if slip_info is not None:
         planes_s = slip_info.get("planes") or []
         dirs_s = slip_info.get("directions") or []
         if planes_s:
@@ -513,7 +645,22 @@ def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites
         plane_polys.append(poly)
         sc.meshes.append(dict(points=poly, faces=fan_faces(len(poly)), colour=palette.ROLE_COLOURS["plane"],
                               opacity=0.5, group="planes", edges=True, label=f"plane {ind}"))
-        sc.legend.append((f"plane {ind}", palette.ROLE_COLOURS["plane"], "patch"))
+        if abs(float(v.toward @ (nrm / np.linalg.norm(nrm)))) < EDGE_ON:
+            # seen edge-on the patch has no area: draw its rim as a line instead
+            # its trace: the polygon's longest chord on the page, a little longer than the cell, drawn over the atoms
+            # (``front``) since atoms sit on the plane and would hide it
+            q2 = v.project(poly)[:, :2]
+            dd = np.linalg.norm(q2[:, None] - q2[None], axis=2)
+            i, j = np.unravel_index(np.argmax(dd), dd.shape)
+            p0, p1 = poly[i], poly[j]
+            ext = 0.08 * (p1 - p0)
+            sc.lines.append(dict(segments=np.array([[p0 - ext, p1 + ext]]), front=True,
+                                 colour=S.darker_hex(palette.ROLE_COLOURS["plane"], 0.75),
+                                 width=4.0, group="planes", label=f"plane {ind} (edge-on)"))
+            sc.legend.append((f"plane {ind}, seen edge-on", S.darker_hex(palette.ROLE_COLOURS["plane"], 0.75),
+                              "line"))
+        else:
+            sc.legend.append((f"plane {ind}", palette.ROLE_COLOURS["plane"], "patch"))
     rmin = float(np.min(sc.atom_radius))
     for dtxt, kind in directions:
         u, lab = direction(crystal, dtxt, "direction")
@@ -532,8 +679,9 @@ def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites
     if slip_info is not None:
         ax, lab = direction(crystal, slip_info.get("load_axis") or slip_axis, "slip-axis")
         lo, hi = crystal.cell.sum(axis=0) / 2, None
-        span = float(np.max(np.linalg.norm(cell_edges(cell_mat)[:, 1] - cell_edges(cell_mat)[:, 0], axis=1)))
-        span = max(span * 1.6, 4 * np.max(radii))
+        corners = np.array(list(itertools.product((0, 1), repeat=3)), float) @ cell_mat
+        span = float(np.max(np.linalg.norm(corners[:, None] - corners[None], axis=2)))    # longest diagonal
+        span = max(span * 1.3, 4 * np.max(radii))
         sc.arrows.append(dict(start=lo - ax * span / 2, vector=ax * span, colour=palette.ROLE_COLOURS["load-axis"],
                               label=f"load {lab}", group="slip", radius=max(0.1, 0.28 * rmin), double=True))
         sc.legend.append((f"loading axis {lab}", palette.ROLE_COLOURS["load-axis"], "arrow"))
@@ -541,19 +689,51 @@ def build_scene(crystal, style="ball-and-stick", view="[001]", up=None, *, sites
 
     # defects
     if defects:
-        vac = []
-        for d in crystal.metadata.get("defects", []) or []:
-            if d.get("kind") == "vacancy" and d.get("positions") is not None:
-                vac.extend(np.asarray(d["positions"], float).reshape(-1, 3).tolist())
+        vac = vacancy_positions(crystal)
         if vac:
             host_r = float(np.median(radii[crystal.roles == 0])) if (crystal.roles == 0).any() else float(radii.max())
             sc.markers.append(dict(pos=np.array(vac), radius=host_r * st.atom_scale,
                                    colour=palette.ROLE_COLOURS["vacancy"], group="defects"))
             sc.legend.append((f"vacancy ({len(vac)})", palette.ROLE_COLOURS["vacancy"], "ring"))
 
-    sc.info.update(style=st.name, view=v.label, up=v.up_label)
+    sc.info.update(style=st.name, view=v.label, up=v.up_label, view_text=str(view), up_text=up)
     sc.caption = caption_lines(crystal, v, st, slip_info)
     return sc
+
+
+def vacancy_positions(crystal):
+    """Empty lattice sites the defect records name: vacancies and the sites
+    Frenkel pairs left behind (their interstitials are atoms, drawn as such)."""
+    vac = []
+    for d in (crystal.metadata or {}).get("defects", []) or []:
+        if d.get("kind") in ("vacancy", "frenkel_pair") and d.get("positions") is not None:
+            vac.extend(np.asarray(d["positions"], float).reshape(-1, 3).tolist())
+    return vac
+
+
+def outline_edges(crystal):
+    """Edges of the cell outline.  Along a non-periodic axis (free surfaces,
+    a dislocation's cross-section) the cell box means nothing: the outline
+    keeps only the edges running along periodic axes, placed at the atoms'
+    extent across the free ones; with fewer than two periodic axes there is
+    no outline (None)."""
+    pbc = [bool(x) for x in crystal.pbc]
+    if all(pbc):
+        return cell_edges(crystal.cell)
+    if sum(pbc) < 2 or len(crystal) == 0:
+        return None
+    f = crystal.frac
+    lo = [0.0 if pbc[k] else float(f[:, k].min()) for k in range(3)]
+    hi = [1.0 if pbc[k] else float(f[:, k].max()) for k in range(3)]
+    edges = []
+    for c in itertools.product((0, 1), repeat=3):
+        for k in range(3):
+            if c[k] == 0 and pbc[k]:
+                a = np.array([hi[j] if c[j] else lo[j] for j in range(3)])
+                b = a.copy()
+                b[k] = hi[k]
+                edges.append((a @ crystal.cell, b @ crystal.cell))
+    return np.array(edges)
 
 
 def _share_table(crystal, src, share):
@@ -577,7 +757,10 @@ def _bonds(pos, crystal, nn):
     pairs = tree.query_pairs(cutoff, output_type="ndarray")
     if len(pairs) > S.MAX_BONDS:
         raise UserError(f"ball-and-stick would draw {len(pairs):,} sticks; use --style space-filling or lattice")
-    return np.stack([pos[pairs[:, 0]], pos[pairs[:, 1]]], axis=1)
+    # pairs closer than the lattice allows (an interstitial and its cage) are
+    # kept: the cut-off is an upper bound only; coincident points are not sticks
+    d = np.linalg.norm(pos[pairs[:, 0]] - pos[pairs[:, 1]], axis=1)
+    return pairs[d > 1e-6].astype(np.int64).reshape(-1, 2)
 
 
 def _get_sites(crystal):
@@ -663,8 +846,47 @@ def sphere_mesh(radius, res=36):
     return pv.Sphere(radius=float(radius), theta_resolution=res, phi_resolution=max(8, res * 2 // 3)).triangulate()
 
 
+#: |cos| between the line of sight and a plane's normal below which the plane is drawn as a line.
+EDGE_ON = 0.06
+
 _PLURAL = {"vacancy": ("vacancy", "vacancies"), "substitution": ("substitution", "substitutions"),
            "interstitial": ("interstitial", "interstitials"), "frenkel_pair": ("Frenkel pair", "Frenkel pairs")}
+
+
+def defect_label(d):
+    """A caption phrase for one ``metadata['defects']`` record, from the facts
+    the defect builders record (crystalview/defects/*.py)."""
+    kind = d.get("kind")
+    if kind == "stacking" and d.get("sequence"):
+        return f"stacking {d.get('name') + ' ' if d.get('name') else ''}{d['sequence']}"
+    if kind == "tilt_boundary":
+        sig = d.get("sigma")
+        head = f"\u03a3{sig} " if sig else ""
+        txt = f"{head}{d.get('plane', '')}{d.get('axis', '')} tilt boundary"
+        if d.get("misorientation_deg") is not None:
+            txt += f", {float(d['misorientation_deg']):.2f}\u00b0 misorientation"
+        return txt
+    if kind == "dislocation":
+        txt = f"{d.get('character', '')} dislocation".strip()
+        if d.get("burgers_vector"):
+            txt += f", b = {d['burgers_vector']}"
+        if d.get("line_direction"):
+            txt += f", line {d['line_direction']}"
+        if d.get("glide_plane"):
+            txt += f", glide plane {d['glide_plane']}"
+        return txt
+    if kind == "surface":
+        txt = f"{d.get('plane', '')} slab".strip()
+        if d.get("layers"):
+            txt += f", {d['layers']} layers"
+        if d.get("vacuum_A"):
+            txt += f", {float(d['vacuum_A']):g} \u00c5 vacuum"
+        return txt
+    if d.get("count") is not None and kind in _PLURAL:
+        one, many = _PLURAL[kind]
+        what = f"{d['element']} " if d.get("element") and kind != "vacancy" else ""
+        return f"{d['count']} {what}{one if d['count'] == 1 else many}"
+    return str(kind).replace("_", " ")
 
 
 def caption_lines(crystal, view, st, slip_info=None):
@@ -691,19 +913,13 @@ def caption_lines(crystal, view, st, slip_info=None):
         second += f" ({' x '.join(str(x) for x in rep)} cells)"
     defects = []
     for d in md.get("defects", []) or []:
-        label = str(d.get("kind"))
-        if d.get("kind") == "stacking" and d.get("sequence"):
-            label = f"stacking {d.get('name') + ' ' if d.get('name') else ''}{d['sequence']}"
-        elif d.get("count") is not None and d.get("kind") in _PLURAL:
-            one, many = _PLURAL[d["kind"]]
-            what = f"{d['element']} " if d.get("element") and d["kind"] != "vacancy" else ""
-            label = f"{d['count']} {what}{one if d['count'] == 1 else many}"
-        if label not in defects:
+        label = defect_label(d)
+        if label and label not in defects:
             defects.append(label)
-    if defects:
-        second += ", defects: " + ", ".join(defects)
     second += f"; view along {view.label}, {view.up_label} up; {st.name}"
     lines.append(second)
+    if defects:
+        lines.append("defects: " + "; ".join(defects))
     if slip_info and slip_info.get("label"):
         lines.append(str(slip_info["label"]))
     return lines

@@ -102,5 +102,11 @@ def round_length(target):
     return best
 
 
+def darker_hex(hexc, f):
+    """'#rrggbb' with every channel scaled by ``f`` (< 1 darker)."""
+    h = hexc.lstrip("#")
+    return "#" + "".join("%02x" % int(round(min(255, int(h[i:i + 2], 16) * f))) for i in (0, 2, 4))
+
+
 def fmt_length(x):
     return f"{x:g} \u00c5"

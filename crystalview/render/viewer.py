@@ -63,7 +63,7 @@ def no_display_message(spec="SPEC"):
             f"'crystalview render {spec} -o figure.png'")
 
 
-def show(crystal, view="[001]", style="ball-and-stick", *, up=None, sites=False, polyhedra=None, planes=(),
+def show(crystal, view=None, style="ball-and-stick", *, up=None, sites=False, polyhedra=None, planes=(),
          directions=(), layers=None, defects=True, slip_axis=None, cell=None, legend=True,
          size=(1280, 960)):
     """Open ``crystal`` in a window and wait until it is closed ('q', Esc or
@@ -183,7 +183,7 @@ class Viewer:
     """A crystal in an on-screen window.  ``run()`` hands it to the user;
     ``press``/``click``/``image``/``close`` drive it from code."""
 
-    def __init__(self, crystal, view="[001]", style="ball-and-stick", *, up=None, sites=False, polyhedra=None,
+    def __init__(self, crystal, view=None, style="ball-and-stick", *, up=None, sites=False, polyhedra=None,
                  planes=(), directions=(), layers=None, defects=True, slip_axis=None, cell=None, legend=True,
                  size=(1280, 960)):
         if not has_display():
@@ -193,6 +193,11 @@ class Viewer:
 
         self.crystal = crystal
         self.st = S.get_style(style) if isinstance(style, str) else style
+        if view is None:        # the figure's choice: along a dislocation line, across a slip system
+            from .scene_graph import _slip, auto_view
+
+            view, auto_up = auto_view(crystal, _slip(crystal, slip_axis) if slip_axis else None)
+            up = auto_up if up is None else up
         self.view_text, self.up_text = view, up
         self.size = S.check_size(size)
         self.requests = dict(sites=sites, polyhedra=polyhedra, planes=list(planes or []),
@@ -358,7 +363,9 @@ class Viewer:
         return np.vstack(pts), np.concatenate(rad)
 
     def _vacancies(self):
-        return any(d.get("kind") == "vacancy" for d in (self.crystal.metadata.get("defects") or []))
+        from .scene_graph import vacancy_positions
+
+        return bool(vacancy_positions(self.crystal))
 
     # ---------------------------------------------------------------- overlays
     def _overlay(self, group):
@@ -368,7 +375,7 @@ class Viewer:
         from dataclasses import replace
 
         from . import figure as F
-        from .scene_graph import build_scene, cell_edges
+        from .scene_graph import build_scene, outline_edges
 
         r = self.requests
         if group == "cell":
@@ -376,7 +383,7 @@ class Viewer:
                              defects=False, cell=True)
             sc.atom_pos = None
             sc.legend = []
-            sc.cell_edges = cell_edges(self.crystal.cell)
+            sc.cell_edges = outline_edges(self.crystal)
         elif group == "layers":
             return self._layer_actor()
         else:
@@ -494,7 +501,8 @@ class Viewer:
         for a in getattr(self, "_legend_actors", []):
             self.pl.renderer.RemoveActor(a)
         self._legend_actors = []
-        marks = {"ball": "\u25cf", "ring": "\u25cb", "patch": "\u25a0", "arrow": "\u27a1"}
+        marks = {"ball": "\u25cf", "ring": "\u25cb", "patch": "\u25a0", "arrow": "\u27a1", "line": "\u2014",
+                 "none": " "}
         for k, (lab, col, shape) in enumerate(self.legend_entries()):
             y = -10 - k * FONT * 1.6
             t = self._text(-36, y, "right", "top", FONT, anchor=(1.0, 1.0))
