@@ -587,7 +587,7 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
                                            true_radius=rad))
             sc.legend.append((f"{kind} site, r = {rad[0]:.3f} \u00c5", col, "ball"))
         if kinds and site_scale < 1:
-            sc.legend.append((f"sites drawn at the atoms' scale (x {site_scale:g})", S.TEXT_COLOUR, "none"))
+            sc.legend.append((f"(drawn x {site_scale:g}, as the atoms)", S.TEXT_COLOUR, "none"))
     if polyhedra in ("coordination", "both"):
         nn = nn or _nn_distance(crystal)
         special = crystal.roles != ROLES.index("host")
