@@ -244,11 +244,11 @@ def test_site_spheres_drawn_at_the_atoms_scale():
     oct_r = [s for s in sites if "octahedral" in s["label"]][0]["true_radius"][0]
     # source: Smallman & Ngan, Modern Physical Metallurgy, hole radius ratios: octahedral 0.414 R in fcc
     assert abs(oct_r / R - 0.414) < 0.002
-    assert any("atoms' scale" in e[0] for e in sc.legend)
+    assert any("as the atoms" in e[0] for e in sc.legend)
     full = G.build_scene(c, "space-filling", "[001]", sites=True)
     for s in (s for s in full.overlay_spheres if s["group"] == "sites"):
         assert np.allclose(s["radius"], s["true_radius"])
-    assert not any("atoms' scale" in e[0] for e in full.legend)
+    assert not any("as the atoms" in e[0] for e in full.legend)
 
 
 def test_slip_axis_picks_an_oblique_view():
