@@ -938,8 +938,6 @@ def visible_atoms(uvw, radius, bin_size=None, max_bins=16_000_000):
     keep = np.ones(n, bool)
     if n < 2:
         return keep
-    if len(np.unique(np.round(uvw[:, :2], 3), axis=0)) < 0.2 * n:
-        pass
     r = np.asarray(radius, float)
     if bin_size is None:
         bin_size = float(np.percentile(r, 5)) / 6.0
@@ -960,10 +958,7 @@ def visible_atoms(uvw, radius, bin_size=None, max_bins=16_000_000):
     occluder = r >= R0 * s
     lin = iu[occluder] * nv + iv[occluder]
     zo = z[occluder]
-    order = np.lexsort((zo, lin))          # by bin, then z ascending: the last of each bin is its max
-    lin, zo = lin[order], zo[order]
-    last = np.nonzero(np.r_[lin[1:] != lin[:-1], True])[0]
-    occ.ravel()[lin[last]] = zo[last]
+    np.maximum.at(occ.ravel(), lin, zo)     # the nearest occluder of each bin
     m = int(R0)
     di = np.arange(-m, m + 1)
     foot = ((np.abs(di)[:, None] + 1) ** 2 + (np.abs(di)[None, :] + 1) ** 2) <= R0 ** 2
@@ -980,14 +975,15 @@ def column_front(uvw, radius, eps=1e-3):
     large (same projected centre, nearer the viewer): along a zone axis the
     atoms stand in columns and only the front of each column shows."""
     q = np.round(uvw[:, :2] / eps).astype(np.int64)
-    _, grp = np.unique(q, axis=0, return_inverse=True)
-    grp = grp.ravel()
-    order = np.lexsort((-uvw[:, 2], grp))          # by column, nearest first
-    g, r = grp[order], np.asarray(radius, float)[order]
+    q -= q.min(axis=0)
+    key = q[:, 0] * (int(q[:, 1].max()) + 1) + q[:, 1]      # one integer per projected centre
+    order = np.lexsort((-uvw[:, 2], key))                    # by column, nearest first
+    k, r = key[order], np.asarray(radius, float)[order]
+    first = np.r_[True, k[1:] != k[:-1]]
+    g = np.cumsum(first) - 1
     big = float(r.max()) + 1.0
     shifted = r + g * big
     prev = np.maximum.accumulate(np.r_[-np.inf, shifted[:-1]])
-    first = np.r_[True, g[1:] != g[:-1]]
     keep_sorted = first | (shifted > prev)
     keep = np.empty(len(r), bool)
     keep[order] = keep_sorted
