@@ -269,7 +269,8 @@ def _substitutional(sym, crystal):
         if not limiting:
             code = "compounds"
             main = ("the size and structure rules allow extensive solid solubility, but the electronegativity rule "
-                    "does not: " + why["electronegativity"])
+                    "does not: " + why["electronegativity"] + " (a screening window with exceptions: Ag-Au fails "
+                    "it yet forms one continuous solid solution)")
         else:
             names = [f.replace("atomic ", "").replace("crystal ", "") for f in limiting]
             head = names[0] if len(names) == 1 else " and ".join(names)

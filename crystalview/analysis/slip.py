@@ -466,7 +466,7 @@ def taylor_factor(crystal, families=None):
         base["value"], base["source"] = TAYLOR_FACTORS["pencil"]
     else:
         base["source"] = (f"no tabulated random-texture Taylor factor for {key} with these families; "
-                          f"it depends on the CRSS ratios of the families (and on c/a)")
+                          f"it depends on the CRSS ratios of the families" + (" (and on c/a)" if key == "hcp" else ""))
     return base
 
 

@@ -23,6 +23,10 @@ def run_many(paths, out=None, force=False, quiet=False, debug=False):
     from ..errors import UserError
     from ..scene import load, run_scene
 
+    if out is not None:
+        from ..scene import make_folder
+
+        make_folder(out)            # an unusable --out stops everything, in one line
     status = 0
     results = []
     log = (lambda *a, **k: None) if quiet else (lambda msg: print(msg, flush=True))

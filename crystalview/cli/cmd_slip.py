@@ -55,11 +55,10 @@ def run(args):
     crss = _crss_arg(args.crss)
     res = schmid_factors(c, args.axis, families=args.family, stress=args.stress, crss=crss)
     if args.json:
-        print_json([r.as_dict() for r in res])      # the list stays a list (the JSON contract)
+        rows = [r.as_dict() for r in res]             # the list stays a list (the JSON contract)
         if args.stress is not None or crss:
-            import sys
-
-            sys.stderr.write(CAUTION + "\n")
+            rows = [dict(r, caution=CAUTION) for r in rows]
+        print_json(rows)
         return 0
     _t, axis_label = load_axis(c, args.axis)
     fams = sorted({r.family for r in res}, key=list(FAMILIES).index)
@@ -99,7 +98,7 @@ def run(args):
         lines.append("every Schmid factor is 0: no resolved shear stress on these systems along this axis")
     if len({r.family for r in res}) > 1 and not has_y:
         lines.append("note: the families have different critical resolved shear stresses; this ranking by "
-                     "Schmid factor alone ignores them (give --crss per family, e.g. --crss basal=0.5)")
+                     f"Schmid factor alone ignores them (give --crss per family, e.g. --crss '{res[0].family}=10')")
     nind = independent_slip_systems(c, fams)
     lines.append(f"independent slip systems: {nind} (a grain needs 5 for any shape change, von Mises)")
     tf = taylor_factor(c, fams)
