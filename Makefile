@@ -14,8 +14,10 @@ $(STAMP): pyproject.toml
 	-command -v npm >/dev/null && npm install --no-save --silent gltf-validator@2.0.0-dev.3.10
 	touch $(STAMP)
 
+# make demo regenerates the showcase: it rewrites its own files under exports/<scene>/
+# (crystalview demo on its own refuses to overwrite them without --force)
 demo: $(STAMP)
-	$(BIN)/crystalview demo
+	$(BIN)/crystalview demo --force
 
 test: $(STAMP)
 	$(BIN)/python -m pytest
