@@ -379,3 +379,14 @@ def test_cli_dislocation_default_view(tmp_path):
     import json
     info = json.loads(r.stdout)
     assert info["view"] == "[-1-12]" and info["up"] == "[111]"
+
+
+def test_tilt_boundary_default_view_lays_the_boundary_flat():
+    # common practice: a tilt boundary is shown along its tilt axis, boundary plane edge-on and level
+    from crystalview.render.scene_graph import auto_view
+
+    c = cv.tilt_boundary("Fe", axis="[001]", plane="(310)")
+    rec = [d for d in c.metadata["defects"] if d["kind"] == "tilt_boundary"][0]
+    view, up = auto_view(c)
+    assert view == rec["orient"][2] and up == rec["orient"][1]
+    assert rec["sigma"] == 5

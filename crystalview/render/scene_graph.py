@@ -92,7 +92,8 @@ def _defect_records(crystal, kind):
 
 def auto_view(crystal, slip=None):
     """(view, up) the figure uses when the user named no view: along the
-    dislocation line (glide-plane normal up) for a dislocation crystal, an
+    dislocation line (glide-plane normal up) for a dislocation crystal, along
+    the tilt axis (boundary normal up) for a tilt boundary, an
     oblique view of the slip system (loading axis up) when ``slip`` (the
     slip analysis' dict) is given, else [001] with the default up."""
     if slip:
@@ -106,6 +107,10 @@ def auto_view(crystal, slip=None):
         if line:
             up = orient[1] if len(orient) == 3 and orient[2] == line else None
             return str(line), (str(up) if up else None)
+    for d in _defect_records(crystal, "tilt_boundary"):
+        orient = d.get("orient") or []
+        if len(orient) == 3:           # along the tilt axis, boundary normal up: the boundary lies flat
+            return str(orient[2]), str(orient[1])
     return "[001]", None
 
 
