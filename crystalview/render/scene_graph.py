@@ -499,6 +499,9 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
     slip_info = _slip(crystal, slip_axis) if slip_axis else None
     if view is None:
         view, auto_up = auto_view(crystal, slip_info)
+        if (sites and view == "[001]" and auto_up is None and crystal.lattice is not None
+                and crystal.lattice.family == "cubic"):
+            view, auto_up = "[013]", "[001]"     # along a cube axis the sites hide behind atoms and bonds
         if up is None:
             up = auto_up
     v = make_view(crystal, view, up)
