@@ -531,12 +531,19 @@ def _poly2d(pl, pts_top, H, colour, filled=True, width=2.0):
         pd.SetPolys(cells)
     else:
         pd.SetLines(cells)
+    return _add_actor2d(pl, pd, colour, width)
+
+
+def _add_actor2d(pl, pd, colour, width=None):
+    """Add a flat 2D actor (screen pixels) drawing ``pd`` in one colour."""
+    vtk = _vtk2d()
     m = vtk.vtkPolyDataMapper2D()
     m.SetInputData(pd)
     a = vtk.vtkActor2D()
     a.SetMapper(m)
     a.GetProperty().SetColor(*palette.hex_to_rgb(colour))
-    a.GetProperty().SetLineWidth(width)
+    if width is not None:
+        a.GetProperty().SetLineWidth(width)
     a._keep = pd
     pl.renderer.AddActor(a)
     return a
@@ -608,13 +615,7 @@ def _fan2d(pl, pts, H, colour):
     pd = vtk.vtkPolyData()
     pd.SetPoints(vp)
     pd.SetPolys(cells)
-    m = vtk.vtkPolyDataMapper2D()
-    m.SetInputData(pd)
-    a = vtk.vtkActor2D()
-    a.SetMapper(m)
-    a.GetProperty().SetColor(*palette.hex_to_rgb(colour))
-    a._keep = pd
-    pl.renderer.AddActor(a)
+    _add_actor2d(pl, pd, colour)
 
 
 # ================================================================ PNG
