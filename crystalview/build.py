@@ -221,9 +221,10 @@ def lattice_period(direction, centerings):
     return best
 
 
-def _fill(conv_cell, conv_frac, conv_species, P):
+def _fill(conv_cell, conv_frac, conv_species, P, return_index=False):
     """Atoms of the supercell whose rows (in conventional fractional units) are
-    P, by enumerating conventional cells over its bounding box."""
+    P, by enumerating conventional cells over its bounding box (with
+    ``return_index``, also the basis entry each atom comes from)."""
     P = np.asarray(P, float)
     vol_ratio = abs(np.linalg.det(P))
     expected = int(round(vol_ratio * len(conv_frac)))
@@ -233,17 +234,21 @@ def _fill(conv_cell, conv_frac, conv_species, P):
     grid = np.stack(np.meshgrid(*[np.arange(l, h) for l, h in zip(lo, hi)], indexing="ij"), -1).reshape(-1, 3)
     fc = (grid[:, None, :] + conv_frac[None, :, :]).reshape(-1, 3)
     sp = np.tile(conv_species, len(grid))
+    src = np.tile(np.arange(len(conv_frac)), len(grid))
     fn = fc @ np.linalg.inv(P)
     eps = 1e-7
     keep = np.all((fn > -eps) & (fn < 1 - eps), axis=1)
     fn = fn[keep]
     fn[np.abs(fn) < eps] = 0.0
     sp = sp[keep]
+    src = src[keep]
     if len(fn) != expected:
         raise UserError(f"the supercell rows {P.tolist()} are not lattice translations of this structure "
                         f"(found {len(fn)} atoms, expected {expected}); use integer rows or orientation "
                         f"directions that are lattice vectors")
     order = np.lexsort((fn[:, 0], fn[:, 1], fn[:, 2]))
+    if return_index:
+        return fn[order], sp[order], src[order]
     return fn[order], sp[order]
 
 
@@ -262,7 +267,8 @@ def _tile(cell, frac, species, repeat):
 
 # ------------------------------------------------------------------ build()
 def build(spec, phase=None, *, element=None, elements=None, lattice=None, a=None, c=None,
-          repeat=None, supercell=None, orient=None, max_atoms=None) -> Crystal:
+          repeat=None, supercell=None, orient=None, max_atoms=None, seed=0, block=None,
+          tolerance=None) -> Crystal:
     """Build a crystal.
 
     Parameters
@@ -280,14 +286,28 @@ def build(spec, phase=None, *, element=None, elements=None, lattice=None, a=None
     orient : three directions (e.g. ('[1-10]', '[11-2]', '[111]')) that become
         the new x, y, z; each cell edge is the shortest lattice period along it.
     max_atoms : atom cap (default 50 million).
+    seed : for a CIF with partly occupied or shared sites, the seed of the
+        draw that realises them over the supercell (see :mod:`crystalview.occupancy`).
+    block : the data block of a CIF file holding several structures.
+    tolerance : lattice recognition tolerance for a CIF, in A (default 0.01).
+
+    >>> c = build("Cu", repeat=(2, 2, 2))
+    >>> len(c), c.lattice.prototype
+    (32, 'fcc')
     """
     if max_atoms is not None:
         check_atom_count(0, max_atoms)          # the cap itself must make sense
     if isinstance(spec, (str, Path)) and str(spec).lower().endswith(".cif"):
         from .exchange.cif import read_cif
 
-        base = read_cif(spec, max_atoms=max_atoms)
-        return _supercell_of(base, repeat=repeat, supercell=supercell, orient=orient, max_atoms=max_atoms)
+        from .occupancy import average_record, is_average, realise
+
+        base = read_cif(spec, max_atoms=max_atoms, block=block, tolerance=tolerance)
+        out = _supercell_of(base, repeat=repeat, supercell=supercell, orient=orient, max_atoms=max_atoms)
+        if is_average(out):
+            out.metadata["average"] = average_record(out)
+            out = realise(out, seed)
+        return out
     if isinstance(spec, (str, Path)) and str(spec).lower().endswith(".toml"):
         raise UserError(f"'{spec}' is a scene file; run it with `crystalview run {spec}` or crystalview.scene.load_crystal()")
     r = _resolve(spec, phase=phase, element=element, elements=elements, a=a, c=c, lattice=lattice)
@@ -332,11 +352,32 @@ def _check_repeat(repeat):
     return rep
 
 
+def _to_conventional(base: Crystal) -> Crystal:
+    """The crystal re-expressed in its lattice's conventional cell (a crystal
+    read from a file in a primitive or other cell), so supercell rows and
+    orientations are in conventional units as for the built-in structures."""
+    lat = base.lattice
+    P0 = np.asarray(lat.cell, float) @ np.linalg.inv(base.cell)
+    if np.abs(P0 - np.round(P0)).max() > 1e-4:
+        raise UserError("this crystal's cell is not a lattice cell of its recognised conventional cell; "
+                        "give --repeat instead of --supercell or --orient")
+    fn, sp, src = _fill(base.cell, base.frac % 1.0, base.numbers, np.round(P0), return_index=True)
+    out = base.select(src)
+    out.cell = np.asarray(lat.cell, float).copy()
+    out.positions = fn @ out.cell
+    out.numbers = np.asarray(sp, np.uint8)
+    return out
+
+
 def _supercell_of(base: Crystal, repeat=None, supercell=None, orient=None, max_atoms=None) -> Crystal:
     lat = base.lattice
+    if (supercell is not None or orient is not None) and lat is not None \
+            and not np.allclose(np.asarray(lat.cell, float), base.cell, atol=1e-6):
+        base = _to_conventional(base)
     conv = base.cell
     frac = base.frac
     species = base.numbers
+    src = np.arange(len(base))
     meta = dict(base.metadata)
     if supercell is not None and orient is not None:
         raise UserError("give either a supercell matrix or orientation directions, not both")
@@ -362,7 +403,7 @@ def _supercell_of(base: Crystal, repeat=None, supercell=None, orient=None, max_a
         n_est = int(round(abs(np.linalg.det(P)) * len(frac)))
         rep = _check_repeat(repeat) if repeat is not None else (1, 1, 1)
         check_atom_count(n_est * int(np.prod(rep)), max_atoms)
-        fn, species = _fill(conv, frac, species, P)
+        fn, species, src = _fill(conv, frac, species, P, return_index=True)
         cell_c = P @ conv
         a_, b_, c_, al, be, ga = cell_parameters(cell_c)
         if orient is not None:
@@ -375,6 +416,7 @@ def _supercell_of(base: Crystal, repeat=None, supercell=None, orient=None, max_a
         rep = _check_repeat(repeat)
         check_atom_count(len(frac) * int(np.prod(rep)), max_atoms)
         positions, numbers = _tile(new_cell, frac, species, rep)
+        src = np.tile(src, int(np.prod(rep)))
         cell = new_cell * np.array(rep)[:, None]
         meta["repeat"] = list(rep)
     else:
@@ -384,8 +426,10 @@ def _supercell_of(base: Crystal, repeat=None, supercell=None, orient=None, max_a
         from dataclasses import replace
 
         lat = replace(lat, cell=lat.cell @ rot)
+    same = len(src) == len(base) and np.array_equal(src, np.arange(len(base)))
     return Crystal(cell, positions, numbers, pbc=base.pbc, metadata=meta, lattice=lat,
-                   species_radii=base.species_radii)
+                   species_radii=base.species_radii, roles=base.roles if same else base.roles[src],
+                   occupancy=None if base.occupancy is None else base.occupancy[src])
 
 
 def _orient_rows(orient, lat, frac, species):

@@ -43,6 +43,14 @@ class LatticeInfo:
     phase: str | None = None
     temperature_K: float | None = None
     source: str = ""
+    #: lattice origin in the crystal, in conventional-cell fractions (None: at 0)
+    origin: np.ndarray | None = None
+    #: what stands on each sublattice when sites are shared ("Fe0.5Ni0.5"); None: the elements
+    site_species: tuple | None = None
+
+    @property
+    def origin_frac(self):
+        return np.zeros(3) if self.origin is None else np.asarray(self.origin, float)
 
     @property
     def atoms_per_cell(self):
@@ -66,13 +74,17 @@ class Crystal:
     metadata : dict recording how the crystal was made (and its defects).
     lattice : :class:`LatticeInfo` or None.
     species_radii : dict symbol -> hard-sphere radius (A) used for geometry.
+    occupancy : None, or (N,) float array: the fraction of the time each entry
+        is there (a CIF's ``_atom_site_occupancy``).  In an *average* structure
+        several entries may share one site (see :mod:`crystalview.occupancy`);
+        in a realised one it keeps each atom's occupancy on its shared site.
     """
 
     __slots__ = ("cell", "positions", "numbers", "roles", "pbc", "metadata", "lattice",
-                 "species_radii", "_symbols_cache")
+                 "species_radii", "occupancy", "_symbols_cache")
 
     def __init__(self, cell, positions, numbers=None, *, symbols=None, roles=None, pbc=(True, True, True),
-                 metadata=None, lattice=None, species_radii=None):
+                 metadata=None, lattice=None, species_radii=None, occupancy=None):
         from .elements import atomic_number
 
         self.cell = np.array(cell, dtype=float).reshape(3, 3)
@@ -99,6 +111,12 @@ class Crystal:
         self.lattice = lattice
         self.species_radii = dict(species_radii or {})
         self._symbols_cache = None
+        self.occupancy = None
+        if occupancy is not None:
+            occ = np.asarray(occupancy, dtype=float).reshape(-1)
+            if len(occ) != n or not np.all(np.isfinite(occ)) or np.any(occ <= 0) or np.any(occ > 1 + 1e-6):
+                raise UserError("occupancy must hold one number in (0, 1] per atom")
+            self.occupancy = np.minimum(occ, 1.0)
         if abs(np.linalg.det(self.cell)) < 1e-9:
             raise UserError("the cell vectors are coplanar (zero volume); give three independent vectors")
 
@@ -137,8 +155,14 @@ class Crystal:
         return [symbol_of(z) for z in np.unique(self.numbers)]
 
     def counts(self):
+        """Atoms of each species; for an average structure (partly occupied
+        sites) the occupancy-weighted numbers."""
         from .elements import symbol_of
 
+        if self.occupancy is not None and not self.metadata.get("realisation"):
+            from .occupancy import composition
+
+            return {s: round(v, 6) for s, v in composition(self).items()}
         z, n = np.unique(self.numbers, return_counts=True)
         return {symbol_of(a): int(b) for a, b in zip(z, n)}
 
@@ -155,6 +179,8 @@ class Crystal:
     def mass_amu(self):
         from .elements import atomic_mass, symbol_of
 
+        if self.occupancy is not None and not self.metadata.get("realisation"):
+            return float(sum(atomic_mass(s) * n for s, n in self.counts().items()))
         z, n = np.unique(self.numbers, return_counts=True)
         return float(sum(atomic_mass(symbol_of(a)) * b for a, b in zip(z, n)))
 
@@ -209,6 +235,7 @@ class Crystal:
         out.metadata = _copy.deepcopy(self.metadata)
         out.lattice = self.lattice
         out.species_radii = dict(self.species_radii)
+        out.occupancy = None if self.occupancy is None else self.occupancy.copy()
         out._symbols_cache = None
         return out
 
@@ -218,6 +245,8 @@ class Crystal:
         out.positions = self.positions[which]
         out.numbers = self.numbers[which]
         out.roles = self.roles[which]
+        if self.occupancy is not None:
+            out.occupancy = self.occupancy[which]
         return out
 
     def delete(self, indices):
@@ -237,6 +266,8 @@ class Crystal:
         out.positions = np.vstack([self.positions, pos])
         out.numbers = np.concatenate([self.numbers, nums])
         out.roles = np.concatenate([self.roles, np.full(len(pos), role_code(role), np.uint8)])
+        if self.occupancy is not None:
+            out.occupancy = np.concatenate([self.occupancy, np.ones(len(pos))])
         if radius is not None:
             for s in set(symbols):
                 out.species_radii[s] = float(radius)

@@ -7,6 +7,7 @@ come from the ``periodictable`` package.
 from __future__ import annotations
 
 import functools
+import math
 from dataclasses import dataclass, field
 from importlib import resources
 
@@ -14,6 +15,8 @@ try:
     import tomllib
 except ModuleNotFoundError:  # Python < 3.11
     import tomli as tomllib
+
+import numpy as np
 
 from .errors import UserError, suggest
 
@@ -211,3 +214,98 @@ def solute_radius(symbol):
         f"no radius data for solute '{symbol}'; known interstitial solutes: "
         f"{', '.join(interstitial_symbols())}; known metals: {', '.join(metal_symbols())}"
     )
+
+
+#: Non-metallic elements (common practice: the elements right of the
+#: boron-astatine staircase, with hydrogen and the noble gases).
+NON_METALS = frozenset("H He B C N O F Ne Si P S Cl Ar Ge As Se Br Kr Sb Te I Xe At Rn".split())
+#: Small atoms that sit in the holes of metal lattices (interstitial formers).
+INTERSTITIAL_FORMERS = frozenset("H B C N".split())
+COVALENT_SOURCE = ("Cordero et al., Dalton Trans. (2008) 2832: covalent radii, as tabulated by the "
+                   "periodictable package")
+
+
+def covalent_radius(symbol):
+    """Covalent radius (A) of any element up to Cm (Cordero et al. 2008, via periodictable).
+
+    >>> covalent_radius("O")
+    0.66
+    """
+    import periodictable
+
+    r = getattr(periodictable.elements[atomic_number(symbol)], "covalent_radius", None)
+    if r is None or not r > 0:
+        raise UserError(f"no covalent radius is tabulated for {symbol}; give the structure's radii by hand "
+                        f"(crystal.species_radii)")
+    return float(r)
+
+
+def bonding_of(composition):
+    """'metallic' when the atoms are metals (with at most 30 % of the small
+    interstitial formers H, B, C, N), else 'non-metallic' (oxides, halides,
+    covalent solids); common practice.
+
+    >>> bonding_of({"Fe": 4.0, "C": 1.0}), bonding_of({"Mg": 1.0, "O": 2.0, "H": 2.0})
+    ('metallic', 'non-metallic')
+    """
+    total = sum(composition.values()) or 1.0
+    small = sum(n for s, n in composition.items() if s in INTERSTITIAL_FORMERS)
+    other = [s for s in composition if s in NON_METALS and s not in INTERSTITIAL_FORMERS]
+    if not other and small / total <= 0.3:
+        return "metallic"
+    return "non-metallic"
+
+
+def structure_radii(crystal):
+    """Hard-sphere radius of every species of a crystal read from a file,
+    chosen by its bonding, as {symbol: {radius_A, kind, source}}:
+
+    * a recognised metal lattice (fcc, bcc, hcp, ..., also ordered or
+      disordered alloys on it): half the nearest-neighbour distance for every
+      species (touching spheres), as for the built-in structures;
+    * one species on any other structure: half the nearest-neighbour distance;
+    * metallic bonding otherwise: the CN12 metallic radius of each metal
+      (the covalent radius where the data has none, said so) and the
+      interstitial radius of H, B, C, N;
+    * non-metallic structures (oxides, halides, ...): covalent radii.
+
+    >>> import crystalview as cv
+    >>> structure_radii(cv.build("Cu"))["Cu"]["kind"]
+    'touching spheres of the lattice'
+    """
+    from .analysis.neighbours import nearest_neighbour_distance
+
+    comp = crystal.counts()
+    species = list(comp)
+    bonding = bonding_of(comp)
+    lat = crystal.lattice
+    out = {}
+    recognised = lat is not None and lat.prototype != "cif"
+    if (recognised and bonding == "metallic") or len(species) == 1:
+        if recognised:
+            from .build import _nn_distance
+
+            dnn = _nn_distance(np.asarray(lat.cell, float), np.asarray(lat.basis_frac, float))
+        else:
+            from .occupancy import realise
+
+            dnn = nearest_neighbour_distance(realise(crystal, 0) if len(crystal) > 1 else crystal)
+        if math.isfinite(dnn) and dnn > 0:
+            kind = "touching spheres of the lattice" if recognised else "touching spheres (half the shortest distance)"
+            for s in species:
+                out[s] = {"radius_A": dnn / 2.0, "kind": kind,
+                          "source": "half the nearest-neighbour distance of this structure"}
+            return out
+    for s in species:
+        if bonding == "metallic" and s in _data()["interstitials"]:
+            i = interstitial(s)
+            out[s] = {"radius_A": float(i.radius), "kind": "interstitial", "source": i.source}
+            continue
+        if bonding == "metallic" and s in _data()["elements"] and element(s).metallic_radius is not None:
+            e = element(s)
+            out[s] = {"radius_A": float(e.metallic_radius), "kind": "metallic (CN12)",
+                      "source": e.sources["metallic_radius"]}
+            continue
+        kind = "covalent" if bonding != "metallic" else "covalent (no metallic radius in the data)"
+        out[s] = {"radius_A": covalent_radius(s), "kind": kind, "source": COVALENT_SOURCE}
+    return out

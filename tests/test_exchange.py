@@ -179,7 +179,7 @@ def test_cif_round_trip_gemmi_and_spglib(tmp_path):
         s1 = spglib.get_symmetry_dataset((back.cell, back.frac, back.numbers.astype(int)), symprec=1e-3)
         assert s0.number == s1.number
         assert sorted(back.symbols) == sorted(c.symbols)
-        assert back.lattice.prototype == "cif"
+        assert back.lattice.prototype == c.lattice.prototype      # the lattice type is recognised from the atoms
 
 
 def test_cif_asymmetric_unit_expanded(tmp_path):
@@ -387,9 +387,11 @@ def test_cif_reader_symbol_number_and_incomplete_ops(tmp_path):
     p.write_text(head + "loop_\n_space_group_symop_operation_xyz\nx,y,z\ny,z,x\n" + atoms)
     with pytest.raises(UserError, match="complete space group"):
         cv.read_cif(p)
-    # a cubic-looking cell with a tetragonal group is not called cubic
+    # a cubic cell written in a tetragonal group: the file's group is kept in the metadata, and the
+    # atoms (one per cubic cell) are recognised as simple cubic (spglib: Pm-3m, 221)
     p.write_text(head + "_symmetry_space_group_name_H-M 'P 4/m m m'\n" + atoms)
-    assert cv.read_cif(p).lattice.family == "tetragonal"
+    c = cv.read_cif(p)
+    assert c.metadata["space_group_number"] == 123 and c.lattice.prototype == "sc" and c.lattice.space_group == 221
     # the atom cap is applied to (operations x sites) before gemmi expands anything
     p.write_text(head + "_symmetry_space_group_name_H-M 'F m -3 m'\n" + atoms)
     from crystalview.errors import LimitError

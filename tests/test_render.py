@@ -334,7 +334,11 @@ def test_svg_bonds_behind_their_nearer_ball_and_no_gradients(tmp_path):
                 assert val == "none" or (val.startswith("#") and len(val) == 7), (e.tag, attr, val)
     assert root.findall(f".//{ns}radialGradient") == []   # balls are flat discs: every SVG reader shows them
     balls = [it for it in items if it["kind"] == "ball"]
-    convert = shutil.which("rsvg-convert") or shutil.which("convert")
+    convert = shutil.which("rsvg-convert")
+    if convert is None and shutil.which("convert"):
+        # some machines carry a stand-in `convert` that is not ImageMagick: use it only when it says it is
+        ver = subprocess.run([shutil.which("convert"), "-version"], capture_output=True, text=True, timeout=30)
+        convert = shutil.which("convert") if "ImageMagick" in ver.stdout else None
     if convert:
         png = tmp_path / "cu_conv.png"
         cmd = [convert, "-o", str(png), str(out)] if convert.endswith("rsvg-convert") else \

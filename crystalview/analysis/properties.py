@@ -22,10 +22,13 @@ SHELL_MERGE = 0.12
 
 
 def conventional(crystal: Crystal) -> Crystal:
-    """The conventional cell the crystal was built from (or the crystal itself)."""
+    """The conventional cell the crystal was built from (or the crystal itself,
+    realised, for a structure of no known lattice type)."""
     lat = crystal.lattice
-    if lat is None:
-        return crystal
+    if lat is None or lat.prototype == "cif":
+        from ..occupancy import realise
+
+        return realise(crystal, 0)
     from ..elements import atomic_number
 
     z = np.array([atomic_number(s) for s in lat.basis_symbols], np.uint8)
@@ -73,15 +76,43 @@ def coordination(crystal: Crystal):
     return round(cn, 2), inside
 
 
+def _average(crystal):
+    """The average-structure record of a crystal read with partly occupied
+    sites (None when there is none, or defects changed the atoms)."""
+    avg = crystal.metadata.get("average")
+    if avg and not crystal.metadata.get("defects") and abs(avg.get("volume_A3", 0) - crystal.volume) < 1e-6 * crystal.volume:
+        return avg
+    return None
+
+
 def packing_factor(crystal: Crystal):
-    """Volume of the hard spheres / cell volume."""
+    """Volume of the hard spheres / cell volume (occupancy-weighted for a
+    structure with partly occupied sites).
+
+    >>> import crystalview as cv
+    >>> round(packing_factor(cv.build("Cu")), 4)
+    0.7405
+    """
+    avg = _average(crystal)
+    if avg is not None or (crystal.occupancy is not None and not crystal.metadata.get("realisation")):
+        comp = avg["composition"] if avg is not None else crystal.counts()
+        vol = sum(n * crystal.radius_of(s) ** 3 for s, n in comp.items())
+        return float((4.0 / 3.0) * math.pi * vol / crystal.volume)
     r = crystal.atom_radii()
     return float((4.0 / 3.0) * math.pi * np.sum(r ** 3) / crystal.volume)
 
 
 def density(crystal: Crystal):
-    """Theoretical density (g/cm^3) = mass of the cell / its volume."""
-    return crystal.mass_amu * AMU_G / (crystal.volume * A3_CM3)
+    """Theoretical density (g/cm^3) = mass of the cell / its volume (from the
+    occupancies for a structure with partly occupied sites).
+
+    >>> import crystalview as cv
+    >>> round(density(cv.build("Cu")), 2)
+    8.93
+    """
+    avg = _average(crystal)
+    mass = avg["mass_amu"] if avg is not None else crystal.mass_amu
+    return mass * AMU_G / (crystal.volume * A3_CM3)
 
 
 def atoms_per_mm3(crystal: Crystal):
@@ -123,10 +154,14 @@ def summary(crystal: Crystal, part_volume_mm3=None, planes=(), directions=(), an
     conv = conventional(crystal)
     lat = crystal.lattice
     cn, shells = coordination(conv)
+    known = lat is not None and lat.prototype != "cif"
+    if not known and len(crystal.elements) > 1:
+        cn = None            # one number means nothing for a structure of several kinds of site
+    avg = _average(crystal)
     out = {
         "name": crystal.metadata.get("name"),
-        "structure": lat.title if lat else "imported structure",
-        "lattice_type": lat.prototype if lat else None,
+        "structure": lat.title if known else "structure of no built-in lattice type",
+        "lattice_type": lat.prototype if known else "other",
         "space_group": lat.space_group if lat else None,
         "phase": crystal.metadata.get("phase"),
         "temperature_K": crystal.metadata.get("temperature_K"),
@@ -139,16 +174,28 @@ def summary(crystal: Crystal, part_volume_mm3=None, planes=(), directions=(), an
         "nearest_neighbour_distance_A": shells[0][0] if shells else None,
         "coordination_number": cn,
         "coordination_shells": [{"distance_A": d, "count": c} for d, c in shells],
-        "hard_sphere_radius_A": {s: conv.radius_of(s) for s in conv.elements},
-        "packing_factor": packing_factor(conv),
+        "hard_sphere_radius_A": {s: crystal.radius_of(s) for s in crystal.elements},
+        "packing_factor": packing_factor(conv) if known else packing_factor(crystal),
         "density_g_cm3": density(crystal),
         "atoms": len(crystal),
         "cell_lengths_A": [float(x) for x in np.linalg.norm(crystal.cell, axis=1)],
         "cell_volume_A3": crystal.volume,
         "atoms_per_mm3": atoms_per_mm3(crystal),
-        "composition": crystal.counts(),
+        "composition": avg["composition"] if avg is not None else crystal.counts(),
         "defects": crystal.metadata.get("defects") or [],
     }
+    if avg is not None:
+        out["formula_average"] = avg["formula"]
+    if crystal.metadata.get("realisation"):
+        out["realisation"] = crystal.metadata["realisation"]
+        out["realised_composition"] = {s: int(n) for s, n in
+                                       zip(*np.unique(crystal.symbols, return_counts=True))}
+    if lat is not None and lat.site_species:
+        out["sublattice_occupation"] = list(lat.site_species)
+    if crystal.metadata.get("recognition"):
+        out["recognition"] = crystal.metadata["recognition"]
+    if crystal.metadata.get("radii"):
+        out["radii"] = crystal.metadata["radii"]
     if crystal.metadata.get("repeat"):
         out["repeat"] = crystal.metadata["repeat"]
     if crystal.metadata.get("orient"):

@@ -243,6 +243,12 @@ def is_perfect(crystal):
     if abs(total - len(crystal)) > 1e-6:
         return False
     counts = crystal.counts()
+    if lat.site_species and any(not x.isalpha() for x in lat.site_species):
+        # a realised solid solution: every lattice point holds one of its site's species
+        from ..occupancy import parse_signature
+
+        allowed = {s for sig in lat.site_species for s, _ in parse_signature(sig)}
+        return set(counts) <= allowed and len({crystal.radius_of(s) for s in counts}) == 1
     return all(abs(counts.get(s, 0) - n) < 1e-6 for s, n in exp.items()) and set(counts) <= set(exp)
 
 
@@ -292,7 +298,7 @@ def _origin(crystal):
         d -= np.round(d)
         return float(np.mean(np.any(np.all(np.abs(d) < tol, axis=2), axis=1)))
 
-    cands = [np.zeros(3)] + [((F[0] - b) + 0.5) % 1.0 - 0.5 for b in basis]
+    cands = [lat.origin_frac, np.zeros(3)] + [((F[0] - b) + 0.5) % 1.0 - 0.5 for b in basis]
     best = max(cands, key=score)
     return best if score(best) >= 0.6 else None
 
@@ -373,7 +379,7 @@ def _lattice_sites(crystal, max_atoms=None):
         n = len(crystal)
         check_hole_atoms(n, n * DEFECTED_BYTES_PER_ATOM, n * DEFECTED_SECONDS_PER_ATOM, max_atoms,
                          "measuring every hole of this defected crystal")
-    origin = np.zeros(3) if perfect else _origin(crystal)
+    origin = crystal.lattice.origin_frac if perfect else _origin(crystal)
     if origin is None:
         return None
     out = []

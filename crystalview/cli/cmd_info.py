@@ -36,6 +36,28 @@ def run(args):
     return 0
 
 
+def recognition_lines(s):
+    """The lines saying how a crystal read from a file was recognised and
+    which radii it uses (empty for the built-in structures)."""
+    out = []
+    rec = s.get("recognition")
+    if rec:
+        if rec["lattice"] != "other":
+            occ = s.get("sublattice_occupation")
+            on = f"; sublattices: {', '.join(occ)}" if occ and any(not x.isalpha() for x in occ) else ""
+            out.append(f"  lattice: recognised as {rec['lattice']} (space group {rec['space_group']}, atoms within "
+                       f"{rec['deviation_A']:.3f} A of the ideal positions, tolerance {rec['tolerance_A']:g} A){on}")
+        else:
+            out.append(f"  lattice: not one of the built-in types ({rec.get('reason', '')}); holes by the generic "
+                       f"void analysis, no named sites or slip table")
+    radii = s.get("radii")
+    if radii:
+        kinds = sorted({r["kind"] for r in radii.values()})
+        srcs = sorted({r["source"] for r in radii.values()})
+        out.append(f"  radii: {'; '.join(kinds)} ({'; '.join(srcs)})")
+    return out
+
+
 def render_text(s):
     lines = []
     title = s["name"] or "crystal"
@@ -52,13 +74,15 @@ def render_text(s):
         lines.append(f"  source: {s['parameter_source']}")
     if s.get("note"):
         lines.append(f"  note: {s['note']}")
+    lines += recognition_lines(s)
     lines.append("")
     differs = bool(s["defects"])
     shells = " + ".join(f"{c['count']:g} at {c['distance_A']:.4f} A" for c in s["coordination_shells"])
     rows = [
         ("atoms per conventional cell", s["atoms_per_conventional_cell"]),
         ("nearest-neighbour distance", f"{fmt(s['nearest_neighbour_distance_A'])} A"),
-        ("coordination number", f"{s['coordination_number']:g}  ({shells})"),
+        ("coordination number", f"{s['coordination_number']:g}  ({shells})" if s["coordination_number"] is not None
+         else f"not one number for a structure of several kinds of site (first shells: {shells})"),
         ("hard-sphere radius", ", ".join(f"{k} {v:.4f} A" for k, v in s["hard_sphere_radius_A"].items())),
         ("atomic packing factor", fmt(s["packing_factor"], 4) + ("  (perfect lattice)" if differs else "")),
         ("density", f"{s['density_g_cm3']:.3f} g/cm^3" + ("  (this crystal, as built)" if differs else "")),
@@ -70,8 +94,17 @@ def render_text(s):
                  + " x ".join(f"{x:.4f}" for x in s["cell_lengths_A"]) + " A"
                  + (f", repeat {' x '.join(map(str, s['repeat']))}" if s.get("repeat") else "")
                  + (f", x y z = {' '.join(s['orient'])}" if s.get("orient") else "")))
-    if len(s["composition"]) > 1 or s["defects"]:
-        rows.append(("composition", ", ".join(f"{k} {v}" for k, v in s["composition"].items())))
+    if len(s["composition"]) > 1 or s["defects"] or s.get("formula_average"):
+        comp = ", ".join(f"{k} {v:.4g}" if isinstance(v, float) else f"{k} {v}"
+                         for k, v in s["composition"].items())
+        if s.get("formula_average"):
+            comp += f"  (from the occupancies: {s['formula_average']})"
+        rows.append(("composition", comp))
+    if s.get("realisation"):
+        r = s["realisation"]
+        real = ", ".join(f"{k} {v}" for k, v in s["realised_composition"].items())
+        rows.append(("realised", f"{r['shared_sites']} shared or partly occupied sites drawn with seed "
+                                 f"{r['seed']}: {real} (--seed N for another draw)"))
     for d in s["defects"]:
         rows.append(("defect", ", ".join(f"{k}={v}" for k, v in d.items() if not isinstance(v, (list, dict)))))
     if "spglib_space_group" in s:

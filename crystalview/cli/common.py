@@ -38,6 +38,9 @@ def add_spec_arguments(p, defects=True):
     g.add_argument("--orient", nargs=3, metavar=("X", "Y", "Z"),
                    help="crystal directions for x, y, z, e.g. --orient [1-10] [11-2] [111]")
     g.add_argument("--max-atoms", type=float, metavar="N", help="atom cap (default 50 million)")
+    g.add_argument("--block", metavar="NAME", help="data block of a CIF file that holds several structures")
+    g.add_argument("--tolerance", type=_positive_float, metavar="A",
+                   help="distance tolerance (A) for recognising the lattice of a CIF (default 0.01)")
     if defects:
         for add, _apply in SPEC_EXTENSIONS:
             add(p)
@@ -85,6 +88,10 @@ def crystal_from_args(args):
             kw["orient"] = list(args.orient)
         if args.max_atoms is not None:
             kw["max_atoms"] = int(args.max_atoms)
+        if low.endswith(".cif"):
+            kw.update(block=args.block, tolerance=args.tolerance, seed=getattr(args, "seed", 0) or 0)
+        elif args.block is not None or args.tolerance is not None:
+            raise UserError("--block and --tolerance are for a .cif SPEC; leave them out")
         crystal = build(spec, phase=args.phase, lattice=args.lattice, a=args.a, c=args.c, **kw)
     for _add, apply in SPEC_EXTENSIONS:
         crystal = apply(crystal, args)

@@ -118,10 +118,11 @@ def _int_or_none(text):
     return int(v) if math.isfinite(v) and v == int(v) else None
 
 
-def read_cif(path, block=None, max_atoms=None):
-    """A :class:`~crystalview.crystal.Crystal` from a CIF file: the full unit
-    cell (asymmetric unit expanded by the space group), lattice prototype
-    "cif", the CIF's cell as the conventional cell.
+def read_cif(path, block=None, max_atoms=None, tolerance=None):
+    """A :class:`~crystalview.crystal.Crystal` from a CIF file (CIF 1.1 or
+    2.0): the full unit cell (asymmetric unit expanded by the space group), in
+    the file's own cell, with the lattice type recognised from the atoms
+    (:mod:`crystalview.recognise`; ``tolerance`` in A, default 0.01).
 
     The space group comes from the file: its symmetry operations (gemmi
     recognises a tabulated setting; otherwise the operations are used as
@@ -129,42 +130,41 @@ def read_cif(path, block=None, max_atoms=None):
     Hermann-Mauguin symbol, else its IT number (standard setting).  The
     expanded atom count (operations x listed sites) is checked against the
     atom cap (``max_atoms``, default crystalview.build's) before expanding.
+    Coordinates within 2.5e-4 of a sixth (0.3333, 0.6667) are read as exact.
 
-    Hard-sphere radii: for one species, half the nearest-neighbour distance
-    (touching spheres); for several, the CN12 metallic radius from the
-    element data where known (interstitial radius for C, N, O, H, B), else
-    half the nearest-neighbour distance.
+    Partly occupied or shared sites make an *average* structure (one entry
+    per species and site, with ``crystal.occupancy``; see
+    :mod:`crystalview.occupancy`); :func:`crystalview.build` realises it.
+
+    ``block``: the data block to read; a file with several crystal structures
+    needs one.  Hard-sphere radii are chosen by bonding
+    (:func:`crystalview.elements.structure_radii`) and recorded in
+    ``metadata['radii']``.
+
+    >>> import crystalview as cv, pathlib, tempfile
+    >>> f = pathlib.Path(tempfile.mkdtemp()) / "w.cif"
+    >>> _ = f.write_text("data_W\n_cell_length_a 3.1652\n_cell_length_b 3.1652\n_cell_length_c 3.1652\n"
+    ...                  "_cell_angle_alpha 90\n_cell_angle_beta 90\n_cell_angle_gamma 90\n"
+    ...                  "_symmetry_space_group_name_H-M 'I m -3 m'\nloop_\n_atom_site_label\n"
+    ...                  "_atom_site_fract_x\n_atom_site_fract_y\n_atom_site_fract_z\nW1 0 0 0\n")
+    >>> c = read_cif(f)
+    >>> len(c), c.lattice.prototype
+    (2, 'bcc')
     """
-    import gemmi
-
     from ..build import check_atom_count
     from ..crystal import ROLES, Crystal, LatticeInfo
     from ..elements import atomic_number
+    from ..recognise import DEFAULT_TOLERANCE, attach_lattice
 
+    tol = DEFAULT_TOLERANCE if tolerance is None else tolerance
     p = Path(path)
-    if not p.is_file():
-        raise UserError(f"CIF file '{p}' not found")
-    try:
-        doc = gemmi.cif.read(str(p))
-    except (ValueError, RuntimeError, UnicodeError, OSError) as exc:
-        raise UserError(f"'{p.name}' is not a readable CIF file ({_clean(exc, p)}); "
-                        f"check its syntax against CIF 1.1") from None
-    blocks = [b for b in doc if b.find_value("_cell_length_a") is not None]
-    if block is not None:
-        blocks = [b for b in blocks if b.name == block]
-    if not blocks:
-        raise UserError(f"'{p.name}' has no data block with a unit cell (_cell_length_a ...); "
-                        f"give a CIF of a crystal structure")
-    b = blocks[0]
-    try:
-        st = gemmi.make_small_structure_from_block(b)
-    except (ValueError, RuntimeError, IndexError) as exc:
-        raise UserError(f"'{p.name}': cannot read the structure ({_clean(exc, p)})") from None
+    b = _structure_block(p, block)
+    st = _small_structure(b, p)
     cell = st.cell
     pars = (cell.a, cell.b, cell.c, cell.alpha, cell.beta, cell.gamma)
     if not all(math.isfinite(x) and x > 0 for x in pars) or not math.isfinite(cell.volume) or cell.volume <= 0:
-        raise UserError(f"'{p.name}' has no valid unit cell (lengths and angles must be positive numbers "
-                        f"making a cell of positive volume)")
+        raise UserError(f"'{p.name}' block '{b.name}' has no valid unit cell (lengths and angles must be positive "
+                        f"numbers making a cell of positive volume)")
     rows = np.array(cell.orth.mat, float).T          # rows = lattice vectors; a along x, b in the xy plane
     from ..analysis.neighbours import cell_heights
 
@@ -177,12 +177,25 @@ def read_cif(path, block=None, max_atoms=None):
                         f"{MAX_CELL_LENGTH:g} A, at least {MIN_CELL_HEIGHT} A between opposite faces, and no edge "
                         f"over {MAX_CELL_ASPECT:g} times that thickness")
     if not st.sites:
-        raise UserError(f"'{p.name}' lists no atoms (_atom_site_fract_x ... loop); give a CIF with atom sites")
+        raise UserError(f"'{p.name}' block '{b.name}' lists no atoms (_atom_site_fract_x ... loop); give a CIF "
+                        f"with atom sites")
     for s in st.sites:
         f = (s.fract.x, s.fract.y, s.fract.z)
         if not all(math.isfinite(x) and abs(x) < 1e6 for x in f):
             raise UserError(f"'{p.name}': atom site '{s.label}' has no valid fractional coordinates "
                             f"({', '.join(f'{x:g}' for x in f)}); give three numbers")
+        if not (math.isfinite(s.occ) and 0 <= s.occ <= 1 + 1e-3):
+            raise UserError(f"'{p.name}' block '{b.name}': atom site '{_clean(s.label)[:40]}' has occupancy "
+                            f"{s.occ:g}; give _atom_site_occupancy between 0 and 1")
+    empty = [s.label for s in st.sites if s.occ <= 0]
+    if empty:
+        if len(empty) == len(st.sites):
+            raise UserError(f"'{p.name}' block '{b.name}': every atom site has occupancy 0; give the occupancies")
+        keep = [s for s in st.sites if s.occ > 0]
+        st.sites.clear()
+        for s in keep:
+            st.add_site(s)
+    _snap_sixths(st)
     number_tag = _int_or_none(b.find_value("_space_group_IT_number")) or \
         _int_or_none(b.find_value("_symmetry_Int_Tables_number"))
     if number_tag is not None and not 1 <= number_tag <= 230:
@@ -201,10 +214,19 @@ def read_cif(path, block=None, max_atoms=None):
                             f"do not form a complete space group; list all of them as x,y,z triplets")
     else:
         hm = b.find_value("_symmetry_space_group_name_H-M") or b.find_value("_space_group_name_H-M_alt")
+        ref = b.find_value("_space_group_name_H-M_ref") or b.find_value("_space_group_name_H-M_full")
+        if hm in (None, "?", ".") and ref not in (None, "?", "."):
+            import gemmi
+
+            st.spacegroup_hm = gemmi.cif.as_string(ref)
+            st.determine_and_set_spacegroup("1")
+            hm = None if st.spacegroup is not None else ref
+            if st.spacegroup is not None:
+                n_ops = _order(st.spacegroup.operations())
         if hm not in (None, "?", "."):
             raise UserError(f"'{p.name}': unknown space group {_clean(hm)[:40]}; write it as a Hermann-Mauguin "
                             f"symbol, e.g. 'F m -3 m'")
-        if number_tag is not None and number_tag > 1:
+        if st.spacegroup is None and number_tag is not None and number_tag > 1:
             st.determine_and_set_spacegroup("N")          # only a number: its standard setting
             if st.spacegroup is not None:
                 n_ops = _order(st.spacegroup.operations())
@@ -215,20 +237,22 @@ def read_cif(path, block=None, max_atoms=None):
                          f"about {n_ops * n_ops * len(st.sites):,} comparisons, over {READ_MAX_WORK:,}; give the "
                          f"crystal in a smaller cell (a real space group has at most 192 operations)")
     sites = st.get_all_unit_cell_sites()
-    symbols, frac, partial, labels = [], [], False, []
+    symbols, frac, occ, labels = [], [], [], []
     for s in sites:
         el = s.element.name
         if el in ("X", ""):
             raise UserError(f"'{p.name}': atom site '{_clean(s.label)[:40]}' has no element (type "
                             f"'{_clean(s.type_symbol)[:20]}'); give _atom_site_type_symbol")
+        if el == "D":
+            el = "H"
         frac.append([s.fract.x, s.fract.y, s.fract.z])
         symbols.append(el)
         labels.append(s.label)
-        if s.occ < 0.999:
-            partial = True
+        occ.append(min(float(s.occ), 1.0))
     frac = np.array(frac, float).reshape(-1, 3)
     frac -= np.floor(frac)
     frac[frac >= 1 - 1e-9] = 0.0
+    occ = np.array(occ, float)
     uniq = sorted(set(symbols), key=symbols.index)
     z_of = {s: atomic_number(s) for s in uniq}
     numbers = np.array([z_of[s] for s in symbols], np.uint8)
@@ -241,22 +265,260 @@ def read_cif(path, block=None, max_atoms=None):
         if sg_num is None and len(st.symops) <= 1:
             sg_num, sg_name = 1, "P 1"
     family = _family(*pars, number=sg_num)
-    name = b.find_value("_chemical_formula_sum") or b.name
-    name = str(name).strip("'\"")
+    name = _block_name(b)
     lat = LatticeInfo(
-        prototype="cif", title=f"from CIF {p.name}", cell=rows, a=float(cell.a),
+        prototype="cif", title=f"structure from CIF {p.name}", cell=rows, a=float(cell.a),
         c=None if family == "cubic" else float(cell.c), elements=tuple(uniq), basis_frac=frac,
         basis_symbols=tuple(symbols), family=family, space_group=sg_num, source=f"CIF file {p.name}",
     )
     meta = {"built_from": str(p), "name": name, "lattice": "cif", "a": float(cell.a), "b": float(cell.b),
             "c": float(cell.c), "angles": [float(cell.alpha), float(cell.beta), float(cell.gamma)],
             "space_group": sg_name, "space_group_number": sg_num, "symmetry_operations": n_ops,
-            "source": f"CIF file {p.name}", "cif_block": b.name, "asymmetric_unit_sites": len(st.sites)}
-    if partial:
-        meta["note"] = "the CIF has partly occupied sites; every site is shown as a full atom"
-    crystal = Crystal(rows, frac @ rows, numbers, roles=roles, metadata=meta, lattice=lat)
-    crystal.species_radii = _radii(crystal, uniq)
+            "source": f"CIF file {p.name}, block {b.name}", "cif_block": b.name,
+            "asymmetric_unit_sites": len(st.sites)}
+    average = bool(np.any(occ < 1.0 - 1e-6))
+    crystal = Crystal(rows, frac @ rows, numbers, roles=roles, metadata=meta, lattice=lat,
+                      occupancy=occ if average else None)
+    drop = _check_distances(crystal, p, b.name, labels)
+    if drop:
+        keep = np.array([k for k in range(len(crystal)) if k not in drop], int)
+        crystal = crystal.select(keep)
+        crystal.lattice = replace_lattice(crystal.lattice, basis_frac=frac[keep],
+                                          basis_symbols=tuple(symbols[k] for k in keep))
+        crystal.metadata["note"] = (f"{len(drop)} atom(s) listed twice in the file (symmetry copies of listed "
+                                    f"sites) were read once")
+    from ..occupancy import average_record
+
+    if average:
+        crystal.metadata["average"] = average_record(crystal)
+    crystal = attach_lattice(crystal, tol)
+    rec = crystal.metadata["recognition"]
+    if rec["lattice"] != "other":
+        crystal.metadata["a"] = rec["a_A"]
+        crystal.metadata["c"] = rec["c_A"]
+        from dataclasses import replace
+
+        crystal.lattice = replace(crystal.lattice, source=f"CIF file {p.name}",
+                                  title=crystal.lattice.title)
+    from ..elements import structure_radii
+
+    radii = structure_radii(crystal)
+    crystal.species_radii = {s: r["radius_A"] for s, r in radii.items()}
+    crystal.metadata["radii"] = radii
     return crystal
+
+
+def replace_lattice(lat, **kw):
+    from dataclasses import replace
+
+    return replace(lat, **kw)
+
+
+def _norm_tag(tag):
+    """A CIF 2.0 / DDLm dotted name as its CIF 1.1 equivalent
+    ('_cell.length_a' -> '_cell_length_a')."""
+    return tag.replace(".", "_", 1) if "." in tag else tag
+
+
+def _normalised(block):
+    """A copy of a block with dotted (CIF 2.0 / DDLm) names written as CIF 1.1
+    names, so gemmi's small-structure reader finds them; None when the block
+    has no dotted names."""
+    import gemmi
+
+    if not any("." in (item.pair[0] if item.pair is not None else (item.loop.tags[0] if item.loop else ""))
+               for item in block):
+        return None
+    doc = gemmi.cif.Document()
+    nb = doc.add_new_block(block.name)
+    seen = set()
+    for item in block:
+        if item.pair is not None:
+            tag = _norm_tag(item.pair[0])
+            if tag not in seen:
+                seen.add(tag)
+                nb.set_pair(tag, item.pair[1])
+        elif item.loop is not None:
+            lp = item.loop
+            tags = [_norm_tag(t) for t in lp.tags]
+            if any(t in seen for t in tags):
+                continue
+            seen.update(tags)
+            prefix = _common_prefix(tags)
+            new = nb.init_loop(prefix, [t[len(prefix):] for t in tags])
+            width = lp.width()
+            for r in range(lp.length()):
+                new.add_row([lp[r, c] for c in range(width)])
+    return doc, nb
+
+
+def _common_prefix(tags):
+    import os
+
+    pre = os.path.commonprefix(tags)
+    if "_" in pre[1:]:
+        return pre[: pre.rindex("_") + 1]
+    return "_"
+
+
+def _is_structure(block):
+    return block.find_value("_cell_length_a") is not None or block.find_value("_cell.length_a") is not None
+
+
+def _has_atoms(block):
+    return any(len(block.find_values(t)) for t in ("_atom_site_fract_x", "_atom_site.fract_x"))
+
+
+def _structure_block(p, block):
+    """The data block to read (normalised to CIF 1.1 names); refuses a file
+    without one and asks for --block when several crystal structures are in it."""
+    import gemmi
+
+    if not p.is_file():
+        raise UserError(f"CIF file '{p}' not found")
+    try:
+        doc = gemmi.cif.read(str(p))
+    except (ValueError, RuntimeError, UnicodeError, OSError) as exc:
+        if "duplicate" not in str(exc):
+            raise UserError(f"'{p.name}' is not a readable CIF file ({_clean(exc, p)}); "
+                            f"check its syntax against CIF 1.1 or 2.0") from None
+        # a repeated block name or tag: read it anyway (blocks can be picked by number)
+        doc = gemmi.cif.Document()
+        try:
+            doc.parse_string(p.read_text(encoding="utf-8", errors="replace"))
+        except (ValueError, RuntimeError) as exc2:
+            raise UserError(f"'{p.name}' is not a readable CIF file ({_clean(exc2, p)}); "
+                            f"check its syntax against CIF 1.1 or 2.0") from None
+    cands = [b for b in doc if b.name and _is_structure(b)]
+    names = [b.name for b in doc if b.name]
+    if block is not None and str(block).strip().isdigit():
+        k = int(str(block).strip())
+        if not 1 <= k <= len(cands):
+            raise UserError(f"'{p.name}' has {len(cands)} crystal structure(s); --block {k} must be 1 to "
+                            f"{len(cands)} (or a block name: {', '.join(b.name for b in cands) or 'none'})")
+        b = cands[k - 1]
+    elif block is not None:
+        pick = [b for b in doc if b.name.lower() == str(block).lower()]
+        if not pick:
+            raise UserError(f"'{p.name}' has no data block '{block}'; its blocks: {', '.join(names) or 'none'}")
+        if len(pick) > 1:
+            raise UserError(f"'{p.name}' has {len(pick)} blocks named '{block}'; pick one by its number among "
+                            f"the structures, --block 1 to --block {len(cands)}")
+        if not _is_structure(pick[0]):
+            raise UserError(f"'{p.name}' block '{pick[0].name}' is not a crystal structure (no _cell_length_a); "
+                            f"blocks with a unit cell: {', '.join(b.name for b in cands) or 'none'}")
+        b = pick[0]
+    else:
+        if not cands:
+            raise UserError(f"'{p.name}' has no data block with a unit cell (_cell_length_a or _cell.length_a); "
+                            f"give a CIF of a crystal structure")
+        with_atoms = [b for b in cands if _has_atoms(b)] or cands
+        if len(with_atoms) > 1:
+            listed = ", ".join(f"{cands.index(b) + 1}: {b.name} ({_block_name(b)})" for b in with_atoms[:12])
+            raise UserError(f"'{p.name}' holds {len(with_atoms)} crystal structures ({listed}"
+                            f"{' ...' if len(with_atoms) > 12 else ''}); choose one with --block NAME or --block N")
+        b = with_atoms[0]
+    for tag in ("_cell_modulation_dimension", "_cell.modulation_dimension"):
+        v = b.find_value(tag)
+        if v is not None and _int_or_none(v) not in (None, 0):
+            raise UserError(f"'{p.name}' block '{b.name}' is an incommensurately modulated structure "
+                            f"(superspace group); crystalview reads 3-dimensional crystal structures only")
+    norm = _normalised(b)
+    if norm is not None:
+        _keep_alive.append(norm[0])          # the block lives as long as its document
+        return norm[1]
+    _keep_alive.append(doc)
+    return b
+
+
+#: Documents whose blocks were handed out (gemmi blocks refer into them);
+#: only the last few are kept.
+_keep_alive = []
+
+
+def _small_structure(b, p):
+    import gemmi
+
+    del _keep_alive[:-4]
+    try:
+        return gemmi.make_small_structure_from_block(b)
+    except (ValueError, RuntimeError, IndexError) as exc:
+        raise UserError(f"'{p.name}' block '{b.name}': cannot read the structure ({_clean(exc, p)})") from None
+
+
+def _block_name(b):
+    """The structure's name: its formula, else its mineral or common name,
+    else the block name (never a CIF null '?' or '.')."""
+    for tag in ("_chemical_formula_sum", "_chemical_name_mineral", "_chemical_name_common",
+                "_chemical_name_systematic", "_chemical_formula_structural"):
+        v = b.find_value(tag)
+        if v is not None:
+            import gemmi
+
+            text = " ".join(gemmi.cif.as_string(v).split())
+            if text and text not in ("?", "."):
+                return text
+    return b.name
+
+
+def _snap_sixths(st):
+    """Coordinates within 2.5e-4 of a multiple of 1/6 (0.3333, 0.6667,
+    0.1667) are set to it exactly: files round thirds, and a rounded third
+    expanded by symmetry gives near-duplicate atoms."""
+    import gemmi
+
+    for s in st.sites:
+        f = [s.fract.x, s.fract.y, s.fract.z]
+        g = [round(x * 6) / 6 if abs(x * 6 - round(x * 6)) < 6 * 2.5e-4 else x for x in f]
+        if g != f:
+            s.fract = gemmi.Fractional(*g)
+
+
+#: Two fully occupied atoms closer than this (A) are not a real structure
+#: (the shortest bond, H-H in H2, is 0.74 A).
+MIN_ATOM_DISTANCE = 0.5
+#: Entries of one species closer than this (A) are the same atom listed twice.
+DUPLICATE_DISTANCE = 0.02
+
+
+def _check_distances(crystal, p, block_name, labels):
+    """Refuse atoms closer than MIN_ATOM_DISTANCE after symmetry expansion,
+    unless both are partly occupied (alternative positions of one site).
+    Entries of the same species and occupancy within DUPLICATE_DISTANCE of
+    each other are one atom listed twice (files list symmetry copies too):
+    returns the indices to drop."""
+    from scipy.spatial import cKDTree
+
+    from ..analysis.neighbours import with_images
+
+    n = len(crystal)
+    drop = set()
+    if n < 1:
+        return drop
+    pts, which = with_images(crystal.positions, crystal.cell, crystal.pbc, MIN_ATOM_DISTANCE)
+    tree = cKDTree(pts)
+    occ = crystal.occupancy if crystal.occupancy is not None else np.ones(n)
+    nums = crystal.numbers
+    for i, lst in enumerate(tree.query_ball_point(crystal.positions, MIN_ATOM_DISTANCE)):
+        if i in drop:
+            continue
+        for b_ in lst:
+            j = int(which[b_])
+            d = float(np.linalg.norm(pts[b_] - crystal.positions[i]))
+            if j == i and d < 1e-9:
+                continue
+            if j != i and d < DUPLICATE_DISTANCE and nums[i] == nums[j] and abs(occ[i] - occ[j]) < 1e-6:
+                if j > i:
+                    drop.add(j)
+                continue
+            if j in drop or (occ[i] < 1 - 1e-6 and occ[j] < 1 - 1e-6):
+                continue
+            what = (f"sites '{_clean(labels[i])[:30]}' and '{_clean(labels[j])[:30]}'" if j != i
+                    else f"site '{_clean(labels[i])[:30]}' and its own symmetry image")
+            raise UserError(f"'{p.name}' block '{block_name}': {what} are {d:.3f} A apart after symmetry "
+                            f"expansion (below {MIN_ATOM_DISTANCE} A, no real structure); check the coordinates, "
+                            f"the space group, or give the occupancies of alternative positions")
+    return drop
 
 
 def _order(gops):
@@ -281,25 +543,6 @@ def _roles_from_block(b, labels, roles_table):
             table[lab] = roles_table.index(role)
     if table:
         out[:] = [table.get(lab, 0) for lab in labels]
-    return out
-
-
-def _radii(crystal, species):
-    from ..analysis.neighbours import nearest_neighbour_distance
-    from ..elements import solute_radius
-
-    if len(crystal) == 0:
-        return {}
-    dnn = nearest_neighbour_distance(crystal)
-    half = dnn / 2.0 if math.isfinite(dnn) and dnn > 0 else 1.0
-    if len(species) == 1:
-        return {species[0]: half}
-    out = {}
-    for s in species:
-        try:
-            out[s] = float(solute_radius(s)[0])
-        except UserError:
-            out[s] = half
     return out
 
 

@@ -1,0 +1,288 @@
+"""Partly occupied and shared sites: the average structure and its realisations.
+
+A CIF describes the *average* structure of a disordered crystal: a site may be
+shared by several species (a mixed site, ``Fe0.5Ni0.5``) or be partly empty
+(``Fe0.9``).  Such a crystal is kept as an *average* :class:`Crystal`: one
+entry per (site, species) with its occupancy in ``crystal.occupancy``; entries
+of one site sit at the same place.  Composition, formula and density use the
+occupancies.
+
+Geometry that needs real atoms (holes, neighbours, figures, print models)
+works on a *realised* crystal: every shared site gets one species or stays
+empty.  Sites are drawn class by class (the sites with the same occupancy
+signature, i.e. the symmetry-equivalent ones), and each class gets exactly
+round(occupancy x sites) atoms of each species (largest remainders), so the
+realisation matches the occupancies exactly over the supercell.  The draw is
+reproducible with ``seed``.  A realised atom keeps, in ``occupancy``, the
+occupancy its species had on its site, so figures can mark atoms that stand
+on shared sites.
+"""
+from __future__ import annotations
+
+import re
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import UserError
+
+#: Entries of partly occupied sites closer than this (A) belong to one site
+#: (split positions of one disordered atom); a real bond is never this short.
+SPLIT_SITE_DISTANCE = 0.5
+#: Occupancies summing to at most 1 + this on a site are accepted (rounded files).
+OCCUPANCY_SLACK = 0.01
+
+
+@dataclass
+class SiteGroups:
+    """How the entries of a crystal group into sites.
+
+    first : (S,) index of one entry of each site.
+    site_of : (N,) site index of each entry.
+    site_type : (S,) class index of each site (same occupancy signature).
+    signatures : class index -> signature text ("Fe", "Fe0.5Ni0.5", "O0.9").
+    """
+
+    first: np.ndarray
+    site_of: np.ndarray
+    site_type: np.ndarray
+    signatures: list
+
+    @property
+    def n_sites(self):
+        return len(self.first)
+
+
+def _occ_text(x):
+    return f"{x:.4f}".rstrip("0").rstrip(".")
+
+
+def signature(species_occ):
+    """Text naming a site's occupation: 'Cu' (full), 'Fe0.5Ni0.5', 'O0.9'.
+
+    >>> signature([("Ni", 0.5), ("Fe", 0.5)])
+    'Fe0.5Ni0.5'
+    >>> signature([("Cu", 1.0)])
+    'Cu'
+    """
+    merged = {}
+    for s, o in species_occ:
+        merged[s] = merged.get(s, 0.0) + float(o)
+    if len(merged) == 1:
+        (s, o), = merged.items()
+        if abs(o - 1.0) < 1e-6:
+            return s
+    return "".join(f"{s}{_occ_text(o)}" for s, o in sorted(merged.items()))
+
+
+_SIG = re.compile(r"([A-Z][a-z]?)(\d*\.?\d*)")
+
+
+def parse_signature(text):
+    """[(species, occupancy)] of a signature ('Fe0.5Ni0.5' -> [('Fe', 0.5), ('Ni', 0.5)]).
+
+    >>> parse_signature("Fe0.6Ni0.4")
+    [('Fe', 0.6), ('Ni', 0.4)]
+    """
+    out = []
+    for s, o in _SIG.findall(str(text)):
+        out.append((s, float(o) if o not in ("", ".") else 1.0))
+    return out
+
+
+def is_average(crystal):
+    """True when the crystal is an average structure (partly occupied or
+    shared sites not yet realised).
+
+    >>> import crystalview as cv
+    >>> is_average(cv.build("Cu"))
+    False
+    """
+    occ = getattr(crystal, "occupancy", None)
+    return occ is not None and not crystal.metadata.get("realisation")
+
+
+def site_groups(crystal, tol=SPLIT_SITE_DISTANCE):
+    """Group a crystal's entries into sites (see :class:`SiteGroups`).
+
+    Fully occupied entries are sites of their own; entries with occupancy
+    below 1 within ``tol`` A of each other (periodic) form one site.
+
+    >>> import crystalview as cv
+    >>> site_groups(cv.build("Cu")).n_sites
+    4
+    """
+    from .elements import symbol_of
+
+    n = len(crystal)
+    occ = crystal.occupancy if is_average(crystal) else None
+    site_of = np.arange(n)
+    if occ is not None and n:
+        part = np.nonzero(occ < 1.0 - 1e-6)[0]
+        if len(part):
+            parent = np.arange(n)
+
+            def find(i):
+                while parent[i] != i:
+                    parent[i] = parent[parent[i]]
+                    i = parent[i]
+                return i
+
+            for i, j in _close_pairs(crystal, part, tol):
+                ri, rj = find(i), find(j)
+                if ri != rj:
+                    parent[max(ri, rj)] = min(ri, rj)
+            site_of = np.array([find(i) for i in range(n)])
+    roots, site_of = np.unique(site_of, return_inverse=True)
+    first = np.zeros(len(roots), int)
+    first[site_of[::-1]] = np.arange(n)[::-1]
+    syms = crystal.symbols
+    if occ is None:
+        # every entry a full site: the class is the species (and role)
+        key = crystal.numbers.astype(int) * 8 + crystal.roles.astype(int)
+        uk, site_type = np.unique(key[first], return_inverse=True)
+        sigs = [symbol_of(int(k) // 8) for k in uk]
+        return SiteGroups(first, site_of, site_type, sigs)
+    members = {}
+    for e in range(n):
+        members.setdefault(int(site_of[e]), []).append((str(syms[e]), float(occ[e])))
+    sig_index, site_type, sigs = {}, np.zeros(len(roots), int), []
+    for s in range(len(roots)):
+        sig = signature(members[s])
+        total = sum(o for _, o in members[s])
+        if total > 1.0 + OCCUPANCY_SLACK:
+            raise UserError(f"the site of {', '.join(f'{a} {o:g}' for a, o in members[s])} has occupancies "
+                            f"summing to {total:.3f}, over 1; correct _atom_site_occupancy in the file")
+        if sig not in sig_index:
+            sig_index[sig] = len(sigs)
+            sigs.append(sig)
+        site_type[s] = sig_index[sig]
+    return SiteGroups(first, site_of, site_type, sigs)
+
+
+def _close_pairs(crystal, idx, tol):
+    """Pairs (i, j) of entries among ``idx`` closer than ``tol`` (periodic)."""
+    from scipy.spatial import cKDTree
+
+    from .analysis.neighbours import with_images
+
+    pos = crystal.positions[idx]
+    pts, which = with_images(pos, crystal.cell, crystal.pbc, tol)
+    tree = cKDTree(pts)
+    out = set()
+    for a, lst in enumerate(tree.query_ball_point(pos, tol)):
+        for b in lst:
+            j = int(which[b])
+            if j != a:
+                out.add((int(idx[min(a, j)]), int(idx[max(a, j)])))
+    return sorted(out)
+
+
+def composition(crystal):
+    """Species -> number of atoms in the cell, weighted by occupancy for an
+    average structure.
+
+    >>> import crystalview as cv
+    >>> composition(cv.build("Cu"))
+    {'Cu': 4.0}
+    """
+    from .elements import symbol_of
+
+    occ = crystal.occupancy if is_average(crystal) else None
+    w = np.ones(len(crystal)) if occ is None else np.asarray(occ, float)
+    out = {}
+    for z in np.unique(crystal.numbers):
+        out[symbol_of(int(z))] = float(w[crystal.numbers == z].sum())
+    return out
+
+
+def formula(comp):
+    """Formula text of a composition, smallest whole-number ratio where the
+    numbers allow, else the counts with up to 4 decimals.
+
+    >>> formula({"Fe": 2.0, "Ni": 2.0})
+    'FeNi'
+    >>> formula({"Fe": 1.8, "Ni": 2.2})
+    'Fe1.8Ni2.2'
+    """
+    items = [(s, n) for s, n in comp.items() if n > 1e-9]
+    if not items:
+        return "empty"
+    if all(abs(n - round(n)) < 1e-6 for _, n in items):
+        from math import gcd
+
+        g = 0
+        for _, n in items:
+            g = gcd(g, int(round(n)))
+        return "".join(f"{s}{'' if round(n) // g == 1 else round(n) // g}" for s, n in items)
+    return "".join(f"{s}{_occ_text(n)}" for s, n in items)
+
+
+def realise(crystal, seed=0):
+    """A realised crystal: each shared or partly occupied site of an average
+    structure gets one species or stays empty, matching the occupancies
+    exactly class by class (see the module docstring); reproducible with
+    ``seed``.  A crystal that is not an average structure comes back as it is.
+
+    >>> import numpy as np, crystalview as cv
+    >>> avg = cv.Crystal(np.diag([3.6] * 3), [[0, 0, 0]] * 2 + [[0, 1.8, 1.8]] * 2 + [[1.8, 0, 1.8]] * 2
+    ...                  + [[1.8, 1.8, 0]] * 2, symbols=["Fe", "Ni"] * 4, occupancy=[0.5] * 8)
+    >>> real = realise(avg, seed=1)
+    >>> real.counts(), real.metadata["realisation"]["seed"]
+    ({'Fe': 2, 'Ni': 2}, 1)
+    """
+    if not is_average(crystal):
+        return crystal
+    if seed is None or isinstance(seed, bool) or int(seed) != seed or seed < 0:
+        raise UserError(f"seed {seed} must be a whole number of 0 or more, e.g. seed=42")
+    g = site_groups(crystal)
+    occ = np.asarray(crystal.occupancy, float)
+    syms = crystal.symbols
+    rng = np.random.default_rng(int(seed))
+    keep = []
+    classes = []
+    for t, sig in enumerate(g.signatures):
+        sites = np.nonzero(g.site_type == t)[0]
+        spec = parse_signature(sig) if sig[0].isupper() else []
+        occ_of = {s: o for s, o in spec}
+        n = len(sites)
+        want = {s: o * n for s, o in occ_of.items()}
+        vac = max(0.0, n - sum(want.values()))
+        labels = list(want) + ["vacant"]
+        exact = np.array(list(want.values()) + [vac])
+        cnt = np.floor(exact + 1e-9).astype(int)
+        rest = n - cnt.sum()
+        if rest > 0:
+            order = np.argsort(-(exact - cnt), kind="stable")
+            cnt[order[:rest]] += 1
+        draw = np.repeat(np.arange(len(labels)), cnt)
+        rng.shuffle(draw)
+        classes.append({"site": sig, "sites": int(n),
+                        "drawn": {lab: int(c) for lab, c in zip(labels, cnt) if c or lab != "vacant"}})
+        # entries of each site, by species
+        for s_idx, pick in zip(sites, draw):
+            if labels[pick] == "vacant":
+                continue
+            ent = np.nonzero((g.site_of == s_idx) & (syms == labels[pick]))[0]
+            keep.append(int(ent[np.argmax(occ[ent])]))
+    keep = np.sort(np.array(keep, int))
+    out = crystal.select(keep)
+    shared = sum(c["sites"] for c in classes if parse_signature(c["site"]) != [(c["site"], 1.0)])
+    out.metadata["realisation"] = {"seed": int(seed), "shared_sites": int(shared), "classes": classes}
+    return out
+
+
+def average_record(crystal):
+    """The composition, formula and mass of an average structure, recorded in
+    metadata so a realised crystal still reports them.
+
+    >>> import crystalview as cv
+    >>> average_record(cv.build("Cu"))["formula"]
+    'Cu'
+    """
+    from .elements import atomic_mass
+
+    comp = composition(crystal)
+    return {"composition": comp, "formula": formula(comp),
+            "mass_amu": float(sum(atomic_mass(s) * n for s, n in comp.items())),
+            "volume_A3": crystal.volume}
