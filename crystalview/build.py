@@ -268,7 +268,7 @@ def _tile(cell, frac, species, repeat):
 # ------------------------------------------------------------------ build()
 def build(spec, phase=None, *, element=None, elements=None, lattice=None, a=None, c=None,
           repeat=None, supercell=None, orient=None, max_atoms=None, seed=0, block=None,
-          tolerance=None) -> Crystal:
+          tolerance=None, realise=True) -> Crystal:
     """Build a crystal.
 
     Parameters
@@ -290,6 +290,8 @@ def build(spec, phase=None, *, element=None, elements=None, lattice=None, a=None
         draw that realises them over the supercell (see :mod:`crystalview.occupancy`).
     block : the data block of a CIF file holding several structures.
     tolerance : lattice recognition tolerance for a CIF, in A (default 0.01).
+    realise : False keeps a CIF's partly occupied sites as an average
+        structure (for writing it back with its occupancies).
 
     >>> c = build("Cu", repeat=(2, 2, 2))
     >>> len(c), c.lattice.prototype
@@ -300,13 +302,15 @@ def build(spec, phase=None, *, element=None, elements=None, lattice=None, a=None
     if isinstance(spec, (str, Path)) and str(spec).lower().endswith(".cif"):
         from .exchange.cif import read_cif
 
-        from .occupancy import average_record, is_average, realise
+        from .occupancy import average_record, is_average
+        from .occupancy import realise as _realise
 
         base = read_cif(spec, max_atoms=max_atoms, block=block, tolerance=tolerance)
         out = _supercell_of(base, repeat=repeat, supercell=supercell, orient=orient, max_atoms=max_atoms)
         if is_average(out):
             out.metadata["average"] = average_record(out)
-            out = realise(out, seed)
+            if realise:
+                out = _realise(out, seed)
         return out
     if isinstance(spec, (str, Path)) and str(spec).lower().endswith(".toml"):
         raise UserError(f"'{spec}' is a scene file; run it with `crystalview run {spec}` or crystalview.scene.load_crystal()")

@@ -102,11 +102,13 @@ def is_average(crystal):
     return occ is not None and not crystal.metadata.get("realisation")
 
 
-def site_groups(crystal, tol=SPLIT_SITE_DISTANCE):
+def site_groups(crystal, tol=SPLIT_SITE_DISTANCE, labels=None):
     """Group a crystal's entries into sites (see :class:`SiteGroups`).
 
     Fully occupied entries are sites of their own; entries with occupancy
     below 1 within ``tol`` A of each other (periodic) form one site.
+    ``labels`` (one per entry) name the sites in the error for occupancies
+    summing above 1.
 
     >>> import crystalview as cv
     >>> site_groups(cv.build("Cu")).n_sites
@@ -143,16 +145,18 @@ def site_groups(crystal, tol=SPLIT_SITE_DISTANCE):
         uk, site_type = np.unique(key[first], return_inverse=True)
         sigs = [symbol_of(int(k) // 8) for k in uk]
         return SiteGroups(first, site_of, site_type, sigs)
-    members = {}
+    members, names = {}, {}
     for e in range(n):
         members.setdefault(int(site_of[e]), []).append((str(syms[e]), float(occ[e])))
+        names.setdefault(int(site_of[e]), []).append(str(labels[e]) if labels is not None else str(syms[e]))
     sig_index, site_type, sigs = {}, np.zeros(len(roots), int), []
     for s in range(len(roots)):
         sig = signature(members[s])
         total = sum(o for _, o in members[s])
         if total > 1.0 + OCCUPANCY_SLACK:
-            raise UserError(f"the site of {', '.join(f'{a} {o:g}' for a, o in members[s])} has occupancies "
-                            f"summing to {total:.3f}, over 1; correct _atom_site_occupancy in the file")
+            who = ", ".join(f"'{nm}' {o:g}" for nm, (_, o) in zip(names[s], members[s]))
+            raise UserError(f"the site shared by {who} has occupancies summing to {total:.3f}, over 1; "
+                            f"correct _atom_site_occupancy")
         if sig not in sig_index:
             sig_index[sig] = len(sigs)
             sigs.append(sig)

@@ -12,6 +12,7 @@ ROLE_COLOURS = {
     "solute": "#e08a1e",        # amber, light
     "interstitial": "#1f4e9c",  # deep blue, dark
     "vacancy": "#2b2b2b",       # near-black outline
+    "shared-site": "#8e3fb0",   # violet halo: an atom drawn on a site several species share
     "site-octahedral": "#c2569b",   # magenta-rose
     "site-tetrahedral": "#3fa68a",  # sea green, lighter than the rose
     "site-other": "#a58bd1",        # lavender

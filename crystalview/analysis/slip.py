@@ -99,6 +99,11 @@ def _lattice_key(crystal):
     if lat is None:
         raise UserError("this crystal carries no lattice type, so its slip systems are unknown; "
                         "build it from an element or a lattice type, e.g. cv.build('Cu')")
+    if lat.prototype == "cif":
+        rec = crystal.metadata.get("recognition") or {}
+        why = f" ({rec['reason']})" if rec.get("reason") else ""
+        raise UserError(f"this structure is not one of the lattice types with tabulated slip systems "
+                        f"({', '.join(LATTICE_FAMILIES)}){why}; no slip table for it")
     if lat.prototype not in LATTICE_FAMILIES:
         known = ", ".join(LATTICE_FAMILIES)
         raise UserError(f"no slip systems are tabulated for the {lat.title or lat.prototype} lattice; "

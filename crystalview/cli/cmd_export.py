@@ -38,7 +38,7 @@ def run(args):
         opts["real_scale"] = True
     if args.instancing:
         opts["instancing"] = args.instancing
-    c = crystal_from_args(args)
+    c = crystal_from_args(args, keep_average=suffix == ".cif")
     info = export(c, args.output, force=args.force, **opts)
     info = dict(info)
     if args.json:

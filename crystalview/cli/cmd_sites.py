@@ -30,6 +30,16 @@ def coords_text(frac):
     return " ".join("(" + ",".join(_frac_text(x) for x in f) + ")" for f in frac)
 
 
+def _why_measured(c):
+    lat = c.lattice
+    if lat is None or lat.prototype == "cif":
+        return " (no built-in lattice type: holes found by the generic void analysis)"
+    if c.metadata.get("realisation") and not c.metadata.get("defects"):
+        return (f" (shared sites drawn with seed {c.metadata['realisation']['seed']}: radii measured against the "
+                f"atoms present)")
+    return " (defected: radii measured against the atoms present)"
+
+
 def run(args):
     from ..analysis.sites import sites_report
 
@@ -57,7 +67,7 @@ def run(args):
         par += f", c = {head['c_A']:.4f} A"
     print(title + (f", {par}" if par else ""))
     print("host hard-sphere radius R: " + ", ".join(f"{k} {v:.4f} A" for k, v in head["host_radius_A"].items())
-          + f"; {len(c)} atoms" + ("" if perfect else " (defected: radii measured against the atoms present)"))
+          + f"; {len(c)} atoms" + ("" if perfect else _why_measured(c)))
     print()
     if perfect:
         trows = [(r["label"], f"{r['radius_A']:.4f}", f"{r['ratio']:.3f}", r["per_cell"], f"{r['per_atom']:g}",

@@ -59,8 +59,10 @@ def _ints(values, what, example):
     return out
 
 
-def crystal_from_args(args):
-    """Build the crystal a command's SPEC arguments describe (defects applied)."""
+def crystal_from_args(args, keep_average=False):
+    """Build the crystal a command's SPEC arguments describe (defects applied).
+    ``keep_average``: a CIF's partly occupied sites stay an average structure
+    unless defects are asked for (which need real atoms)."""
     from ..build import build
 
     spec = args.spec
@@ -89,7 +91,8 @@ def crystal_from_args(args):
         if args.max_atoms is not None:
             kw["max_atoms"] = int(args.max_atoms)
         if low.endswith(".cif"):
-            kw.update(block=args.block, tolerance=args.tolerance, seed=getattr(args, "seed", 0) or 0)
+            kw.update(block=args.block, tolerance=args.tolerance, seed=getattr(args, "seed", 0) or 0,
+                      realise=not keep_average)
         elif args.block is not None or args.tolerance is not None:
             raise UserError("--block and --tolerance are for a .cif SPEC; leave them out")
         crystal = build(spec, phase=args.phase, lattice=args.lattice, a=args.a, c=args.c, **kw)

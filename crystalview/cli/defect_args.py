@@ -91,6 +91,12 @@ def apply(crystal, args):
     seed = getattr(args, "seed", 0)
     if seed is not None and (isinstance(seed, bool) or not isinstance(seed, int) or seed < 0):
         raise UserError(f"--seed {seed} must be a whole number of 0 or more, e.g. --seed 42")
+    from ..occupancy import is_average, realise
+
+    if is_average(crystal) and any(getattr(args, k, None) not in (None, [], False) for k in
+                                   ("stack", "fault", "dislocation", "slab", "tilt_boundary", "substitute",
+                                    "vacancies", "frenkel")):
+        crystal = realise(crystal, seed)          # defects act on real atoms
     if getattr(args, "fault", None) is not None:
         from ..defects.planar import FCC_FAULTS, HCP_FAULTS, NAMED_SEQUENCES
 

@@ -287,9 +287,13 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
                                           basis_symbols=tuple(symbols[k] for k in keep))
         crystal.metadata["note"] = (f"{len(drop)} atom(s) listed twice in the file (symmetry copies of listed "
                                     f"sites) were read once")
-    from ..occupancy import average_record
+    from ..occupancy import average_record, site_groups
 
     if average:
+        try:
+            site_groups(crystal, labels=[labels[k] for k in range(len(labels)) if k not in drop])
+        except UserError as exc:
+            raise UserError(f"'{p.name}' block '{b.name}': {exc}") from None
         crystal.metadata["average"] = average_record(crystal)
     crystal = attach_lattice(crystal, tol)
     rec = crystal.metadata["recognition"]
@@ -457,7 +461,8 @@ def _block_name(b):
 
             text = " ".join(gemmi.cif.as_string(v).split())
             if text and text not in ("?", "."):
-                return text
+                # a formula sum 'B2 Mg' reads as MgB2's elements, not as the B2 structure type: close it up
+                return text.replace(" ", "") if tag == "_chemical_formula_sum" and len(text) < 60 else text
     return b.name
 
 
@@ -567,7 +572,7 @@ def _triplet(rot, tran24):
     return op
 
 
-def symmetry_of(crystal):
+def symmetry_of(crystal, types=None):
     """How the crystal would be written: a dict with ``mode`` "symmetry" or
     "P1", ``reason`` (for P1), the space group found by spglib
     (``spglib_number``, ``spglib_symbol``) and, for "symmetry": ``ops``
@@ -595,7 +600,8 @@ def symmetry_of(crystal):
     frac = crystal.frac
     frac -= np.floor(frac)
     frac[frac >= 1 - 1e-12] = 0.0
-    types = crystal.numbers.astype(int) * len(ROLES) + crystal.roles.astype(int)
+    if types is None:
+        types = crystal.numbers.astype(int) * len(ROLES) + crystal.roles.astype(int)
     prec = symprec_for(cell)
     import warnings
 
@@ -641,6 +647,12 @@ def symmetry_of(crystal):
         tab = gemmi.find_spacegroup_by_ops(gemmi.GroupOps(ops))
     except (ValueError, RuntimeError):
         tab = None
+    if tab is None:
+        # operations that are no tabulated setting (a supercell, an oriented cell): readers that expand
+        # by the symbol would lose atoms, so every atom is listed (common practice)
+        out["reason"] = (f"this cell is no tabulated setting of {_hm_of(int(sg_type.number))} (a supercell or an "
+                         f"oriented cell); every atom is listed so that every reader expands it alike")
+        return out
     # one atom per orbit, moved exactly onto its special position: the mean of
     # its images under the operations that keep it (its site-symmetry group)
     reps = sorted({int(k) for k in ds.equivalent_atoms})
@@ -702,12 +714,23 @@ def _cif_text(crystal, *, symmetry=True):
     from ..lattice import cell_parameters
 
     a, b, c, al, be, ga = cell_parameters(crystal.cell)
-    info = symmetry_of(crystal) if symmetry else {"mode": "P1", "reason": "symmetry search switched off",
-                                                  "spglib_number": None, "spglib_symbol": None}
+    from ..occupancy import is_average, site_groups
+
+    average = is_average(crystal)
+    groups = site_groups(crystal) if average else None
+    if not symmetry:
+        info = {"mode": "P1", "reason": "symmetry search switched off", "spglib_number": None, "spglib_symbol": None}
+    elif average:
+        # the symmetry of the sites, each site's kind its occupancy signature
+        reps = crystal.select(groups.first)
+        reps.occupancy = None
+        info = symmetry_of(reps, types=groups.site_type * len(ROLES) + reps.roles.astype(int))
+    else:
+        info = symmetry_of(crystal)
     name = crystal.metadata.get("name") or "crystal"
     block = "".join(ch if ch.isascii() and (ch.isalnum() or ch in "-_") else "_" for ch in str(name)) or "crystal"
     counts = crystal.counts()
-    formula = " ".join(f"{s}{n if n != 1 else ''}" for s, n in counts.items())
+    formula = " ".join(f"{s}{'' if n == 1 else format(n, 'g')}" for s, n in counts.items())
     lines = ["#\\#CIF_1.1", f"# written by crystalview {__version__}"]
     if info["mode"] == "symmetry":
         sg_line = f"space group {info['hm'] or info['type_symbol']} (No. {info['number']})"
@@ -747,6 +770,12 @@ def _cif_text(crystal, *, symmetry=True):
         lines += ["loop_", "_space_group_symop_id", "_space_group_symop_operation_xyz"]
         lines += [f"{k + 1} {_q(op.triplet())}" for k, op in enumerate(info["ops"])]
         idx, frac = info["sites"], info["frac"]
+        if average:          # every entry of each listed site, at the site's symmetrised place
+            shift = frac - crystal.frac[groups.first[idx]]
+            ent = [(e, m) for m, k in enumerate(idx) for e in np.nonzero(groups.site_of == k)[0]]
+            idx = [e for e, _ in ent]
+            frac = np.array([crystal.frac[e] + shift[m] for e, m in ent]).reshape(-1, 3) % 1.0
+            frac[frac >= 1 - 1e-12] = 0.0
     else:
         lines += ["_space_group_crystal_system triclinic", "_space_group_IT_number 1",
                   "_symmetry_Int_Tables_number 1", "_space_group_name_H-M_alt 'P 1'",
@@ -772,7 +801,8 @@ def _cif_text(crystal, *, symmetry=True):
         seen[s] = seen.get(s, 0) + 1
         role = ROLES[int(crystal.roles[k])]
         label = f"{s}{seen[s]}" + ("" if role == "host" else f"_{role}")
-        row = f"{label} {s} {frac[m, 0]:.8f} {frac[m, 1]:.8f} {frac[m, 2]:.8f} 1"
+        occ = "1" if not average else format(float(crystal.occupancy[k]), ".6g")
+        row = f"{label} {s} {frac[m, 0]:.8f} {frac[m, 1]:.8f} {frac[m, 2]:.8f} {occ}"
         lines.append(row + (f" {role}" if with_roles else ""))
     return "\n".join(lines) + "\n", info
 

@@ -704,9 +704,37 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
                                    colour=palette.ROLE_COLOURS["vacancy"], group="defects"))
             sc.legend.append((f"vacancy ({len(vac)})", palette.ROLE_COLOURS["vacancy"], "ring"))
 
+    _shared_site_marks(sc, crystal, radii, st)
     sc.info.update(style=st.name, view=v.label, up=v.up_label, view_text=str(view), up_text=up)
     sc.caption = caption_lines(crystal, v, st, slip_info)
     return sc
+
+
+#: Above this many atoms on shared sites the figure names them in the legend only.
+MAX_SHARED_MARKS = 2000
+
+
+def _shared_site_marks(sc, crystal, radii, st):
+    """A halo around atoms that stand on a shared or partly occupied site of
+    a realised crystal (the species drawn there is one of several), with a
+    legend line naming the sites and the seed of the draw."""
+    real = crystal.metadata.get("realisation")
+    if not real or crystal.occupancy is None:
+        return
+    shared = np.nonzero(crystal.occupancy < 1.0 - 1e-6)[0]
+    sigs = [c["site"] for c in real.get("classes", []) if not c["site"].isalpha()]
+    if not sigs:
+        return
+    names = ", ".join(sigs[:3]) + (" ..." if len(sigs) > 3 else "")
+    colour = palette.ROLE_COLOURS["shared-site"]
+    if len(shared) == len(crystal) or len(shared) > MAX_SHARED_MARKS or len(shared) == 0:
+        sc.legend.append((f"every site shared ({names}); one draw, seed {real['seed']}"
+                          if len(shared) == len(crystal) else
+                          f"{len(shared)} atoms on shared sites ({names}); seed {real['seed']}", colour, "none"))
+        return
+    sc.markers.append(dict(pos=crystal.positions[shared], radius=float(np.median(radii[shared])) * st.atom_scale * 1.18,
+                           colour=colour, group="defects"))
+    sc.legend.append((f"on a partly occupied or shared site ({names}); one draw, seed {real['seed']}", colour, "ring"))
 
 
 def vacancy_positions(crystal):
