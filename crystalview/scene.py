@@ -75,7 +75,9 @@ SCHEMA = {
                                      "supercell": {"type": "array", "minItems": 3, "maxItems": 3,
                                                    "items": {"type": "array", "items": {"type": "integer"}, "minItems": 3, "maxItems": 3}},
                                      "orient": {"type": "array", "items": INDEX, "minItems": 3, "maxItems": 3},
-                                     "max_atoms": {"type": "integer", "minimum": 1}}},
+                                     "max_atoms": {"type": "integer", "minimum": 1},
+                                     "block": {"type": "string"}, "seed": SEED,
+                                     "tolerance": {"type": "number", "exclusiveMinimum": 0, "maximum": 1}}},
         "defects": {"type": "array", "items": _defect_schema()},
         "analysis": {"type": "object", "additionalProperties": False,
                      "properties": {"info": {"type": "boolean"}, "sites": {"type": "boolean"},
@@ -187,6 +189,9 @@ def load(path):
         raise UserError(f"{p}: [structure] needs one of element, compound, lattice or cif")
     if "cif" in s and len(keys) > 1:
         raise UserError(f"{p}: [structure] gives cif together with {', '.join(k for k in keys if k != 'cif')}; give one")
+    extra = [k for k in ("block", "tolerance", "seed") if k in s]
+    if extra and "cif" not in s:
+        raise UserError(f"{p}: [structure] {', '.join(extra)} go with cif = \"FILE.cif\"; leave them out")
     try:
         plan_outputs(data, Path("."))
     except UserError as exc:
@@ -202,7 +207,8 @@ def crystal_from_scene(data, base_dir="."):
     kw = {k: s[k] for k in ("a", "c", "repeat", "supercell", "orient", "max_atoms") if k in s}
     if "cif" in s:
         cif = Path(base_dir) / s["cif"]
-        crystal = build(str(cif), **{k: v for k, v in kw.items() if k in ("repeat", "supercell", "orient", "max_atoms")})
+        crystal = build(str(cif), **{k: v for k, v in kw.items() if k in ("repeat", "supercell", "orient", "max_atoms")},
+                        block=s.get("block"), tolerance=s.get("tolerance"), seed=s.get("seed", 0))
     elif "compound" in s:
         crystal = build(s["compound"], **kw)
     elif "element" in s and "lattice" in s and s["lattice"] not in ("",):

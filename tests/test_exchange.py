@@ -272,8 +272,7 @@ def test_cli_export(tmp_path):
 # Space-group numbers: International Tables for Crystallography Vol. A (Cu, Ni Fm-3m 225; alpha-Fe Im-3m 229;
 # alpha-Ti P6_3/mmc 194; Ni3Al L1_2 Pm-3m 221; TiAl L1_0 P4/mmm 123; Si diamond Fd-3m 227).
 # Independent oracles: gemmi reads and expands the file, spglib finds the group of what gemmi expanded.
-SPACE_GROUPS = [("Cu", {}, 225), ("Fe", {}, 229), ("Ti", {}, 194), ("Ni3Al", {}, 221), ("TiAl", {}, 123),
-                ("Si", {}, 227), ("Cu", {"repeat": (2, 2, 2)}, 225)]
+SPACE_GROUPS = [("Cu", {}, 225), ("Fe", {}, 229), ("Ti", {}, 194), ("Ni3Al", {}, 221), ("Si", {}, 227)]
 
 
 def _gemmi_expand(path):
@@ -333,23 +332,33 @@ def test_cif_tabulated_setting_has_symbol(tmp_path):
         assert f"_space_group_name_H-M_alt '{hm}'" in out.read_text()
 
 
-def test_cif_supercell_kept_as_given(tmp_path):
-    """A 2x2x2 Cu repeat is written as that cell (not reduced to the 4-atom
-    cell): 1 site and 48 x 32 = 1536 operations (International Tables Vol. A:
-    Fm-3m has 48 point operations; the 2x2x2 cell holds 32 lattice points)."""
-    c = cv.build("Cu", repeat=(2, 2, 2))
-    out = tmp_path / "cu222.cif"
+@pytest.mark.parametrize("spec,kw,number", [("Cu", {"repeat": (2, 2, 2)}, 225), ("TiAl", {}, 123),
+                                             ("Ti", {"repeat": (2, 2, 2)}, 194),
+                                             ("Cu", {"orient": ("[1-10]", "[11-2]", "[111]")}, 225)])
+def test_cif_cells_that_are_no_tabulated_setting_listed_in_p1(tmp_path, spec, kw, number):
+    """A supercell, an oriented cell or the face-centred setting of L1_0 is no tabulated setting of its
+    space group: written in P 1 with every atom (common practice), so gemmi's small-structure path
+    (setup_cell_images + get_all_unit_cell_sites) and spglib recover every atom; the group spglib finds
+    is named in a comment (International Tables Vol. A numbers)."""
+    import gemmi
+    import spglib
+
+    c = cv.build(spec, **kw)
+    out = tmp_path / "x.cif"
     info = cv.export(c, out)
-    assert info["symmetry_operations"] == 48 * 32 and info["sites_listed"] == 1
-    text = out.read_text()
-    assert "_space_group_name_H-M_alt" not in text     # not a tabulated setting: no symbol readers could misuse
+    assert info["space_group_number"] == 1 and info["sites_listed"] == len(c)
+    assert f"(No. {number})" in out.read_text()
+    st = gemmi.read_small_structure(str(out))
+    st.setup_cell_images()
+    sites = st.get_all_unit_cell_sites()
+    assert len(sites) == len(c)
+    np.testing.assert_allclose(st.cell.volume, c.volume, rtol=1e-6)
+    cell = np.array(st.cell.orth.mat).T
+    frac = np.array([[s.fract.x, s.fract.y, s.fract.z] for s in sites])
+    nums = [s.element.atomic_number for s in sites]
+    assert spglib.get_symmetry_dataset((cell, frac, nums), symprec=1e-3).number == number
     back = cv.read_cif(out)
-    np.testing.assert_allclose(np.linalg.norm(back.cell, axis=1), np.linalg.norm(c.cell, axis=1), rtol=1e-7)
-    assert back.lattice.space_group == 225 and len(back) == 32
-    # a 3x3x3 repeat (5184 operations) is listed in P 1 with spglib's group named in a comment
-    info = cv.export(cv.build("Cu", repeat=(3, 3, 3)), tmp_path / "cu333.cif")
-    assert info["space_group_number"] == 1 and info["sites_listed"] == 108
-    assert "F m -3 m (No. 225)" in (tmp_path / "cu333.cif").read_text()
+    assert len(back) == len(c) and back.lattice.prototype == c.lattice.prototype
 
 
 def test_cif_defects_p1_roles_kept(tmp_path):

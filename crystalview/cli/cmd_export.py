@@ -56,5 +56,7 @@ def run(args):
             extra += f", space group {info['space_group']}"
         shown = info.get("spheres")
         images = f" ({shown} spheres with the images on the cell faces)" if shown and shown != info["atoms"] else ""
-        print(f"wrote {info['file']}: {info['atoms']} atoms{images}, {info['bytes']:,} bytes{extra}")
+        if "entries" in info:
+            images = f" ({info['entries']} site entries with their occupancies)"
+        print(f"wrote {info['file']}: {info['atoms']:g} atoms{images}, {info['bytes']:,} bytes{extra}")
     return 0

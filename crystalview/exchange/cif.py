@@ -828,4 +828,10 @@ def write_cif(crystal, path, *, force=False, symmetry=True):
            "sites_listed": sites, "symmetry_operations": ops, "bytes": len(text.encode("utf-8"))}
     if info["mode"] != "symmetry":
         out["note"] = info["reason"]
+    from ..occupancy import is_average
+
+    if is_average(crystal):
+        out["atoms"] = round(sum(crystal.counts().values()), 6)
+        out["entries"] = len(crystal)
+        out["occupancies"] = "written as read (partly occupied or shared sites)"
     return out
