@@ -108,7 +108,7 @@ def density(crystal: Crystal):
 
     >>> import crystalview as cv
     >>> round(density(cv.build("Cu")), 2)
-    8.93
+    8.94
     """
     avg = _average(crystal)
     mass = avg["mass_amu"] if avg is not None else crystal.mass_amu

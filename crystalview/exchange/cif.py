@@ -119,7 +119,7 @@ def _int_or_none(text):
 
 
 def read_cif(path, block=None, max_atoms=None, tolerance=None):
-    """A :class:`~crystalview.crystal.Crystal` from a CIF file (CIF 1.1 or
+    r"""A :class:`~crystalview.crystal.Crystal` from a CIF file (CIF 1.1 or
     2.0): the full unit cell (asymmetric unit expanded by the space group), in
     the file's own cell, with the lattice type recognised from the atoms
     (:mod:`crystalview.recognise`; ``tolerance`` in A, default 0.01).

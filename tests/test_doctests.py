@@ -1,0 +1,16 @@
+"""The examples in the public docstrings run as written (doctest)."""
+import doctest
+import importlib
+
+import pytest
+
+MODULES = ["crystalview.recognise", "crystalview.occupancy", "crystalview.elements", "crystalview.build",
+           "crystalview.analysis.properties", "crystalview.exchange.cif"]
+
+
+@pytest.mark.parametrize("name", MODULES)
+def test_docstring_examples(name):
+    mod = importlib.import_module(name)
+    res = doctest.testmod(mod, optionflags=doctest.ELLIPSIS | doctest.NORMALIZE_WHITESPACE)
+    assert res.failed == 0
+    assert res.attempted > 0
