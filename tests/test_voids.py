@@ -153,3 +153,376 @@ def test_cli_sites_voids_cap(cli):
     assert rc == 0
     rc, out, err = cli("sites", "Cu", "--voids", "--repeat", "2", "2", "2", "--json")
     assert rc == 0
+
+
+# ---------------------------------------------------------------------- issue 16: faster, same answer
+# The void analysis as it was before issue 16 is kept below, verbatim, as the reference the new one
+# must reproduce (it triangulated the exact points with Qhull's joggle and a 2.25-spacing padding).
+from crystalview.analysis.voids import (  # noqa: E402
+    Voids, _check_atoms, _contract, _face_bottleneck, _widest, check_void_size, tangent_spheres)
+
+
+def _same_holes(new, old, channels=True, tol=1e-6):
+    """Assert two Voids hold the same holes (matched by position) to tol A: radii, kinds, ratios,
+    bounding atoms and, with channels, the same channels and bottlenecks."""
+    from scipy.spatial import cKDTree
+
+    assert len(new) == len(old)
+    d, j = cKDTree(old.positions).query(new.positions)
+    assert d.max() <= tol and len(set(j.tolist())) == len(j)
+    assert np.abs(new.radii - old.radii[j]).max() <= tol
+    assert np.all(new.kinds == old.kinds[j])
+    assert np.abs(new.ratios - old.ratios[j]).max() <= tol
+    for i in range(len(new)):
+        assert set(new.neighbours[i][new.neighbours[i] >= 0]) == set(old.neighbours[j[i]][old.neighbours[j[i]] >= 0])
+    if channels:
+        a = {tuple(sorted((int(j[x]), int(j[y])))): w for (x, y), w in zip(new.channels, new.bottlenecks)}
+        b = {tuple(sorted((int(x), int(y)))): w for (x, y), w in zip(old.channels, old.bottlenecks)}
+        assert set(a) == set(b)
+        assert max((abs(a[k] - b[k]) for k in a), default=0.0) <= tol
+
+
+def _defect_cases():
+    c = cv.build("Cu", repeat=(3, 3, 3))
+    return {
+        "vacancies-fcc": lambda: cv.add_vacancies(c, count=4, seed=1),
+        "vacancies-bcc": lambda: cv.add_vacancies(cv.build("Fe", repeat=(3, 3, 3)), count=2, seed=4),
+        "vacancies-hcp": lambda: cv.add_vacancies(cv.build("Mg", repeat=(3, 3, 2)), count=2, seed=5),
+        "frenkel-interstitials": lambda: cv.frenkel_pairs(c, 2, seed=6),
+        "stacking-fault": lambda: cv.stack("Cu", "intrinsic", repeat=(2, 2)),
+        "stacking-hcp-fcc": lambda: cv.stack("Mg", "ABCABABCABC"),
+        "dislocation-edge": lambda: cv.dislocation("Cu", "edge"),
+        "dislocation-screw": lambda: cv.dislocation("Fe", "screw"),
+        "tilt-boundary": lambda: cv.tilt_boundary("Cu", axis="[001]", plane="(310)"),
+        "tilt-boundary-open": lambda: cv.tilt_boundary("Cu", plane="(310)", periodic=False),
+        "slab": lambda: cv.slab("Cu", "(111)", layers=5, repeat=(2, 2)),
+        "simple-cubic": lambda: cv.build("sc", element="Po", a=3.35, repeat=(2, 2, 2)),
+    }
+
+
+@pytest.mark.parametrize("name", sorted(_defect_cases()))
+def test_same_holes_as_before_issue_16(name):
+    c = _defect_cases()[name]()
+    new, old = cv.find_voids(c), _reference_find_voids(c)
+    # channels: the old code also joined holes through flat slivers of coplanar but not concyclic
+    # atoms on a free surface (an artefact of the hull: its "bottleneck" was a hole radius); the new
+    # one drops them, so on crystals with a free surface only the holes are compared
+    _same_holes(new, old, channels=all(c.pbc))
+
+
+@pytest.mark.parametrize("solute", [("Ni", "substitute"), ("C", "interstitial")])
+def test_mixed_radii_largest_hole_and_true_radii(solute):
+    # With unequal radii the old answer depended on how Qhull happened to split co-spherical atoms
+    # (listing the same atoms in another order moved some holes by up to 1.5 A), so only what does
+    # not depend on that is compared: the largest hole, and every radius being a true free radius.
+    c = cv.build("Cu", repeat=(3, 3, 3))
+    d = cv.substitute(c, "Ni", count=10, seed=2) if solute[1] == "substitute" else \
+        cv.fill_sites(c, "C", kind="octahedral", fraction=0.05, seed=3)
+    new, old = cv.find_voids(d), _reference_find_voids(d)
+    assert new.radii.max() == pytest.approx(old.radii.max(), abs=1e-6)
+    R = d.atom_radii()
+    f = (d.positions[None, :, :] - new.positions[:, None, :]) @ np.linalg.inv(d.cell)
+    dist = np.linalg.norm((f - np.round(f)) @ d.cell, axis=2)
+    assert np.abs((dist - R).min(axis=1) - new.radii).max() < 1e-9
+
+
+def _free_distance_grid(c, n):
+    """Distance from each point of an n^3 grid of the cell to the nearest atom centre (periodic)."""
+    from scipy.spatial import cKDTree
+
+    from crystalview.analysis.neighbours import with_images
+
+    pts, _ = with_images(c.positions, c.cell, c.pbc, 4.0)
+    g = np.stack(np.meshgrid(*[np.arange(n) / n] * 3, indexing="ij"), -1).reshape(-1, 3) @ c.cell
+    d, _ = cKDTree(pts).query(g, workers=-1)
+    return g.reshape(n, n, n, 3), d.reshape(n, n, n), cKDTree(pts)
+
+
+@pytest.mark.parametrize("spec,vac", [("Cu", 2), ("Cu", 1)])
+def test_holes_are_the_empty_sphere_maxima_by_dense_sampling(spec, vac):
+    # source: definition of the holes (maxima of the distance to the nearest atom centre, equal
+    # radii), checked by brute force: dense periodic sampling, no triangulation
+    c = cv.add_vacancies(cv.build(spec, repeat=(2, 2, 2)), count=vac, seed=7)
+    v = cv.find_voids(c)
+    R = float(c.atom_radii()[0])
+    n = 72
+    g, d, tree = _free_distance_grid(c, n)
+    step = np.linalg.norm(c.cell, axis=1).max() / n
+    # every hole: its radius is the free distance there, and no point near it has more room
+    dh, _ = tree.query(v.positions)
+    assert np.allclose(dh - R, v.radii, atol=1e-9)
+    rng = np.random.default_rng(0)
+    probe = rng.normal(size=(64, 3))
+    probe *= 0.05 / np.linalg.norm(probe, axis=1)[:, None]
+    near, _ = tree.query((v.positions[:, None, :] + probe[None]).reshape(-1, 3))
+    assert (near.reshape(len(v), -1) - R <= v.radii[:, None] + 1e-9).all()
+    # every sampled local maximum lies at a hole (within a grid step) and has no more room than it
+    is_max = np.ones_like(d, bool)
+    for sh in [(a, b, e) for a in (-1, 0, 1) for b in (-1, 0, 1) for e in (-1, 0, 1) if (a, b, e) != (0, 0, 0)]:
+        is_max &= d >= np.roll(d, sh, axis=(0, 1, 2))
+    mx = g[is_max]
+    f = (mx[:, None, :] - v.positions[None, :, :]) @ np.linalg.inv(c.cell)
+    sep = np.linalg.norm((f - np.round(f)) @ c.cell, axis=2)
+    j = sep.argmin(axis=1)
+    assert sep.min(axis=1).max() < 1.8 * step
+    assert (d[is_max] - R <= v.radii[j] + 1e-9).all()
+    # and every hole is found by the sampling
+    assert len(set(j.tolist())) == len(v)
+
+
+def test_padding_is_the_thinnest_bound_and_a_thin_guess_is_redone():
+    from crystalview.analysis.voids import _find_voids
+
+    c = cv.add_vacancies(cv.build("Cu", repeat=(4, 4, 4)), count=3, seed=2)
+    info = {}
+    v = _find_voids(c, info=info)
+    R = float(c.atom_radii()[0])
+    # the bound: pad = max over kept tetrahedra of (rho - depth) <= ext + largest empty sphere through atom centres
+    assert info["need_pad"] <= info["pad"] + 1e-9
+    assert info["need_pad"] <= info["ext"] + float(v.radii.max()) + R + 1e-9
+    # a guess thinner than the bound is detected, and padded again to exactly the bound
+    thin = {}
+    w = _find_voids(c, reach=0.5 * info["need_pad"], info=thin)
+    assert thin["attempts"] == 2 and thin["pad"] == pytest.approx(info["need_pad"], rel=1e-6)
+    _same_holes(w, v)
+    # a thicker padding changes nothing
+    _same_holes(_find_voids(c, reach=3 * info["pad"]), v)
+
+
+def test_slabs_join_seamlessly():
+    from crystalview.analysis.voids import _find_voids
+
+    c = cv.add_vacancies(cv.build("Cu", repeat=(6, 6, 8)), count=12, seed=3)
+    one = _find_voids(c, slabs=1)
+    info = {}
+    three = _find_voids(c, slabs=3, info=info)
+    assert info["slabs"] == 3
+    _same_holes(three, one)
+    g = cv.tilt_boundary("Fe", axis="[111]", plane="(2-1-1)")
+    _same_holes(_find_voids(g, slabs=2), _find_voids(g, slabs=1))
+
+
+def _reference_find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None):
+    """The void analysis as it was before issue 16 (QJ-joggled triangulation of a 2.25 s padding), verbatim."""
+    from scipy.spatial import Delaunay
+    from scipy.spatial import QhullError
+
+    from crystalview.analysis.neighbours import cell_heights, with_images
+
+    n = len(crystal)
+    if n == 0:
+        raise UserError("the crystal has no atoms; there are no holes to find")
+    check_void_size(crystal, max_atoms)
+    radii_atoms = crystal.atom_radii()
+    if not np.all(np.isfinite(radii_atoms)) or np.any(radii_atoms <= 0):
+        raise UserError("every atom needs a positive hard-sphere radius for the hole search; "
+                        "set crystal.species_radii for the species without one")
+    cell = crystal.cell
+    pbc = np.array(crystal.pbc)
+    h = cell_heights(cell)
+    s = (crystal.volume / n) ** (1.0 / 3.0)
+    ext = 0.75 * s
+    pad = ext + 1.5 * s
+    equal = float(radii_atoms.max() - radii_atoms.min()) < 1e-12
+    for _attempt in range(6):
+        pts, idx = with_images(crystal.positions, cell, pbc, pad)
+        if len(pts) < 4:
+            raise UserError(f"{len(pts)} atoms (with periodic images) cannot enclose a hole; give at least four "
+                            f"atoms that are not coplanar")
+        rad = radii_atoms[idx]
+        sample = pts[:: max(1, len(pts) // 20000)] if len(pts) > 40000 else pts
+        sv = np.linalg.svd(sample - sample.mean(axis=0), compute_uv=False)
+        if sv[-1] <= 1e-8 * sv[0] or len(sv) < 3:
+            raise UserError("the atoms are coplanar or collinear (no three-dimensional hole); give a "
+                            "three-dimensional structure or make the cell periodic")
+        try:
+            tri = Delaunay(pts, qhull_options="QJ Qbb")
+        except QhullError:
+            raise UserError("the atoms are coplanar or collinear (no three-dimensional hole); give a "
+                            "three-dimensional structure or make the cell periodic") from None
+        simp = tri.simplices
+        c0 = pts[simp[:, 0]]
+        y, r, ok = tangent_spheres(c0, pts[simp[:, 1]] - c0, pts[simp[:, 2]] - c0, pts[simp[:, 3]] - c0,
+                                   rad[simp[:, 0]], rad[simp[:, 1]], rad[simp[:, 2]], rad[simp[:, 3]])
+        centre = c0 + y
+        frac = np.linalg.solve(cell.T, centre.T).T
+        lo = np.where(pbc, -ext / h, -np.inf)
+        hi = np.where(pbc, 1 + ext / h, np.inf)
+        keep = ok & np.all((frac >= lo) & (frac <= hi), axis=1) & np.isfinite(r)
+        # non-periodic axes: the cell box bounds the search
+        for k in range(3):
+            if not pbc[k]:
+                keep &= (frac[:, k] >= 0) & (frac[:, k] <= 1)
+        rho = r[keep] + rad[simp[keep, 0]]
+        if not keep.any() or (float(rho.max()) + ext <= pad) or not pbc.any():
+            break
+        pad = float(rho.max()) + ext + 0.5 * s
+    else:
+        raise UserError("the holes are too large for the cell (open space?); void analysis needs a filled cell")
+
+    from scipy.spatial import cKDTree
+
+    tree = cKDTree(pts)
+    _check_atoms(crystal, tree, idx, radii_atoms)
+    kt = np.nonzero(keep)[0]
+    if len(kt) == 0:
+        raise UserError("no enclosed hole found inside the cell; give a filled three-dimensional structure")
+    f = frac[kt]
+    snapped = np.where(np.abs(f - np.round(f)) < 1e-9, np.round(f), f)
+    canon = np.all(~pbc | ((snapped >= 0) & (snapped < 1)), axis=1)
+    wrapped = np.where(pbc, snapped - np.floor(snapped), snapped)
+    wrapped = np.where(wrapped >= 1 - 1e-12, 0.0, wrapped)
+    wc = wrapped @ cell
+    # merge degenerate duplicates: same centre (to 1e-5 A)
+    q = np.floor((wc + 3.1e-6) / 1e-5).astype(np.int64)
+    _, gid_kept = np.unique(q, axis=0, return_inverse=True)
+    gid_kept = gid_kept.reshape(-1)
+    K = len(kt)
+    rk = r[kt]
+    kq = 16 if len(pts) >= 16 else len(pts)
+    if not equal:
+        # mixed radii: the tangent spheres of one hole split into a few close
+        # points; join points closer than a quarter of the smallest radius and
+        # keep the one with the largest true free radius
+        dq, jq = tree.query(wc, k=kq)
+        rk = np.minimum(rk, (dq - radii_atoms[idx[jq]]).min(axis=1))
+        from scipy.sparse import coo_matrix
+        from scipy.sparse.csgraph import connected_components
+
+        lengths = np.linalg.norm(cell, axis=1)
+        span = np.where(pbc, lengths, 1e9)
+        xs = np.where(pbc, wrapped, wrapped - np.floor(wrapped.min(axis=0))) * lengths
+        xs = np.where(pbc, np.mod(xs, span), xs)
+        pairs = cKDTree(xs, boxsize=np.where(pbc, span, 0) if pbc.all() else None).query_pairs(
+            0.25 * float(radii_atoms.min()), output_type="ndarray")
+        ng0 = int(gid_kept.max()) + 1
+        rows = np.concatenate([pairs[:, 0], np.arange(K)])
+        cols = np.concatenate([pairs[:, 1], K + gid_kept])
+        graph = coo_matrix((np.ones(len(rows)), (rows, cols)), shape=(K + ng0, K + ng0))
+        _, lab = connected_components(graph, directed=False)
+        _, gid_kept = np.unique(lab[:K], return_inverse=True)
+        gid_kept = gid_kept.reshape(-1)
+    ng = int(gid_kept.max()) + 1
+    group = np.full(len(simp), -1, np.int64)
+    group[kt] = gid_kept
+
+    # one representative per group: the largest radius, canonical copy first
+    order = np.lexsort((~canon, -np.round(rk, 9), gid_kept))
+    first = np.ones(len(order), bool)
+    first[1:] = gid_kept[order][1:] != gid_kept[order][:-1]
+    rep = order[first]                                     # index into kt, per group (sorted by gid)
+    g_pos = wc[rep]
+    g_r = rk[rep]
+
+    # maximum test: the representative centre lies inside the union of its
+    # group's tetrahedra (not on its outer surface)
+    T = pts[simp[kt]]                                      # (K, 4, 3)
+    M = np.stack([T[:, 1] - T[:, 0], T[:, 2] - T[:, 0], T[:, 3] - T[:, 0]], axis=2)   # columns
+    point = centre[kt]
+    if not equal:
+        wf = np.linalg.solve(cell.T, wc.T).T
+        df = wf[rep[gid_kept]] - wf
+        df = np.where(pbc, df - np.round(df), df)
+        point = point + df @ cell
+    rel = point - T[:, 0]
+    lam123 = np.linalg.solve(M, rel[:, :, None])[:, :, 0]
+    lam = np.column_stack([1 - lam123.sum(1), lam123])     # (K, 4)
+    tol = 1e-7
+    inside = np.all(lam > -tol, axis=1)
+    nb = tri.neighbors[kt]                                 # (K, 4): tet opposite vertex i
+    nbg = np.where(nb >= 0, group[np.maximum(nb, 0)], -1)
+    on_face = np.abs(lam) <= tol
+    internal = (nbg == gid_kept[:, None])
+    good = inside & np.all(~on_face | internal, axis=1)
+    is_max = np.zeros(ng, bool)
+    if good.any():
+        is_max[gid_kept[good]] = True
+
+    # check against nearby atoms (true free radius) and find the bounding atoms
+    maxg = np.nonzero(is_max)[0]
+    d, j = tree.query(g_pos[maxg], k=kq)
+    slack = d - radii_atoms[idx[j]]
+    true_r = slack.min(axis=1)
+    g_r_max = np.minimum(g_r[maxg], true_r)
+    rmean_all = float(radii_atoms.mean())
+    bound = slack <= (g_r_max[:, None] + tolerance * rmean_all)
+    ncont = bound.sum(1)
+    nbr_atoms = np.where(bound, idx[j], -1)
+    rb = np.where(bound, radii_atoms[idx[j]], 0.0)
+    rbar = rb.sum(1) / np.maximum(ncont, 1)
+    ratio = g_r_max / rbar
+    kinds = np.full(len(maxg), "other", dtype="<U11")
+    kinds[ncont == 4] = "tetrahedral"
+    kinds[ncont == 6] = "octahedral"
+    kinds[ncont == 8] = "cubic"
+    kinds[(ncont >= 8) & (ratio >= 0.8)] = "vacancy"
+    # sort neighbour columns so bounding atoms come first
+    srt = np.argsort(~bound, axis=1, kind="stable")
+    nbr_atoms = np.take_along_axis(nbr_atoms, srt, axis=1)[:, : max(int(ncont.max()), 1)]
+
+    ch = np.zeros((0, 2), np.int64)
+    bn = np.zeros(0)
+    if channels and len(maxg) > 1:
+        ch, bn = _reference_channels(pts, rad, simp, kt, canon, gid_kept, group, centre, r, tri.neighbors, is_max, ng, ok)
+        # renumber to void indices
+        newid = np.full(ng, -1, np.int64)
+        newid[maxg] = np.arange(len(maxg))
+        ch = newid[ch]
+        bn = np.minimum(bn, np.minimum(g_r_max[ch[:, 0]], g_r_max[ch[:, 1]]))
+    method = ("exact tangent spheres of the Delaunay tetrahedra (scipy/Qhull), periodic images, "
+              + ("equal radii" if equal else "per-atom radii") + "; maxima only")
+    return Voids(g_pos[maxg], g_r_max, kinds, nbr_atoms, ratio, ch, bn, method, n)
+
+
+def _reference_channels(pts, rad, simp, kt, canon, gid_kept, group, centre, r, neighbors, is_max, ng, ok):
+    """(pairs (M,2) of group ids, bottleneck radius (M,)) between maximum holes."""
+    own = kt[canon]
+    pairs, widths = [], []
+    # flat (zero-volume) tetrahedra lie in a passage (e.g. the square face
+    # between two simple-cubic holes): they join every hole around them.
+    flat = np.nonzero(~ok)[0]
+    if len(flat):
+        ng4 = np.where(neighbors[flat] >= 0, group[np.maximum(neighbors[flat], 0)], -1)
+        use = (ng4 >= 0).sum(1) >= 2
+        flat, ng4 = flat[use], ng4[use]
+        if len(flat):
+            f3 = simp[flat][:, 1:]
+            p0 = pts[f3[:, 0]]
+            _, rf = _face_bottleneck(p0, pts[f3[:, 1]] - p0, pts[f3[:, 2]] - p0, rad[f3[:, 0]], rad[f3[:, 1]],
+                                     rad[f3[:, 2]])
+            for i in range(4):
+                for k in range(i + 1, 4):
+                    m = (ng4[:, i] >= 0) & (ng4[:, k] >= 0) & (ng4[:, i] != ng4[:, k]) & np.isfinite(rf)
+                    if m.any():
+                        pairs.append(np.column_stack([ng4[m, i], ng4[m, k]]))
+                        widths.append(rf[m])
+    for i in range(4):
+        u = neighbors[own, i]
+        g1 = group[own]
+        g2 = np.where(u >= 0, group[np.maximum(u, 0)], -1)
+        m = (g2 >= 0) & (g2 != g1)
+        if not m.any():
+            continue
+        t, uu, g1, g2 = own[m], u[m], g1[m], g2[m]
+        face = np.delete(simp[t], i, axis=1)              # (F, 3) the shared triangle
+        p0 = pts[face[:, 0]]
+        a = pts[face[:, 1]] - p0
+        b = pts[face[:, 2]] - p0
+        _, rf = _face_bottleneck(p0, a, b, rad[face[:, 0]], rad[face[:, 1]], rad[face[:, 2]])
+        nrm = np.cross(a, b)
+        s1 = np.einsum("ij,ij->i", centre[t] - p0, nrm)
+        s2 = np.einsum("ij,ij->i", centre[uu] - p0, nrm)
+        cross = (s1 * s2) <= 0
+        w = np.where(cross & np.isfinite(rf), rf, np.minimum(r[t], r[uu]))
+        pairs.append(np.column_stack([g1, g2]))
+        widths.append(w)
+    if not pairs:
+        return np.zeros((0, 2), np.int64), np.zeros(0)
+    P = np.sort(np.vstack(pairs), axis=1)
+    W = np.concatenate(widths)
+    P, W = _widest(P, W)
+    if not np.all(is_max):
+        P, W = _contract(P, W, is_max)
+    return P, W
+
+

@@ -115,41 +115,43 @@ def check_void_size(crystal, max_atoms=None):
 
 
 # ---------------------------------------------------------------------- geometry
-def tangent_spheres(c0, a, b, c, r0, ra, rb, rc):
+def tangent_spheres(c0, a, b, c, r0, ra, rb, rc, weighted=None):
     """Exact tangent spheres of tetrahedra (vectorised).
 
     ``c0`` (T, 3) first atom centre; ``a, b, c`` (T, 3) the other three
     centres *relative to c0*; radii (T,).  Returns (centre relative to c0,
     free radius, ok) where ok is False for flat (zero-volume) tetrahedra.
+    ``weighted`` forces (True) or skips (False) the unequal-radii solution;
+    by default it is used when the radii differ.
     """
     bc = np.cross(b, c)
     ca = np.cross(c, a)
     ab = np.cross(a, b)
-    det = np.einsum("ij,ij->i", a, bc)
-    scale = (np.einsum("ij,ij->i", a, a) * np.einsum("ij,ij->i", b, b) * np.einsum("ij,ij->i", c, c)) ** 0.5
+    det = _dot(a, bc)
+    scale = (_dot(a, a) * _dot(b, b) * _dot(c, c)) ** 0.5
     ok = np.abs(det) > 1e-10 * np.maximum(scale, 1e-300)
     det = np.where(ok, det, 1.0)
     # a_i . y = (|a_i|^2 - R_i^2 + R0^2)/2 - r (R_i - R0)
-    v0 = (np.einsum("ij,ij->i", a, a) - ra ** 2 + r0 ** 2) / 2.0
-    v1 = (np.einsum("ij,ij->i", b, b) - rb ** 2 + r0 ** 2) / 2.0
-    v2 = (np.einsum("ij,ij->i", c, c) - rc ** 2 + r0 ** 2) / 2.0
+    v0 = (_dot(a, a) - ra ** 2 + r0 ** 2) / 2.0
+    v1 = (_dot(b, b) - rb ** 2 + r0 ** 2) / 2.0
+    v2 = (_dot(c, c) - rc ** 2 + r0 ** 2) / 2.0
     p = (v0[:, None] * bc + v1[:, None] * ca + v2[:, None] * ab) / det[:, None]
     w0, w1, w2 = -(ra - r0), -(rb - r0), -(rc - r0)
-    if np.any(w0) or np.any(w1) or np.any(w2):
+    if weighted if weighted is not None else (np.any(w0) or np.any(w1) or np.any(w2)):
         q = (w0[:, None] * bc + w1[:, None] * ca + w2[:, None] * ab) / det[:, None]
         r = _solve_radius(p, q, r0)
         y = p + q * r[:, None]
     else:
         y = p
-        r = np.sqrt(np.einsum("ij,ij->i", p, p)) - r0
+        r = np.sqrt(_dot(p, p)) - r0
     return y, r, ok
 
 
 def _solve_radius(p, q, r0):
     """Largest root r of |p + q r|^2 = (r + r0)^2."""
-    alpha = np.einsum("ij,ij->i", q, q) - 1.0
-    beta = 2.0 * (np.einsum("ij,ij->i", p, q) - r0)
-    gamma = np.einsum("ij,ij->i", p, p) - r0 ** 2
+    alpha = _dot(q, q) - 1.0
+    beta = 2.0 * (_dot(p, q) - r0)
+    gamma = _dot(p, p) - r0 ** 2
     disc = np.sqrt(np.maximum(beta ** 2 - 4 * alpha * gamma, 0.0))
     with np.errstate(divide="ignore", invalid="ignore"):
         s1 = (-beta + disc) / (2 * alpha)
@@ -305,8 +307,43 @@ def find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None):
 
     Returns a :class:`Voids` (list-like of :class:`Void`).
     """
-    from scipy.spatial import Delaunay
-    from scipy.spatial import QhullError
+    return _find_voids(crystal, channels=channels, tolerance=tolerance, max_atoms=max_atoms)
+
+
+#: The seeded perturbation that breaks the degeneracy of perfect lattices
+#: before triangulating: 2e-8 of the extent of the points, at least 1e-6 A
+#: (Qhull needs about that much to see the co-spherical points of a lattice as
+#: generic; smaller shifts leave it merging facets, or failing).  It only
+#: decides which tetrahedra are made; every number is computed from the exact
+#: coordinates.
+_JITTER_RELATIVE = 2e-8
+_JITTER_MIN_A = 1e-6
+_JITTER_SEED = 20240616
+#: Points per slab triangulation (crystals of more points are cut into slabs
+#: that are triangulated and reduced one by one, two at a time on two cores).
+_SLAB_POINTS = 250_000
+_MIN_SPLIT_POINTS = 60_000
+_CHUNK = 200_000
+
+
+def _dot(a, b):
+    # element by element, so that the same tetrahedron gives the same bits in
+    # every slab that sees it (einsum may sum in a different order)
+    return a[:, 0] * b[:, 0] + a[:, 1] * b[:, 1] + a[:, 2] * b[:, 2]
+
+
+def _frac(x, inv):
+    return x[:, 0:1] * inv[0] + x[:, 1:2] * inv[1] + x[:, 2:3] * inv[2]
+
+
+def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=None, slabs=None, info=None):
+    """find_voids; ``reach`` (first outer padding, A), ``slabs`` (number of
+    slab triangulations) and ``info`` (filled with the padding used) are for
+    the tests."""
+    from concurrent.futures import ThreadPoolExecutor
+    import os
+
+    from scipy.spatial import cKDTree
 
     from .neighbours import cell_heights, with_images
 
@@ -318,78 +355,332 @@ def find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None):
     if not np.all(np.isfinite(radii_atoms)) or np.any(radii_atoms <= 0):
         raise UserError("every atom needs a positive hard-sphere radius for the hole search; "
                         "set crystal.species_radii for the species without one")
-    cell = crystal.cell
-    pbc = np.array(crystal.pbc)
+    cell = np.asarray(crystal.cell, float)
+    inv = np.linalg.inv(cell)
+    pbc = np.array(crystal.pbc, bool)
     h = cell_heights(cell)
     s = (crystal.volume / n) ** (1.0 / 3.0)
+    # ext: tetrahedra whose centre lies within ext of the cell are kept (the
+    # copies beyond the faces join the holes and channels that cross them)
     ext = 0.75 * s
-    pad = ext + 1.5 * s
     equal = float(radii_atoms.max() - radii_atoms.min()) < 1e-12
-    for _attempt in range(6):
-        pts, idx = with_images(crystal.positions, cell, pbc, pad)
+    lo_e = np.where(pbc, -ext / h, 0.0)
+    hi_e = np.where(pbc, 1 + ext / h, 1.0)
+
+    # Padding (periodic images), the bound.  A tetrahedron kept (centre c
+    # within ext of the cell, empty sphere of radius rho through its atom
+    # centres) is a true Delaunay tetrahedron of the infinite crystal as soon
+    # as its whole sphere lies inside the padded region, and then nothing is
+    # missing around it; so the thinnest padding is
+    #     pad = max over kept tetrahedra of (rho - depth(c))  <=  ext + rho_max
+    # where depth(c) is the distance of c inside the cell along the periodic
+    # axes (negative beyond a face, down to -ext).  Images are taken within
+    # pad of the cell (a shell, not whole replicas).  The first padding is a
+    # sampled guess; after triangulating, the bound is measured exactly on the
+    # kept tetrahedra and the padding redone when it was thinner (the tests
+    # start from a padding that is too thin and check that).
+    pad0 = 2.25 * s
+    pts_t, _idx_t = with_images(crystal.positions, cell, pbc, pad0)
+    tree = cKDTree(pts_t)
+    if reach is None:
+        # first guess: the largest hole of the perfect lattices (FCC/HCP octahedral 0.79 s,
+        # BCC tetrahedral 0.70 s, simple cubic and diamond 0.87 s, s the atomic spacing)
+        reach = ext + 0.9 * s if pbc.any() else 0.0
+    pad = float(reach)
+    rho_guess = max(pad - ext, 0.9 * s)
+    margin = 2.5 * rho_guess            # overlap of neighbouring slabs, measured and redone the same way
+    checked = False
+    for attempt in range(6):
+        if pad > pad0:
+            pad0 = pad + 0.5 * s
+            pts_t, _idx_t = with_images(crystal.positions, cell, pbc, pad0)
+            tree = cKDTree(pts_t)
+        pts, idx = with_images(crystal.positions, cell, pbc, max(pad, 0.0))
         if len(pts) < 4:
             raise UserError(f"{len(pts)} atoms (with periodic images) cannot enclose a hole; give at least four "
                             f"atoms that are not coplanar")
-        rad = radii_atoms[idx]
         sample = pts[:: max(1, len(pts) // 20000)] if len(pts) > 40000 else pts
         sv = np.linalg.svd(sample - sample.mean(axis=0), compute_uv=False)
         if sv[-1] <= 1e-8 * sv[0] or len(sv) < 3:
             raise UserError("the atoms are coplanar or collinear (no three-dimensional hole); give a "
                             "three-dimensional structure or make the cell periodic")
+        if not checked:
+            _check_atoms(crystal, tree, _idx_t, radii_atoms)
+            checked = True
+        rad = radii_atoms[idx]
+        fpts = _frac(pts, inv)
+        amp = max(_JITTER_MIN_A, _JITTER_RELATIVE * float(np.ptp(pts, axis=0).max()))
+        pert = pts + np.random.default_rng(_JITTER_SEED).uniform(-amp, amp, pts.shape)
+        # slabs along the tallest axis
+        k = int(np.argmax(np.where(pbc, h + 2 * ext, h)))
+        span = (hi_e[k] - lo_e[k]) * h[k]
+        nsl = slabs if slabs is not None else (
+            1 if len(pts) < _MIN_SPLIT_POINTS else max(2, int(np.ceil(len(pts) / _SLAB_POINTS))))
+        nsl = int(max(1, min(nsl, span // (3.0 * margin)))) if slabs is None else int(slabs)
+        cuts = lo_e[k] + (hi_e[k] - lo_e[k]) * np.arange(nsl + 1) / nsl
+        cuts[0], cuts[-1] = -np.inf, np.inf
+        geo = dict(pts=pts, pert=pert, fpts=fpts, rad=rad, inv=inv, pbc=pbc, h=h, lo_e=lo_e, hi_e=hi_e, k=k,
+                   margin=margin, equal=equal, channels=channels, cell=cell)
+        workers = max(1, min(nsl, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity")
+                             else (os.cpu_count() or 1), 2))
+        if workers > 1:
+            with ThreadPoolExecutor(workers) as ex:
+                parts = list(ex.map(lambda j: _slab(geo, cuts[j], cuts[j + 1]), range(nsl)))
+        else:
+            parts = [_slab(geo, cuts[j], cuts[j + 1]) for j in range(nsl)]
+        n_own = sum(p["n_own"] for p in parts)
+        need_pad = max((p["need_pad"] for p in parts), default=-np.inf)
+        need_margin = max((p["need_margin"] for p in parts), default=-np.inf)
+        ok_pad = (not pbc.any()) or need_pad <= pad * (1 + 1e-12) + 1e-12
+        ok_margin = nsl == 1 or need_margin <= margin * (1 + 1e-12) + 1e-12
+        if n_own == 0 or (ok_pad and ok_margin):
+            break
+        if not ok_pad:
+            pad = float(need_pad) * (1 + 1e-9) + 1e-9
+        if not ok_margin:
+            margin = float(need_margin) * 1.05 + 1e-9
+    else:
+        raise UserError("the holes are too large for the cell (open space?); void analysis needs a filled cell")
+    if info is not None:
+        info.update(pad=pad, margin=margin, attempts=attempt + 1, slabs=nsl, points=len(pts),
+                    need_pad=float(need_pad), ext=ext, axis=k)
+    if n_own == 0:
+        raise UserError("no enclosed hole found inside the cell; give a filled three-dimensional structure")
+    return _reduce(crystal, parts, pts, idx, rad, tree, _idx_t, radii_atoms, cell, pbc, equal, tolerance, channels, n)
+
+
+def _slab(geo, cut_lo, cut_hi):
+    """Triangulate one slab and reduce it to the tetrahedra whose centres it
+    owns (plus the flat ones that join them), with what the holes and
+    channels need; memory is released before returning."""
+    from scipy.spatial import Delaunay, QhullError
+
+    pts, fpts, k, margin = geo["pts"], geo["fpts"], geo["k"], geo["margin"]
+    h, inv, pbc = geo["h"], geo["inv"], geo["pbc"]
+    lo = cut_lo - margin / h[k]
+    hi = cut_hi + margin / h[k]
+    gi = np.nonzero((fpts[:, k] >= lo) & (fpts[:, k] <= hi))[0]
+    try:
+        tri = Delaunay(geo["pert"][gi])
+    except QhullError:
         try:
-            tri = Delaunay(pts, qhull_options="QJ Qbb")
+            tri = Delaunay(pts[gi], qhull_options="QJ Qbb")
         except QhullError:
             raise UserError("the atoms are coplanar or collinear (no three-dimensional hole); give a "
                             "three-dimensional structure or make the cell periodic") from None
-        simp = tri.simplices
-        c0 = pts[simp[:, 0]]
-        y, r, ok = tangent_spheres(c0, pts[simp[:, 1]] - c0, pts[simp[:, 2]] - c0, pts[simp[:, 3]] - c0,
-                                   rad[simp[:, 0]], rad[simp[:, 1]], rad[simp[:, 2]], rad[simp[:, 3]])
-        centre = c0 + y
-        frac = np.linalg.solve(cell.T, centre.T).T
-        lo = np.where(pbc, -ext / h, -np.inf)
-        hi = np.where(pbc, 1 + ext / h, np.inf)
-        keep = ok & np.all((frac >= lo) & (frac <= hi), axis=1) & np.isfinite(r)
-        # non-periodic axes: the cell box bounds the search
-        for k in range(3):
-            if not pbc[k]:
-                keep &= (frac[:, k] >= 0) & (frac[:, k] <= 1)
-        rho = r[keep] + rad[simp[keep, 0]]
-        if not keep.any() or (float(rho.max()) + ext <= pad) or not pbc.any():
-            break
-        pad = float(rho.max()) + ext + 0.5 * s
-    else:
-        raise UserError("the holes are too large for the cell (open space?); void analysis needs a filled cell")
+    G = gi[tri.simplices]
+    o = np.argsort(G, axis=1)
+    G = np.take_along_axis(G, o, axis=1)
+    NB = np.take_along_axis(tri.neighbors, o, axis=1)
+    del tri, o
+    T = len(G)
+    rad = geo["rad"]
+    centre = np.empty((T, 3))
+    r = np.empty(T)
+    ok = np.empty(T, bool)
+    for a in range(0, T, _CHUNK):
+        g = G[a:a + _CHUNK]
+        c0 = pts[g[:, 0]]
+        y, rr, kk = tangent_spheres(c0, pts[g[:, 1]] - c0, pts[g[:, 2]] - c0, pts[g[:, 3]] - c0,
+                                    rad[g[:, 0]], rad[g[:, 1]], rad[g[:, 2]], rad[g[:, 3]], weighted=not geo["equal"])
+        centre[a:a + _CHUNK] = c0 + y
+        r[a:a + _CHUNK] = rr
+        ok[a:a + _CHUNK] = kk
+    fc = _frac(centre, inv)
+    inE = ok & np.isfinite(r)
+    for ax in range(3):
+        inE &= (fc[:, ax] >= geo["lo_e"][ax]) & (fc[:, ax] <= geo["hi_e"][ax])
+    own = inE & (fc[:, k] >= cut_lo) & (fc[:, k] < cut_hi)
+    own_idx = np.nonzero(own)[0]
+    rho = r + rad[G[:, 0]]
+    # flat (zero-volume) tetrahedra beside two or more kept ones; a slab
+    # takes the one whose first kept neighbour it owns
+    flat_idx = np.nonzero(~ok)[0]
+    if len(flat_idx):
+        nbf = NB[flat_idx]
+        e4 = (nbf >= 0) & inE[np.maximum(nbf, 0)]
+        use = e4.sum(1) >= 2
+        first = np.argmax(e4, axis=1)
+        firstnb = nbf[np.arange(len(nbf)), first]
+        flat_idx = flat_idx[use & own[np.maximum(firstnb, 0)]]
+    if len(flat_idx):
+        # only four atoms on one circle make a true flat tetrahedron (a
+        # square or rectangular window); four coplanar atoms that are not
+        # concyclic come from the flat outer surface of the padded points
+        P = pts[G[flat_idx]]
+        u, w = P[:, 1] - P[:, 0], P[:, 2] - P[:, 0]
+        uxw = np.cross(u, w)
+        den = 2.0 * _dot(uxw, uxw)
+        cc = np.cross(_dot(u, u)[:, None] * w - _dot(w, w)[:, None] * u, uxw) / np.where(den > 0, den, np.nan)[:, None]
+        rc = np.sqrt(_dot(cc, cc))
+        d3 = P[:, 3] - P[:, 0] - cc
+        flat_idx = flat_idx[np.abs(np.sqrt(_dot(d3, d3)) - rc) <= 1e-7 * np.maximum(rc, 1.0)]
+    rows = np.concatenate([own_idx, flat_idx])
+    n_own, n_rows = len(own_idx), len(rows)
+    rowmap = np.full(T, -1, np.int64)
+    rowmap[rows] = np.arange(n_rows)
+    nbl = NB[rows]
+    valid = nbl >= 0
+    nbs = np.maximum(nbl, 0)
+    nbr = np.where(valid, rowmap[nbs], -1)
+    pend = valid & inE[nbs] & (nbr < 0)
+    nbr[pend] = -2
+    pr, pc = np.nonzero(pend)
+    pend_keys = G[nbl[pr, pc]]
+    # tetrahedra of this slab that others may point to
+    touch = valid & (~inE[nbs] | ~own[nbs] | ~ok[nbs])
+    exp_rows = np.nonzero(touch[:n_own].any(1))[0]
+    # padding and overlap actually needed (see the bound in _find_voids)
+    depth = np.full(n_own, np.inf)
+    fo = fc[own_idx]
+    for ax in range(3):
+        if pbc[ax]:
+            depth = np.minimum(depth, h[ax] * np.minimum(fo[:, ax], 1 - fo[:, ax]))
+    need_pad = float(np.max(rho[own_idx] - depth)) if n_own else -np.inf
+    used = np.concatenate([own_idx, nbl[:, :][valid & inE[nbs]]])
+    need_margin = -np.inf
+    if len(used):
+        fk, ru = fc[used, k], rho[used]
+        ex = np.maximum(np.where(np.isfinite(cut_hi), (fk - cut_hi) * h[k] + ru, -np.inf),
+                        np.where(np.isfinite(cut_lo), (cut_lo - fk) * h[k] + ru, -np.inf))
+        need_margin = float(ex.max())
+    out = dict(n_own=n_own, n_flat=len(flat_idx), V=G[rows], centre=centre[rows], fc=fc[rows], r=r[rows],
+               nb=nbr, pend_rows=pr, pend_cols=pc, pend_keys=pend_keys, exp_rows=exp_rows,
+               exp_keys=G[own_idx[exp_rows]], need_pad=need_pad, need_margin=need_margin)
+    # union test of step 4 (equal radii: the point tested is the tetrahedron's own centre)
+    if geo["equal"] and n_own:
+        V = G[own_idx]
+        c0 = pts[V[:, 0]]
+        a, b, c = pts[V[:, 1]] - c0, pts[V[:, 2]] - c0, pts[V[:, 3]] - c0
+        bc, ca, ab = np.cross(b, c), np.cross(c, a), np.cross(a, b)
+        det = _dot(a, bc)
+        rel = centre[own_idx] - c0
+        l1, l2, l3 = _dot(rel, bc) / det, _dot(rel, ca) / det, _dot(rel, ab) / det
+        lam = np.column_stack([1 - (l1 + l2 + l3), l1, l2, l3])
+        out["inside"] = np.all(lam > -_LAM_TOL, axis=1)
+        out["on_face"] = np.abs(lam) <= _LAM_TOL
+    # channel passages through the faces of the canonical kept tetrahedra
+    if geo["channels"] and n_own:
+        f = fc[own_idx]
+        snapped = np.where(np.abs(f - np.round(f)) < 1e-9, np.round(f), f)
+        canon = np.all(~pbc | ((snapped >= 0) & (snapped < 1)), axis=1)
+        W = np.full((n_own, 4), np.nan)
+        ci = np.nonzero(canon)[0]
+        t = own_idx[ci]
+        for i in range(4):
+            u = NB[t, i]
+            m = (u >= 0) & inE[np.maximum(u, 0)]
+            if not m.any():
+                continue
+            tt, uu = t[m], u[m]
+            face = np.delete(G[tt], i, axis=1)
+            p0 = pts[face[:, 0]]
+            a = pts[face[:, 1]] - p0
+            b = pts[face[:, 2]] - p0
+            _, rf = _face_bottleneck(p0, a, b, rad[face[:, 0]], rad[face[:, 1]], rad[face[:, 2]])
+            nrm = np.cross(a, b)
+            s1 = _dot(centre[tt] - p0, nrm)
+            s2 = _dot(centre[uu] - p0, nrm)
+            cross = (s1 * s2) <= 0
+            W[ci[m], i] = np.where(cross & np.isfinite(rf), rf, np.minimum(r[tt], r[uu]))
+        out["W"] = W
+        out["canon"] = canon
+        if len(flat_idx):
+            f3 = G[flat_idx][:, 1:]
+            p0 = pts[f3[:, 0]]
+            _, rf = _face_bottleneck(p0, pts[f3[:, 1]] - p0, pts[f3[:, 2]] - p0, rad[f3[:, 0]], rad[f3[:, 1]],
+                                     rad[f3[:, 2]])
+            out["flat_rf"] = rf
+        else:
+            out["flat_rf"] = np.zeros(0)
+    return out
 
+
+_LAM_TOL = 1e-7
+
+
+def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, equal, tolerance, channels, n):
+    """Join the slabs and find the holes (steps 3-6 of the module notes)."""
     from scipy.spatial import cKDTree
 
-    tree = cKDTree(pts)
-    _check_atoms(crystal, tree, idx, radii_atoms)
-    kt = np.nonzero(keep)[0]
-    if len(kt) == 0:
-        raise UserError("no enclosed hole found inside the cell; give a filled three-dimensional structure")
-    f = frac[kt]
+    # global rows: every slab's kept tetrahedra, then every slab's flat ones
+    offs_own, offs_flat = [], []
+    a = 0
+    for p in parts:
+        offs_own.append(a)
+        a += p["n_own"]
+    K = a
+    for p in parts:
+        offs_flat.append(a)
+        a += p["n_flat"]
+    NR = a
+
+    def glob(p, j, local):
+        n_own = p["n_own"]
+        return np.where(local < n_own, offs_own[j] + local, offs_flat[j] + local - n_own)
+
+    V = np.empty((NR, 4), np.int64)
+    centre = np.empty((K, 3))
+    fcen = np.empty((K, 3))
+    r = np.empty(K)
+    nb = np.empty((NR, 4), np.int64)
+    for j, p in enumerate(parts):
+        no, nf = p["n_own"], p["n_flat"]
+        V[offs_own[j]:offs_own[j] + no] = p["V"][:no]
+        V[offs_flat[j]:offs_flat[j] + nf] = p["V"][no:]
+        centre[offs_own[j]:offs_own[j] + no] = p["centre"][:no]
+        fcen[offs_own[j]:offs_own[j] + no] = p["fc"][:no]
+        r[offs_own[j]:offs_own[j] + no] = p["r"][:no]
+        loc = p["nb"]
+        g = np.where(loc >= 0, glob(p, j, np.maximum(loc, 0)), loc)
+        nb[offs_own[j]:offs_own[j] + no] = g[:no]
+        nb[offs_flat[j]:offs_flat[j] + nf] = g[no:]
+    # neighbours owned by another slab: matched by their four atoms
+    pend = [(j, p) for j, p in enumerate(parts) if len(p["pend_rows"])]
+    if pend:
+        ek = np.vstack([p["exp_keys"] for p in parts])
+        er = np.concatenate([offs_own[j] + p["exp_rows"] for j, p in enumerate(parts)])
+        pk = np.vstack([p["pend_keys"] for _, p in pend])
+        u, inv_ = np.unique(np.vstack([ek, pk]), axis=0, return_inverse=True)
+        inv_ = inv_.reshape(-1)
+        lut = np.full(len(u), -1, np.int64)
+        lut[inv_[:len(ek)]] = er
+        found = lut[inv_[len(ek):]]
+        a = 0
+        for j, p in pend:
+            m = len(p["pend_rows"])
+            rows = glob(p, j, p["pend_rows"])
+            nb[rows, p["pend_cols"]] = found[a:a + m]
+            a += m
+    nb[nb < 0] = -1
+    for p in parts:               # free the slab copies
+        for key in ("V", "centre", "fc", "r", "nb", "pend_keys", "exp_keys"):
+            p.pop(key, None)
+
+    f = fcen
     snapped = np.where(np.abs(f - np.round(f)) < 1e-9, np.round(f), f)
     canon = np.all(~pbc | ((snapped >= 0) & (snapped < 1)), axis=1)
     wrapped = np.where(pbc, snapped - np.floor(snapped), snapped)
     wrapped = np.where(wrapped >= 1 - 1e-12, 0.0, wrapped)
+    del snapped
     wc = wrapped @ cell
     # merge degenerate duplicates: same centre (to 1e-5 A)
     q = np.floor((wc + 3.1e-6) / 1e-5).astype(np.int64)
-    _, gid_kept = np.unique(q, axis=0, return_inverse=True)
-    gid_kept = gid_kept.reshape(-1)
-    K = len(kt)
-    rk = r[kt]
-    kq = 16 if len(pts) >= 16 else len(pts)
+    o = np.lexsort((q[:, 2], q[:, 1], q[:, 0]))
+    qs = q[o]
+    new = np.ones(K, bool)
+    new[1:] = np.any(qs[1:] != qs[:-1], axis=1)
+    gid_kept = np.empty(K, np.int64)
+    gid_kept[o] = np.cumsum(new) - 1
+    del q, qs, o, new
+    rk = r
+    kq = 16 if tree.n >= 16 else tree.n
     if not equal:
-        # mixed radii: the tangent spheres of one hole split into a few close
-        # points; join points closer than a quarter of the smallest radius and
-        # keep the one with the largest true free radius
-        dq, jq = tree.query(wc, k=kq)
-        rk = np.minimum(rk, (dq - radii_atoms[idx[jq]]).min(axis=1))
         from scipy.sparse import coo_matrix
         from scipy.sparse.csgraph import connected_components
 
+        dq, jq = tree.query(wc, k=kq)
+        rk = np.minimum(rk, (dq - radii_atoms[idx_t[jq]]).min(axis=1))
         lengths = np.linalg.norm(cell, axis=1)
         span = np.where(pbc, lengths, 1e9)
         xs = np.where(pbc, wrapped, wrapped - np.floor(wrapped.min(axis=0))) * lengths
@@ -404,52 +695,57 @@ def find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None):
         _, gid_kept = np.unique(lab[:K], return_inverse=True)
         gid_kept = gid_kept.reshape(-1)
     ng = int(gid_kept.max()) + 1
-    group = np.full(len(simp), -1, np.int64)
-    group[kt] = gid_kept
+    group = np.full(NR + 1, -1, np.int64)       # the last entry stands for "no neighbour"
+    group[:K] = gid_kept
 
     # one representative per group: the largest radius, canonical copy first
     order = np.lexsort((~canon, -np.round(rk, 9), gid_kept))
     first = np.ones(len(order), bool)
     first[1:] = gid_kept[order][1:] != gid_kept[order][:-1]
-    rep = order[first]                                     # index into kt, per group (sorted by gid)
+    rep = order[first]
+    del order, first
     g_pos = wc[rep]
     g_r = rk[rep]
 
-    # maximum test: the representative centre lies inside the union of its
-    # group's tetrahedra (not on its outer surface)
-    T = pts[simp[kt]]                                      # (K, 4, 3)
-    M = np.stack([T[:, 1] - T[:, 0], T[:, 2] - T[:, 0], T[:, 3] - T[:, 0]], axis=2)   # columns
-    point = centre[kt]
-    if not equal:
-        wf = np.linalg.solve(cell.T, wc.T).T
+    # maximum test: the centre lies inside the union of its group's tetrahedra
+    nbk = nb[:K]
+    nbg = group[np.where(nbk >= 0, nbk, NR)]
+    internal = nbg == gid_kept[:, None]
+    if equal:
+        inside = np.concatenate([p.pop("inside") for p in parts])
+        on_face = np.concatenate([p.pop("on_face") for p in parts])
+    else:
+        wf = _frac(wc, np.linalg.inv(cell))
         df = wf[rep[gid_kept]] - wf
         df = np.where(pbc, df - np.round(df), df)
-        point = point + df @ cell
-    rel = point - T[:, 0]
-    lam123 = np.linalg.solve(M, rel[:, :, None])[:, :, 0]
-    lam = np.column_stack([1 - lam123.sum(1), lam123])     # (K, 4)
-    tol = 1e-7
-    inside = np.all(lam > -tol, axis=1)
-    nb = tri.neighbors[kt]                                 # (K, 4): tet opposite vertex i
-    nbg = np.where(nb >= 0, group[np.maximum(nb, 0)], -1)
-    on_face = np.abs(lam) <= tol
-    internal = (nbg == gid_kept[:, None])
+        point = centre + df @ cell
+        Vk = V[:K]
+        c0 = pts[Vk[:, 0]]
+        a_, b_, c_ = pts[Vk[:, 1]] - c0, pts[Vk[:, 2]] - c0, pts[Vk[:, 3]] - c0
+        bc, ca, ab = np.cross(b_, c_), np.cross(c_, a_), np.cross(a_, b_)
+        det = _dot(a_, bc)
+        rel = point - c0
+        l1, l2, l3 = _dot(rel, bc) / det, _dot(rel, ca) / det, _dot(rel, ab) / det
+        lam = np.column_stack([1 - (l1 + l2 + l3), l1, l2, l3])
+        inside = np.all(lam > -_LAM_TOL, axis=1)
+        on_face = np.abs(lam) <= _LAM_TOL
     good = inside & np.all(~on_face | internal, axis=1)
+    del inside, on_face, internal
     is_max = np.zeros(ng, bool)
     if good.any():
         is_max[gid_kept[good]] = True
 
     # check against nearby atoms (true free radius) and find the bounding atoms
     maxg = np.nonzero(is_max)[0]
-    d, j = tree.query(g_pos[maxg], k=kq)
-    slack = d - radii_atoms[idx[j]]
+    d, j = tree.query(g_pos[maxg], k=kq, workers=-1)
+    slack = d - radii_atoms[idx_t[j]]
     true_r = slack.min(axis=1)
     g_r_max = np.minimum(g_r[maxg], true_r)
     rmean_all = float(radii_atoms.mean())
     bound = slack <= (g_r_max[:, None] + tolerance * rmean_all)
     ncont = bound.sum(1)
-    nbr_atoms = np.where(bound, idx[j], -1)
-    rb = np.where(bound, radii_atoms[idx[j]], 0.0)
+    nbr_atoms = np.where(bound, idx_t[j], -1)
+    rb = np.where(bound, radii_atoms[idx_t[j]], 0.0)
     rbar = rb.sum(1) / np.maximum(ncont, 1)
     ratio = g_r_max / rbar
     kinds = np.full(len(maxg), "other", dtype="<U11")
@@ -457,15 +753,14 @@ def find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None):
     kinds[ncont == 6] = "octahedral"
     kinds[ncont == 8] = "cubic"
     kinds[(ncont >= 8) & (ratio >= 0.8)] = "vacancy"
-    # sort neighbour columns so bounding atoms come first
     srt = np.argsort(~bound, axis=1, kind="stable")
-    nbr_atoms = np.take_along_axis(nbr_atoms, srt, axis=1)[:, : max(int(ncont.max()), 1)]
+    nbr_atoms = np.take_along_axis(nbr_atoms, srt, axis=1)[:, : max(int(ncont.max()), 1)] if len(maxg) else \
+        np.zeros((0, 1), np.int64)
 
     ch = np.zeros((0, 2), np.int64)
     bn = np.zeros(0)
     if channels and len(maxg) > 1:
-        ch, bn = _channels(pts, rad, simp, kt, canon, gid_kept, group, centre, r, tri.neighbors, is_max, ng, ok)
-        # renumber to void indices
+        ch, bn = _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max)
         newid = np.full(ng, -1, np.int64)
         newid[maxg] = np.arange(len(maxg))
         ch = newid[ch]
@@ -475,56 +770,43 @@ def find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None):
     return Voids(g_pos[maxg], g_r_max, kinds, nbr_atoms, ratio, ch, bn, method, n)
 
 
-def _channels(pts, rad, simp, kt, canon, gid_kept, group, centre, r, neighbors, is_max, ng, ok):
+def _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max):
     """(pairs (M,2) of group ids, bottleneck radius (M,)) between maximum holes."""
-    own = kt[canon]
     pairs, widths = [], []
     # flat (zero-volume) tetrahedra lie in a passage (e.g. the square face
     # between two simple-cubic holes): they join every hole around them.
-    flat = np.nonzero(~ok)[0]
-    if len(flat):
-        ng4 = np.where(neighbors[flat] >= 0, group[np.maximum(neighbors[flat], 0)], -1)
+    if NR > K:
+        nf = nb[K:]
+        ng4 = group[np.where(nf >= 0, nf, NR)]
+        rf = np.concatenate([p["flat_rf"] for p in parts])
         use = (ng4 >= 0).sum(1) >= 2
-        flat, ng4 = flat[use], ng4[use]
-        if len(flat):
-            f3 = simp[flat][:, 1:]
-            p0 = pts[f3[:, 0]]
-            _, rf = _face_bottleneck(p0, pts[f3[:, 1]] - p0, pts[f3[:, 2]] - p0, rad[f3[:, 0]], rad[f3[:, 1]],
-                                     rad[f3[:, 2]])
-            for i in range(4):
-                for k in range(i + 1, 4):
-                    m = (ng4[:, i] >= 0) & (ng4[:, k] >= 0) & (ng4[:, i] != ng4[:, k]) & np.isfinite(rf)
-                    if m.any():
-                        pairs.append(np.column_stack([ng4[m, i], ng4[m, k]]))
-                        widths.append(rf[m])
+        ng4, rf = ng4[use], rf[use]
+        for i in range(4):
+            for k in range(i + 1, 4):
+                m = (ng4[:, i] >= 0) & (ng4[:, k] >= 0) & (ng4[:, i] != ng4[:, k]) & np.isfinite(rf)
+                if m.any():
+                    pairs.append(np.column_stack([ng4[m, i], ng4[m, k]]))
+                    widths.append(rf[m])
+    W = np.concatenate([p.pop("W") for p in parts])
+    nbk = nb[:K]
     for i in range(4):
-        u = neighbors[own, i]
-        g1 = group[own]
-        g2 = np.where(u >= 0, group[np.maximum(u, 0)], -1)
+        w = W[:, i]
+        t = np.nonzero(np.isfinite(w))[0]
+        g1 = gid_kept[t]
+        u = nbk[t, i]
+        g2 = group[np.where(u >= 0, u, NR)]
         m = (g2 >= 0) & (g2 != g1)
-        if not m.any():
-            continue
-        t, uu, g1, g2 = own[m], u[m], g1[m], g2[m]
-        face = np.delete(simp[t], i, axis=1)              # (F, 3) the shared triangle
-        p0 = pts[face[:, 0]]
-        a = pts[face[:, 1]] - p0
-        b = pts[face[:, 2]] - p0
-        _, rf = _face_bottleneck(p0, a, b, rad[face[:, 0]], rad[face[:, 1]], rad[face[:, 2]])
-        nrm = np.cross(a, b)
-        s1 = np.einsum("ij,ij->i", centre[t] - p0, nrm)
-        s2 = np.einsum("ij,ij->i", centre[uu] - p0, nrm)
-        cross = (s1 * s2) <= 0
-        w = np.where(cross & np.isfinite(rf), rf, np.minimum(r[t], r[uu]))
-        pairs.append(np.column_stack([g1, g2]))
-        widths.append(w)
+        if m.any():
+            pairs.append(np.column_stack([g1[m], g2[m]]))
+            widths.append(w[t[m]])
     if not pairs:
         return np.zeros((0, 2), np.int64), np.zeros(0)
     P = np.sort(np.vstack(pairs), axis=1)
-    W = np.concatenate(widths)
-    P, W = _widest(P, W)
+    Wd = np.concatenate(widths)
+    P, Wd = _widest(P, Wd)
     if not np.all(is_max):
-        P, W = _contract(P, W, is_max)
-    return P, W
+        P, Wd = _contract(P, Wd, is_max)
+    return P, Wd
 
 
 def _widest(P, W):
