@@ -281,6 +281,28 @@ def structure_radii(crystal):
     lat = crystal.lattice
     out = {}
     recognised = lat is not None and lat.prototype != "cif"
+    if recognised and bonding == "metallic" and len(species) > 1:
+        # the lattice's own species touch; atoms off it or foreign to it get their own radius
+        from .build import _nn_distance
+        from .occupancy import parse_signature
+
+        on = {s for sig in (lat.site_species or lat.elements) for s, _ in parse_signature(sig)}
+        dnn = _nn_distance(np.asarray(lat.cell, float), np.asarray(lat.basis_frac, float))
+        for s in species:
+            if s in on:
+                out[s] = {"radius_A": dnn / 2.0, "kind": "touching spheres of the lattice",
+                          "source": "half the nearest-neighbour distance of this structure"}
+            elif s in _data()["interstitials"]:
+                i = interstitial(s)
+                out[s] = {"radius_A": float(i.radius), "kind": "interstitial", "source": i.source}
+            elif s in _data()["elements"] and element(s).metallic_radius is not None:
+                e = element(s)
+                out[s] = {"radius_A": float(e.metallic_radius), "kind": "metallic (CN12)",
+                          "source": e.sources["metallic_radius"]}
+            else:
+                out[s] = {"radius_A": covalent_radius(s), "kind": "covalent (no metallic radius in the data)",
+                          "source": COVALENT_SOURCE}
+        return out
     if (recognised and bonding == "metallic") or len(species) == 1:
         if recognised:
             from .build import _nn_distance

@@ -214,7 +214,134 @@ def recognise(crystal, tolerance=DEFAULT_TOLERANCE):
     groups = site_groups(crystal)
     frac = crystal.frac[groups.first]
     names = {t: n for t, n in enumerate(groups.signatures)}
-    return recognise_sites(crystal.cell, frac, groups.site_type, tolerance, names)
+    rec = recognise_sites(crystal.cell, frac, groups.site_type, tolerance, names)
+    if rec.recognised or len(frac) > MAX_SITES or not all(crystal.pbc):
+        return rec
+    host = recognise_host(crystal.cell, frac, groups.site_type, tolerance, names)
+    return host if host is not None else rec
+
+
+#: A crystal is "lightly defected" when at least this fraction of its sites
+#: sit on the host lattice found from its most common translations.
+MIN_ON_LATTICE = 0.9
+
+
+def recognise_host(cell, frac, types, tolerance=DEFAULT_TOLERANCE, names=None):
+    """The lattice type of the host of a lightly defected crystal (a few
+    vacancies, solutes or interstitials in a supercell listed atom by atom),
+    or None.  The lattice translations are the neighbour vectors that carry
+    most sites onto sites of the same kind; the three shortest independent
+    ones span a primitive cell; the positions most sites take in it are the
+    motif, recognised as in :func:`recognise_sites`.  At least
+    MIN_ON_LATTICE of the sites must sit on the host lattice.
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Cu", repeat=(3, 3, 3)).delete([0, 5])
+    >>> recognise_host(c.cell, c.frac, [0] * len(c)).lattice
+    'fcc'
+    """
+    from scipy.spatial import cKDTree
+
+    from .analysis.neighbours import with_images
+
+    tol = float(tolerance)
+    cell = np.asarray(cell, float)
+    frac = np.asarray(frac, float) % 1.0
+    types = np.asarray(types, int)
+    n = len(frac)
+    if n < 8:
+        return None
+    pos = frac @ cell
+    reach = 3.0 * (abs(np.linalg.det(cell)) / n) ** (1 / 3)
+    pts, which = with_images(pos, cell, (True, True, True), reach)
+    tree = cKDTree(pts)
+    d, _ = tree.query(pos, k=2)
+    dnn = float(np.median(d[:, 1]))
+    if not np.isfinite(dnn) or dnn <= 0:
+        return None
+    # candidate translations: neighbour vectors of a sample of sites, counted on a grid of the tolerance
+    rng = np.random.default_rng(0)
+    sample = rng.choice(n, size=min(n, 200), replace=False)
+    grid = max(4 * tol, 0.02 * dnn)
+    votes = {}
+    for i, lst in zip(sample, tree.query_ball_point(pos[sample], 2.05 * dnn)):
+        for j in lst:
+            v = pts[j] - pos[i]
+            if v @ v < 0.25 * dnn * dnn:
+                continue
+            key = tuple(np.round(v / grid).astype(int))
+            votes[key] = votes.get(key, 0) + 1
+    cands = [np.array(k, float) * grid for k, c in votes.items() if c >= 0.6 * len(sample)]
+    if len(cands) < 3:
+        return None
+    # keep the vectors that carry most sites onto a site of the same kind
+    trans = []
+    for v in sorted(cands, key=lambda x: float(x @ x)):
+        dd, jj = tree.query(pos + v, distance_upper_bound=max(4 * tol, 0.15 * dnn))
+        hit = np.isfinite(dd)
+        same = hit & (types[which[np.minimum(jj, len(which) - 1)]] == types)
+        if same.mean() >= MIN_ON_LATTICE - 0.05:
+            # the exact vector: the mean displacement of the matched pairs
+            trans.append((pts[jj[same]] - pos[same]).mean(axis=0))
+    if len(trans) < 3:
+        return None
+    basis = _shortest_basis(trans)
+    if basis is None:
+        return None
+    # the motif: where the sites sit in that primitive cell, most common positions first
+    f = pos @ np.linalg.inv(basis)
+    f -= np.floor(f)
+    motif, counts = [], []
+    for k in range(n):
+        for m, q in enumerate(motif):
+            dq = f[k] - q
+            dq -= np.round(dq)
+            if np.linalg.norm(dq @ basis) < max(4 * tol, 0.15 * dnn):
+                counts[m].append(k)
+                break
+        else:
+            motif.append(f[k].copy())
+            counts.append([k])
+    n_cells = abs(np.linalg.det(cell) / np.linalg.det(basis))
+    keep = [m for m, c in enumerate(counts) if len(c) >= 0.5 * n_cells]
+    on = sum(len(counts[m]) for m in keep)
+    if not keep or on < MIN_ON_LATTICE * n:
+        return None
+    mfrac, mtypes = [], []
+    for m in keep:
+        members = np.array(counts[m])
+        t = np.bincount(types[members]).argmax()
+        mtypes.append(int(t))
+        dq = f[members] - f[members[0]]
+        dq -= np.round(dq)
+        mfrac.append((f[members[0]] + dq.mean(axis=0)) % 1.0)
+    rec = recognise_sites(basis, np.array(mfrac), mtypes, tol, names)
+    if not rec.recognised:
+        return None
+    from dataclasses import replace
+
+    empty = int(round(n_cells)) * len(keep) - on
+    return replace(rec, reason=f"lightly defected: {n - on} of {n} sites off the host lattice, "
+                               f"{max(empty, 0)} host lattice points empty")
+
+
+def _shortest_basis(trans):
+    """Three shortest linearly independent vectors of ``trans`` that generate
+    every vector of it with whole numbers (a primitive cell), or None."""
+    import itertools
+
+    vs = sorted((np.asarray(v, float) for v in trans), key=lambda x: float(x @ x))[:24]
+    for i, j, k in itertools.combinations(range(len(vs)), 3):
+        B = np.array([vs[i], vs[j], vs[k]])
+        vol = abs(np.linalg.det(B))
+        if vol < 1e-3 * np.linalg.norm(B, axis=1).prod():
+            continue
+        coeff = np.array(vs) @ np.linalg.inv(B)
+        if np.all(np.abs(coeff - np.round(coeff)) < 0.05):
+            if np.linalg.det(B) < 0:
+                B[2] = -B[2]
+            return B
+    return None
 
 
 def attach_lattice(crystal, tolerance=DEFAULT_TOLERANCE, title_note=""):
@@ -242,6 +369,8 @@ def attach_lattice(crystal, tolerance=DEFAULT_TOLERANCE, title_note=""):
     a = float(np.linalg.norm(conv[0]))
     c = None if proto.family == "cubic" else float(np.linalg.norm(conv[2]))
     info.update(deviation_A=rec.deviation, elements=list(rec.elements), a_A=a, c_A=c)
+    if rec.reason:
+        info["note"] = rec.reason
     out.metadata["recognition"] = info
     symbols = tuple(_majority(e) for e in rec.elements)
     basis_symbols = tuple(symbols[s] for s in proto.sublattice)
@@ -256,7 +385,45 @@ def attach_lattice(crystal, tolerance=DEFAULT_TOLERANCE, title_note=""):
     )
     out.lattice = lat
     out.metadata["lattice"] = proto.name
+    if rec.reason and len(out) and not np.any(out.roles):
+        out.roles = _roles_on_lattice(out)
     return out
+
+
+def _roles_on_lattice(crystal):
+    """Roles from where the atoms sit: off the lattice points -> interstitial,
+    on them with a species other than the sublattice's -> solute."""
+    from .crystal import role_code
+    from .occupancy import parse_signature
+
+    lat = crystal.lattice
+    conv = np.asarray(lat.cell, float)
+    F = np.linalg.solve(conv.T, crystal.positions.T).T - lat.origin_frac
+    basis = np.asarray(lat.basis_frac, float)
+    d = F[:, None, :] - basis[None, :, :]
+    d -= np.round(d)
+    dist = np.linalg.norm(d @ conv, axis=2)
+    k = np.argmin(dist, axis=1)
+    near = dist[np.arange(len(F)), k]
+    dnn = min(float(np.linalg.norm((basis[i] - basis[j] - np.round(basis[i] - basis[j])) @ conv))
+              for i in range(len(basis)) for j in range(len(basis)) if i != j) if len(basis) > 1 else \
+        float(np.linalg.norm(conv, axis=1).min())
+    roles = np.zeros(len(crystal), np.uint8)
+    syms = crystal.symbols
+    allowed = [{s for s, _ in parse_signature(lat.site_species[sub])} if lat.site_species else {lat.elements[sub]}
+               for sub in _sublattice_of(lat)]
+    for i in range(len(crystal)):
+        if near[i] > 0.25 * dnn:
+            roles[i] = role_code("interstitial")
+        elif syms[i] not in allowed[k[i]]:
+            roles[i] = role_code("solute")
+    return roles
+
+
+def _sublattice_of(lat):
+    from .prototypes import PROTOTYPES
+
+    return PROTOTYPES[lat.prototype].sublattice
 
 
 def _majority(signature):

@@ -264,3 +264,26 @@ def test_files_render_export_and_print(name, tmp_path, cli):
         rc, out, err = cli("print", path, "-o", tmp_path / "f.stl")
         assert rc == 0, err
         assert trimesh.load(tmp_path / "f.stl").is_watertight
+
+
+def test_lightly_defected_file_recognised_and_measured_like_the_original(tmp_path):
+    """A P 1 file of a defected supercell (interstitial C, substituted Ni, vacancies; no role column,
+    as a file from elsewhere would be): the host lattice is recognised from the most common
+    translations, the roles follow from where the atoms sit, and every hole is the original's."""
+    c = cv.fill_sites(cv.build("Fe", phase="gamma", repeat=(3, 3, 3)), "C", fraction=0.03, seed=1)
+    c = cv.substitute(c, "Ni", count=4, seed=2)
+    c = cv.add_vacancies(c, count=2, seed=3)
+    out = tmp_path / "fe_c_ni.cif"
+    cv.export(cv.Crystal(c.cell, c.positions, c.numbers), out, symmetry=False)     # atoms only, no roles
+    assert "_[local]" not in out.read_text()
+    back = cv.read_cif(out)
+    assert back.lattice.prototype == "fcc" and "lightly defected" in back.metadata["recognition"]["note"]
+    assert back.role_counts() == c.role_counts()
+    s0 = sorted((s.kind, round(s.radius, 6)) for s in cv.interstitial_sites(c))
+    s1 = sorted((s.kind, round(s.radius, 6)) for s in cv.interstitial_sites(back))
+    assert s0 == s1
+    # an ordered supercell with two vacancies: recognised as L1_2 (International Tables: Pm-3m 221)
+    ni3al = cv.build("Ni3Al", repeat=(3, 3, 3)).delete([0, 5])
+    from crystalview.recognise import recognise
+
+    assert recognise(cv.Crystal(ni3al.cell, ni3al.positions, ni3al.numbers)).lattice == "L1_2"

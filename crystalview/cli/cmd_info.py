@@ -46,7 +46,8 @@ def recognition_lines(s):
             occ = s.get("sublattice_occupation")
             on = f"; sublattices: {', '.join(occ)}" if occ and any(not x.isalpha() for x in occ) else ""
             out.append(f"  lattice: recognised as {rec['lattice']} (space group {rec['space_group']}, atoms within "
-                       f"{rec['deviation_A']:.3f} A of the ideal positions, tolerance {rec['tolerance_A']:g} A){on}")
+                       f"{rec['deviation_A']:.3f} A of the ideal positions, tolerance {rec['tolerance_A']:g} A){on}"
+                       + (f"; {rec['note']}" if rec.get("note") else ""))
         else:
             out.append(f"  lattice: not one of the built-in types ({rec.get('reason', '')}); holes by the generic "
                        f"void analysis, no named sites or slip table")
