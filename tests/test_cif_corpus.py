@@ -287,3 +287,20 @@ def test_lightly_defected_file_recognised_and_measured_like_the_original(tmp_pat
     from crystalview.recognise import recognise
 
     assert recognise(cv.Crystal(ni3al.cell, ni3al.positions, ni3al.numbers)).lattice == "L1_2"
+
+
+@pytest.mark.parametrize("path", [p for p in FILES if p.name not in REFUSED], ids=lambda p: p.name)
+def test_every_command_on_every_readable_file(path, tmp_path, cli):
+    """sites, fit, slip, build and the exchange files: each works, or says in one line (exit 2) why
+    it cannot (slip of a structure of no built-in lattice type)."""
+    for argv in (("sites", path, "--json"), ("fit", "C", path, "--json"), ("fit", "Ni", path, "--json"),
+                 ("slip", path, "--axis", "[001]", "--json"), ("build", path, "-o", tmp_path / "b.xyz"),
+                 ("export", path, "-o", tmp_path / "e.cif"), ("export", path, "-o", tmp_path / "e.glb")):
+        rc, out, err = cli(*argv)
+        assert rc in (0, 2), (argv, err)
+        if rc == 2:
+            assert err.count("\n") == 1 and argv[0] in ("slip", "fit"), (argv, err)
+            if argv[0] == "slip":
+                assert "not one of the lattice types" in err
+        else:
+            assert out

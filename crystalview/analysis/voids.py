@@ -747,7 +747,7 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     nbr_atoms = np.where(bound, idx_t[j], -1)
     rb = np.where(bound, radii_atoms[idx_t[j]], 0.0)
     rbar = rb.sum(1) / np.maximum(ncont, 1)
-    ratio = g_r_max / rbar
+    ratio = np.where(rbar > 0, g_r_max / np.where(rbar > 0, rbar, 1.0), np.nan)
     kinds = np.full(len(maxg), "other", dtype="<U11")
     kinds[ncont == 4] = "tetrahedral"
     kinds[ncont == 6] = "octahedral"
