@@ -20,6 +20,8 @@ from .prototypes import PROTOTYPES, is_lattice, prototype
 #: with max_atoms= / --max-atoms / the CRYSTALVIEW_MAX_ATOMS variable).
 DEFAULT_MAX_ATOMS = 50_000_000
 BYTES_PER_ATOM = 3 * 8 + 2   # positions + species + role
+#: The source recorded for a lattice parameter the user gave.
+GIVEN = "given by the user"
 
 
 def max_atoms_default():
@@ -71,12 +73,18 @@ def _resolve(spec, phase=None, element=None, elements=None, a=None, c=None, latt
         return _from_lattice(proto, element=el.symbol, elements=elements, a=a, c=c, phase=phase, info=info)
     if is_lattice(spec):
         return _from_lattice(prototype(spec), element=element, elements=elements, a=a, c=c, phase=phase, info=info)
+    if phase is not None and not E.is_compound(spec) and not is_lattice(spec):
+        canon0 = spec[:1].upper() + spec[1:].lower()
+        if canon0 in E.metal_symbols():
+            alias = E.phase_alias(canon0, phase)
+            if isinstance(alias, tuple):            # a trade name for an ordered compound (gamma-prime: Ni3Al)
+                return _resolve(alias[1], a=a, c=c)
     if E.is_compound(spec):
         if phase is not None:
             raise UserError(f"'{spec}' is a compound; it has no named phases (leave out the phase option)")
         cp = E.compound(spec)
         proto = prototype(cp.lattice)
-        info.update(source=cp.source, note=cp.note, phase=None)
+        info.update(source=cp.source if a is None else GIVEN, note=cp.note, phase=None)
         aa = float(a) if a is not None else cp.a
         cc = float(c) if c is not None else (cp.c if cp.c is not None else None)
         return dict(proto=proto, elements=cp.elements, a=aa, c=cc, name=cp.name, **info)
@@ -93,6 +101,8 @@ def _resolve(spec, phase=None, element=None, elements=None, a=None, c=None, latt
     ph = E.phase(canon, phase)
     proto = prototype(ph.lattice)
     info.update(phase=ph.name, temperature_K=ph.temperature_K, source=ph.source, note=ph.note)
+    if a is not None:            # the user's value: no other value's source or temperature
+        info.update(temperature_K=None, source=GIVEN, note="")
     aa = float(a) if a is not None else ph.a
     if c is not None:
         cc = float(c)
@@ -148,9 +158,12 @@ def _from_lattice(proto, element, elements, a, c, phase, info):
             if el.metallic_radius:
                 a = _a_from_radius(proto, el.metallic_radius)
                 info.update(estimated=True, source=el.sources["metallic_radius"],
-                            note=f"a estimated from the CN12 metallic radius {el.metallic_radius} A (touching hard spheres)")
+                            note=f"{sym} has no {proto.name} phase in the data: a estimated from its CN12 metallic "
+                                 f"radius {el.metallic_radius} A (touching hard spheres); give -a for a measured value")
         if a is None:
             raise UserError(f"no lattice parameter known for {sym} as {proto.name}; give one with a= (-a), in A")
+    elif not info.get("source"):
+        info.update(source=GIVEN)
     return dict(proto=proto, elements=(sym,), a=float(a), c=None if c is None else float(c), name=sym, **info)
 
 
@@ -170,11 +183,17 @@ def _nn_distance(cell, frac):
     return float(r.min())
 
 
+#: Accepted conventional-cell edge a (A): every element's conventional cell lies
+#: well inside (common practice: Be hcp 2.29 A to Cs bcc 6.14 A and grey tin 6.49 A).
+A_RANGE = (1.5, 10.0)
+
+
 def _validate_params(proto, a, c):
     if not (isinstance(a, (int, float)) and math.isfinite(a)) or a <= 0:
         raise UserError(f"lattice parameter a = {a} must be a positive length in A (metals: about 2.5 to 5)")
-    if a < 0.5 or a > 100:
-        raise UserError(f"lattice parameter a = {a} A is not physical; metals lie between about 2.5 and 5 A")
+    if a < A_RANGE[0] or a > A_RANGE[1]:
+        raise UserError(f"lattice parameter a = {a:g} A is outside {A_RANGE[0]:g}-{A_RANGE[1]:g} A; conventional cells "
+                        f"of the metals lie between about 2.3 (Be) and 6.5 A (grey tin); give a in angstrom")
     if c is not None:
         if not math.isfinite(c) or c <= 0:
             raise UserError(f"lattice parameter c = {c} must be a positive length in A")

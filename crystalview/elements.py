@@ -54,9 +54,13 @@ class Element:
     reference_phase: str | None
     phases: dict = field(default_factory=dict)
     sources: dict = field(default_factory=dict)
+    reference_note: str = ""
 
     @property
     def phase(self):
+        if self.reference_phase is None:
+            known = f"; its phases here: {', '.join(self.phases)}" if self.phases else ""
+            raise UserError(f"{self.symbol}: {self.reference_note or 'no built-in reference phase'}{known}")
         return self.phases[self.reference_phase]
 
 
@@ -115,7 +119,28 @@ def element(symbol) -> Element:
         symbol=sym, metallic_radius=e.get("metallic_radius"),
         electronegativity=e.get("electronegativity"), valence=e.get("valence"),
         reference_phase=e.get("reference_phase"), phases=phases, sources=sources,
+        reference_note=e.get("reference_phase_note", ""),
     )
+
+
+def phase_alias(symbol, name):
+    """What a trade name of a phase means for an element: a phase key, or
+    ('compound', NAME), or None when the name is no alias.  Refuses, in one
+    line, a phase that is not a built-in lattice type.
+
+    >>> phase_alias("Fe", "Austenite"), phase_alias("Ni", "gamma-prime")
+    ('gamma', ('compound', 'Ni3Al'))
+    """
+    table = _data().get("phase_aliases", {}).get(_canon(symbol), {})
+    key = str(name).strip().lower().replace("_", "-").replace(" ", "-")
+    target = table.get(key)
+    if target is None:
+        return None
+    if target.startswith("refuse:"):
+        raise UserError(f"{_canon(symbol)} --phase {name}: {target[len('refuse:'):]}")
+    if target.startswith("compound:"):
+        return ("compound", target[len("compound:"):])
+    return target
 
 
 def phase(symbol, name=None) -> Phase:
@@ -127,9 +152,13 @@ def phase(symbol, name=None) -> Phase:
     aliases = {"α": "alpha", "β": "beta", "γ": "gamma", "δ": "delta", "ε": "epsilon"}
     key = aliases.get(key, key)
     if key not in e.phases:
+        alias = phase_alias(e.symbol, name)
+        if isinstance(alias, str) and alias in e.phases:
+            return e.phases[alias]
+        trade = list(_data().get("phase_aliases", {}).get(e.symbol, {}))
         raise UserError(
-            f"{e.symbol} has no phase '{name}'{suggest(name, list(e.phases))}; "
-            f"known phases of {e.symbol}: {', '.join(e.phases)}"
+            f"{e.symbol} has no phase '{name}'{suggest(name, list(e.phases) + trade)}; "
+            f"known phases of {e.symbol}: {', '.join(list(e.phases) + trade)}"
         )
     return e.phases[key]
 

@@ -196,6 +196,8 @@ def summary(crystal: Crystal, part_volume_mm3=None, planes=(), directions=(), an
         out["recognition"] = crystal.metadata["recognition"]
     if crystal.metadata.get("radii"):
         out["radii"] = crystal.metadata["radii"]
+    if crystal.metadata.get("alloy"):
+        out["alloy"] = crystal.metadata["alloy"]
     if crystal.metadata.get("repeat"):
         out["repeat"] = crystal.metadata["repeat"]
     if crystal.metadata.get("orient"):

@@ -29,6 +29,8 @@ def run(args):
         "memory_MB": (c.positions.nbytes + c.numbers.nbytes + c.roles.nbytes) / 1e6,
         "defects": c.metadata.get("defects") or [],
     }
+    if c.metadata.get("alloy"):
+        info["alloy"] = c.metadata["alloy"]
     if args.output:
         if not args.output.lower().endswith((".cif", ".xyz")):
             from ..errors import UserError
@@ -51,6 +53,11 @@ def run(args):
           + (f", repeat {' x '.join(map(str, rep))}" if rep else ""))
     mb = info["memory_MB"]
     print(f"  memory for the atoms: {mb:.1f} MB" if mb >= 0.1 else f"  memory for the atoms: {mb * 1000:.1f} kB")
+    if c.metadata.get("alloy"):
+        from ..alloy import report_lines
+
+        for line in report_lines(c.metadata["alloy"]):
+            print("  " + line)
     for d in info["defects"]:
         print("  defect: " + ", ".join(f"{k}={v}" for k, v in d.items() if not isinstance(v, (list, dict))))
     if args.output:

@@ -76,6 +76,10 @@ def render_text(s):
     if s.get("note"):
         lines.append(f"  note: {s['note']}")
     lines += recognition_lines(s)
+    if s.get("alloy"):
+        from ..alloy import report_lines
+
+        lines += ["  " + x for x in report_lines(s["alloy"])]
     lines.append("")
     differs = bool(s["defects"])
     shells = " + ".join(f"{c['count']:g} at {c['distance_A']:.4f} A" for c in s["coordination_shells"])

@@ -38,6 +38,17 @@ def add_spec_arguments(p, defects=True):
     g.add_argument("--orient", nargs=3, metavar=("X", "Y", "Z"),
                    help="crystal directions for x, y, z, e.g. --orient [1-10] [11-2] [111]")
     g.add_argument("--max-atoms", type=float, metavar="N", help="atom cap (default 50 million)")
+    g.add_argument("--alloy", metavar="ALLOY",
+                   help="an alloy on the SPEC's lattice as engineers write it, base first: Fe-18Cr-8Ni, Ni-20Cr, "
+                        "Fe-0.4C-1Mn (weight percent unless --at); metals substitute, C N B O H go into holes")
+    u = g.add_mutually_exclusive_group()
+    u.add_argument("--wt", dest="alloy_unit", action="store_const", const="wt",
+                   help="--alloy amounts are weight percent (the default)")
+    u.add_argument("--at", dest="alloy_unit", action="store_const", const="at",
+                   help="--alloy amounts are atom percent")
+    g.add_argument("--alloy-tolerance", type=_positive_float, metavar="POINTS",
+                   help="allowed deviation of each --alloy amount, in percentage points (default 5 %% of the "
+                        "amount, at least 0.02)")
     g.add_argument("--block", metavar="NAME", help="data block of a CIF file that holds several structures")
     g.add_argument("--tolerance", type=_positive_float, metavar="A",
                    help="distance tolerance (A) for recognising the lattice of a CIF (default 0.01)")
@@ -90,6 +101,20 @@ def crystal_from_args(args, keep_average=False):
             kw["orient"] = list(args.orient)
         if args.max_atoms is not None:
             kw["max_atoms"] = int(args.max_atoms)
+        if getattr(args, "alloy", None):
+            from ..alloy import alloy_crystal
+
+            if low.endswith(".cif"):
+                raise UserError("--alloy goes with an element SPEC (e.g. Fe --phase gamma), not a CIF file")
+            kw.pop("elements", None)
+            crystal = alloy_crystal(spec, args.alloy, args.alloy_unit or "wt", phase=args.phase, lattice=args.lattice,
+                                    a=args.a, c=args.c, seed=getattr(args, "seed", 0) or 0,
+                                    site=getattr(args, "site", None), tolerance=args.alloy_tolerance, **kw)
+            for _add, apply in SPEC_EXTENSIONS:
+                crystal = apply(crystal, args)
+            return crystal
+        if args.alloy_unit is not None or args.alloy_tolerance is not None:
+            raise UserError("--wt, --at and --alloy-tolerance go with --alloy, e.g. --alloy Fe-18Cr-8Ni --wt")
         if low.endswith(".cif"):
             kw.update(block=args.block, tolerance=args.tolerance, seed=getattr(args, "seed", 0) or 0,
                       realise=not keep_average)

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import re
 
-from ..errors import UserError
+from ..errors import UserError, suggest
 
 
 def add_arguments(p):
@@ -18,6 +18,11 @@ def add_arguments(p):
                    help="remove atoms at random: a fraction (0.01, 1%%) or a whole count (5)")
     g.add_argument("--substitute", action="append", default=[], metavar="ELEMENT:AMOUNT",
                    help="random substitutional solutes, e.g. Ni:0.1 (fraction) or Ni:5 (count); repeatable")
+    g.add_argument("--interstitial", action="append", default=[], metavar="ELEMENT:AMOUNT",
+                   help="interstitial solutes in empty holes: C:3 (count), C:0.01 (fraction of the holes) or "
+                        "C:0.4wt%% (weight percent of the crystal); repeatable")
+    g.add_argument("--site", metavar="KIND",
+                   help="hole kind for --interstitial and --alloy interstitials: octahedral (default), tetrahedral, ...")
     g.add_argument("--frenkel", type=int, metavar="N", help="move N atoms into neighbouring interstitial holes")
     g.add_argument("--seed", type=int, default=0, metavar="N",
                    help="seed for the random choices, 0 or more (default 0)")
@@ -53,6 +58,37 @@ def _amount(text, what):
     except ValueError:
         raise UserError(f"{what} '{text}' must be a fraction (0.01 or 1%) or a whole count (5)") from None
     return "fraction", v
+
+
+def _interstitial(crystal, item, site, seed, max_atoms):
+    """--interstitial ELEMENT:AMOUNT: a count, a fraction of the holes, or wt% of the crystal."""
+    from ..alloy import INTERSTITIAL_ELEMENTS
+    from ..defects.interstitial import fill_sites
+    from ..elements import _all_symbols, atomic_mass
+
+    if ":" not in item:
+        raise UserError(f"--interstitial '{item}' must be ELEMENT:AMOUNT, e.g. C:3, C:0.01 or C:0.4wt%")
+    el, amount = (x.strip() for x in item.split(":", 1))
+    sym = el[:1].upper() + el[1:].lower()
+    if sym not in _all_symbols():
+        raise UserError(f"--interstitial '{el}' is not a chemical element symbol{suggest(el, _all_symbols())}")
+    if sym not in INTERSTITIAL_ELEMENTS:
+        raise UserError(f"--interstitial {el}: {sym} substitutes rather than sitting in holes; use --substitute "
+                        f"{el}:{amount} (interstitial elements: {', '.join(INTERSTITIAL_ELEMENTS)})")
+    low = amount.lower().replace(" ", "")
+    if low.endswith(("wt%", "wt.%", "wt")):
+        num = low.rstrip("%").replace("wt.", "").replace("wt", "").rstrip("%")
+        try:
+            w = float(num) / 100.0
+        except ValueError:
+            raise UserError(f"--interstitial {item}: '{amount}' must be a weight percent, e.g. 0.4wt%") from None
+        if not (0 < w < 0.5):
+            raise UserError(f"--interstitial {item}: {w * 100:g} wt% is not an interstitial content; give 0 to 50 wt%")
+        mass = crystal.mass_amu
+        n = int(round(w / (1 - w) * mass / atomic_mass(sym)))
+        return fill_sites(crystal, sym, kind=site or "octahedral", count=n, seed=seed, max_atoms=max_atoms)
+    kind, val = _amount(amount, f"--interstitial amount for {el}")
+    return fill_sites(crystal, sym, kind=site or "octahedral", seed=seed, max_atoms=max_atoms, **{kind: val})
 
 
 def _size(args, n):
@@ -95,7 +131,7 @@ def apply(crystal, args):
 
     if is_average(crystal) and any(getattr(args, k, None) not in (None, [], False) for k in
                                    ("stack", "fault", "dislocation", "slab", "tilt_boundary", "substitute",
-                                    "vacancies", "frenkel")):
+                                    "vacancies", "frenkel", "interstitial")):
         crystal = realise(crystal, seed)          # defects act on real atoms
     if getattr(args, "fault", None) is not None:
         from ..defects.planar import FCC_FAULTS, HCP_FAULTS, NAMED_SEQUENCES
@@ -133,6 +169,11 @@ def apply(crystal, args):
         kind, val = _amount(amount, f"--substitute amount for {el}")
         kw = {kind: val}
         crystal = point.substitute(crystal, el.strip(), seed=seed + k, **kw)
+    for k, item in enumerate(getattr(args, "interstitial", None) or []):
+        crystal = _interstitial(crystal, item, getattr(args, "site", None), seed + 100 + k, max_atoms)
+    if getattr(args, "site", None) is not None and not getattr(args, "interstitial", None) \
+            and not getattr(args, "alloy", None):
+        raise UserError("--site goes with --interstitial or --alloy, e.g. --interstitial C:3 --site octahedral")
     if getattr(args, "vacancies", None) is not None:
         kind, val = _amount(args.vacancies, "--vacancies")
         crystal = point.add_vacancies(crystal, seed=seed, **{kind: val})

@@ -7,12 +7,12 @@ import numpy as np
 from ..errors import UserError
 
 
-def fill_sites(crystal, element, kind="octahedral", fraction=1.0, seed=0, max_atoms=None):
+def fill_sites(crystal, element, kind="octahedral", fraction=None, seed=0, max_atoms=None, count=None):
     """A new crystal with ``element`` atoms (role "interstitial") in a
     ``fraction`` of the empty ``kind`` sites, chosen at random with ``seed``.
 
-    The count is round(fraction x number of sites); the same seed gives the
-    same result.  The solute's radius is its interstitial radius from the data
+    The count is ``count``, or round(fraction x number of sites) (every site
+    when neither is given); the same seed gives the same result.  The solute's radius is its interstitial radius from the data
     file (or its metallic radius for a metal).  A defect record is added to
     ``metadata['defects']``.  ``max_atoms`` raises the cap on the hole
     analysis of large defected crystals.
@@ -21,7 +21,9 @@ def fill_sites(crystal, element, kind="octahedral", fraction=1.0, seed=0, max_at
     from ..analysis.sites import interstitial_sites
     from .point import fraction_value
 
-    frac = fraction_value(fraction, what="of the sites", example="0.05")
+    if count is not None and fraction is not None:
+        raise UserError("give the interstitials as a count or as a fraction of the sites, not both")
+    frac = fraction_value(1.0 if fraction is None else fraction, what="of the sites", example="0.05")
     sym = E._canon(element)
     E.atomic_number(sym)
     radius, _mode, _src = E.solute_radius(sym)
@@ -31,7 +33,13 @@ def fill_sites(crystal, element, kind="octahedral", fraction=1.0, seed=0, max_at
     if kind_l not in kinds:
         raise UserError(f"no '{kind}' sites in this crystal; its site kinds are: {', '.join(kinds) or 'none'}")
     chosen_from = [s for s in sites if s.kind == kind_l]
-    n = int(round(frac * len(chosen_from)))
+    if count is not None:
+        from .point import _count_from
+
+        n = _count_from(len(chosen_from), count=count, what=f"{sym} interstitials in {kind_l} sites")
+        frac = n / len(chosen_from) if chosen_from else 0.0
+    else:
+        n = int(round(frac * len(chosen_from)))
     rng = np.random.default_rng(seed)
     pick = np.sort(rng.choice(len(chosen_from), size=n, replace=False)) if n else np.zeros(0, int)
     pos = np.array([chosen_from[i].position for i in pick]).reshape(-1, 3)
