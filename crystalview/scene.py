@@ -35,7 +35,7 @@ DEFECT_KINDS = {
     "substitute": ({"element": {"type": "string"}, "count": COUNT, "fraction": FRACTION, "seed": SEED,
                     "host": {"type": "string"}}, ["element"]),
     "interstitials": ({"element": {"type": "string"}, "site": {"type": "string"}, "fraction": FRACTION,
-                       "seed": SEED}, ["element"]),
+                       "count": COUNT, "seed": SEED}, ["element"]),
     "frenkel": ({"count": {"type": "integer", "minimum": 1}, "seed": SEED}, ["count"]),
     "stack": ({"sequence": {"type": "string", "minLength": 2}, "repeat": {"type": "array", "items": {"type": "integer", "minimum": 1}, "minItems": 2, "maxItems": 2}},
               ["sequence"]),
@@ -77,6 +77,8 @@ SCHEMA = {
                                      "orient": {"type": "array", "items": INDEX, "minItems": 3, "maxItems": 3},
                                      "max_atoms": {"type": "integer", "minimum": 1},
                                      "block": {"type": "string"}, "seed": SEED,
+                                     "alloy": {"type": "string", "minLength": 1}, "alloy_unit": {"enum": ["wt", "at"]},
+                                     "alloy_tolerance": POS_NUM, "site": {"type": "string"},
                                      "tolerance": {"type": "number", "exclusiveMinimum": 0, "maximum": 1}}},
         "defects": {"type": "array", "items": _defect_schema()},
         "analysis": {"type": "object", "additionalProperties": False,
@@ -189,9 +191,14 @@ def load(path):
         raise UserError(f"{p}: [structure] needs one of element, compound, lattice or cif")
     if "cif" in s and len(keys) > 1:
         raise UserError(f"{p}: [structure] gives cif together with {', '.join(k for k in keys if k != 'cif')}; give one")
-    extra = [k for k in ("block", "tolerance", "seed") if k in s]
+    extra = [k for k in ("block", "tolerance") if k in s]
     if extra and "cif" not in s:
         raise UserError(f"{p}: [structure] {', '.join(extra)} go with cif = \"FILE.cif\"; leave them out")
+    extra = [k for k in ("alloy_unit", "alloy_tolerance", "site") if k in s]
+    if extra and "alloy" not in s:
+        raise UserError(f"{p}: [structure] {', '.join(extra)} go with alloy = \"Fe-18Cr-8Ni\"; leave them out")
+    if "alloy" in s and "element" not in s:
+        raise UserError(f"{p}: [structure] alloy goes with element = the alloy's base (e.g. element = \"Fe\")")
     try:
         plan_outputs(data, Path("."))
     except UserError as exc:
@@ -209,6 +216,12 @@ def crystal_from_scene(data, base_dir="."):
         cif = Path(base_dir) / s["cif"]
         crystal = build(str(cif), **{k: v for k, v in kw.items() if k in ("repeat", "supercell", "orient", "max_atoms")},
                         block=s.get("block"), tolerance=s.get("tolerance"), seed=s.get("seed", 0))
+    elif "alloy" in s:
+        from .alloy import alloy_crystal
+
+        crystal = alloy_crystal(s["element"], s["alloy"], s.get("alloy_unit", "wt"), phase=s.get("phase"),
+                                lattice=s.get("lattice"), seed=s.get("seed", 0), site=s.get("site"),
+                                tolerance=s.get("alloy_tolerance"), **kw)
     elif "compound" in s:
         crystal = build(s["compound"], **kw)
     elif "element" in s and "lattice" in s and s["lattice"] not in ("",):

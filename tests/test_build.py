@@ -78,7 +78,7 @@ def test_density_against_handbook(sym):
 # source: lattice constants in `periodictable` (crystal_structure) and `mendeleev` (lattice_constant);
 # both round to 0.01 A, so agree within 0.6 %
 @pytest.mark.parametrize("sym", ["Cu", "Al", "Ni", "Ag", "Au", "Pt", "Pb", "Fe", "Cr", "Mo", "W", "V",
-                                 "Nb", "Ta", "Ti", "Zr", "Mg", "Zn", "Cd", "Co", "Be", "Po"])
+                                 "Nb", "Ta", "Ti", "Zr", "Mg", "Zn", "Cd", "Co", "Be", "Po", "Hf", "Re", "Li"])
 def test_lattice_constants_against_independent_libraries(sym):
     import periodictable
     from mendeleev import element

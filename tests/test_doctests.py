@@ -4,7 +4,7 @@ import importlib
 
 import pytest
 
-MODULES = ["crystalview.recognise", "crystalview.prism", "crystalview.alloy", "crystalview.occupancy", "crystalview.elements", "crystalview.build",
+MODULES = ["crystalview.recognise", "crystalview.prism", "crystalview.alloy", "crystalview.defects.point", "crystalview.occupancy", "crystalview.elements", "crystalview.build",
            "crystalview.analysis.properties", "crystalview.exchange.cif"]
 
 

@@ -63,6 +63,23 @@ BCC_NOTE = ("in body-centred cubic hosts C, N, O and B sit in the octahedral sit
             "distortion), which costs less strain energy (Honeycombe & Bhadeshia, Steels, ch. 1, from memory)")
 
 
+#: Pairs whose known behaviour the rules get wrong, so the screening result
+#: never contradicts the cases the rules are taught with: (code, text).
+#: Source: ASM Handbook Vol. 3, Alloy Phase Diagrams, and Callister &
+#: Rethwisch ch. 4 and 9 (from memory).
+KNOWN_PAIRS = {
+    frozenset(("Ag", "Au")): ("extensive", "Ag-Au is a known exception: one continuous fcc solid solution at every "
+                                           "composition although the electronegativity rule fails"),
+    frozenset(("Cu", "Ag")): ("limited", "Cu-Ag is a known exception: it meets the rules yet is a eutectic system "
+                                         "with limited solid solubility (under about 5 at% at most)"),
+    frozenset(("Al", "Cu")): ("limited", "Al-Cu is a known exception: it meets the size, structure and "
+                                         "electronegativity rules, yet at most about 2.5 at% Cu dissolves in Al and "
+                                         "the intermetallic theta (Al2Cu) forms; the valence difference (Al 3, Cu 1) "
+                                         "points that way"),
+}
+KNOWN_SOURCE = "ASM Handbook Vol. 3, Alloy Phase Diagrams; Callister & Rethwisch ch. 4 and 9 (from memory)"
+
+
 class FitReport(dict):
     """A dict with attribute access (report.verdict, report.sites, ...)."""
 
@@ -277,8 +294,17 @@ def _substitutional(sym, crystal):
             code = "limited"
             main = (f"the {head} rule{'s' if len(names) > 1 else ''} limit{'' if len(names) > 1 else 's'} "
                     f"solubility: " + "; ".join(why[f] for f in failed))
+    known = KNOWN_PAIRS.get(frozenset((sym, host))) if sym != host else None
+    rules_code = code
+    if known is not None and known[0] != code:
+        code = known[0]
+        main = f"{known[1]}; the rules alone would say '{rules_code}' ({main})"
+    elif known is not None:
+        main = f"{main}; {known[1]}"
     verdict = main + ". " + NECESSARY_NOTE
     return FitReport(
+        known_case=None if known is None else {"code": known[0], "text": known[1], "source": KNOWN_SOURCE},
+        rules_verdict_code=rules_code,
         mode="substitutional", solute=sym, host_element=host, host=_host_description(crystal),
         criteria=criteria, verdict=verdict, verdict_code=code, verdict_rules=[c["rule"] for c in counted],
         failed_rules=failed, necessary_not_sufficient=NECESSARY_NOTE, valence_note=VALENCE_NOTE,

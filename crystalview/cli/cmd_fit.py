@@ -1,15 +1,22 @@
 """crystalview fit SOLUTE SPEC: interstitial hole fit or substitutional solid-solution rules."""
 from __future__ import annotations
 
-from .common import add_spec_arguments, crystal_from_args, print_json, table
+import copy
+
+from ..errors import UserError
+from .common import FORMATS, add_spec_arguments, crystal_from_args, emit_table, print_json, table
 
 
 def register(sub):
     p = sub.add_parser("fit", help="will a solute fit: hole fit (C, N, O, H, B) or solid-solution rules (metals)",
                        description="Interstitial solutes: hole radius, misfit and strain in each site kind.  "
                                    "Metals: size, structure, electronegativity and valence rules with a verdict.")
-    p.add_argument("solute", metavar="SOLUTE", help="solute element: C, N, O, H, B (interstitial) or a metal (Ni, Cr, ...)")
+    p.add_argument("solute", metavar="SOLUTE",
+                   help="solute element: C, N, O, H, B (interstitial) or a metal (Ni, Cr, ...); a comma list "
+                        "(C,N,B,Cr,Mo) screens each against each host")
     add_spec_arguments(p)
+    p.add_argument("--format", choices=FORMATS, help="table (default), csv, md (Markdown) or json; a comma list of "
+                   "solutes or hosts (SPEC Fe,Fe:gamma,Ni; ELEMENT:PHASE) gives one row per pair")
     # --max-atoms (from the SPEC arguments) also caps the hole-by-hole analysis of a defected or unknown
     # structure (default 300,000 atoms)
     p.add_argument("--json", action="store_true", help="print JSON only")
@@ -19,6 +26,10 @@ def register(sub):
 def run(args):
     from ..analysis.fit import fit
 
+    if "," in args.solute or "," in args.spec or args.format not in (None, "json"):
+        return run_table(args)
+    if args.format == "json":
+        args.json = True
     c = crystal_from_args(args)
     cap = None if getattr(args, "max_atoms", None) is None else int(args.max_atoms)
     rep = fit(args.solute, c, max_atoms=cap)
@@ -95,3 +106,82 @@ def render_text(rep):
     lines.append("")
     lines.append(rep["caution"])
     return "\n".join(lines)
+
+
+TABLE_COLUMNS = ["solute", "host", "structure", "mode", "site or rule", "hole r (A)", "solute r (A)", "strain %",
+                 "size diff %", "structure rule", "EN diff", "valence", "verdict"]
+
+
+def _tokens(text, what):
+    items = [t.strip() for t in str(text).split(",")]
+    if not all(items):
+        raise UserError(f"{what} '{text}' has an empty item; write a comma list such as C,N,B,Cr")
+    return items
+
+
+def pair_row(rep, host_label):
+    """One screening-table row (dict keyed by TABLE_COLUMNS) of a fit report."""
+    h = rep["host"]
+    row = dict.fromkeys(TABLE_COLUMNS, "")
+    row.update({"solute": rep["solute"], "host": host_label, "structure": h["lattice"] or h["structure"],
+                "mode": rep["mode"]})
+    if rep["mode"] == "interstitial":
+        site = rep.get("preferred_site") or rep["largest_hole"]
+        srow = next((x for x in rep["sites"] if x["label"] == site), rep["sites"][0])
+        r = srow.get("hole_radius_A", srow.get("hole_radius_median_A"))
+        strain = srow.get("linear_strain", srow.get("linear_strain_max"))
+        row.update({"site or rule": site + (" (preferred)" if rep.get("preferred_site") else " (largest hole)"),
+                    "hole r (A)": round(r, 4), "solute r (A)": round(rep["solute_radius_A"], 3),
+                    "strain %": round(100 * strain, 1),
+                    "verdict": (f"{rep['preferred_site']} site" if rep.get("preferred_site")
+                                else "hole sizes only (hydrogen)")})
+    else:
+        crit = {c["rule"]: c for c in rep["criteria"]}
+        row.update({"site or rule": "substitutional", "size diff %": round(crit["atomic size"]["value"], 1),
+                    "structure rule": "pass" if crit["crystal structure"]["pass"] else "FAIL",
+                    "EN diff": round(crit["electronegativity"]["value"], 2),
+                    "valence": f"{crit['valence']['solute']} vs {crit['valence']['host']}",
+                    "verdict": rep["verdict_code"] + (" (known case)" if rep.get("known_case") else "")})
+    return row
+
+
+def run_table(args):
+    from ..analysis.fit import fit
+    from ..elements import _all_symbols
+    from ..errors import suggest
+
+    solutes = _tokens(args.solute, "SOLUTE")
+    for s in solutes:
+        canon = s[:1].upper() + s[1:].lower()
+        if canon not in _all_symbols():
+            raise UserError(f"solute '{s}' is not a chemical element symbol{suggest(s, _all_symbols())}")
+    hosts = _tokens(args.spec, "SPEC")
+    rows, reports = [], []
+    cap = None if getattr(args, "max_atoms", None) is None else int(args.max_atoms)
+    for token in hosts:
+        a = copy.copy(args)
+        if ":" in token and not token.lower().endswith(".cif"):
+            a.spec, a.phase = (x.strip() for x in token.split(":", 1))
+        else:
+            a.spec = token
+        c = crystal_from_args(a)
+        for s in solutes:
+            rep = fit(s, c, max_atoms=cap)
+            rows.append(pair_row(rep, token))
+            reports.append(dict(rep))
+    fmt = "json" if args.json else (args.format or "table")
+    if fmt == "json":
+        print_json({"rows": rows, "reports": reports})
+        return 0
+    emit_table(rows, TABLE_COLUMNS, fmt)
+    if fmt == "table":
+        print("")
+        print(reports[0]["caution"])
+    elif fmt == "csv":
+        import sys
+
+        sys.stderr.write(reports[0]["caution"] + "\n")     # beside the data, not in it
+    elif fmt == "md":
+        print("")
+        print(f"*{reports[0]['caution']}*")
+    return 0

@@ -164,3 +164,31 @@ def table(rows, headers):
 
 
 from . import defect_args  # noqa: E402,F401  (registers the defect options on every SPEC command)
+
+
+FORMATS = ("table", "csv", "md", "json")
+
+
+def emit_table(rows, headers, fmt="table"):
+    """Print rows (dicts keyed by ``headers``) as a plain table, CSV (RFC
+    4180, through the csv module), a Markdown table, or JSON."""
+    if fmt == "json":
+        print_json(rows)
+        return
+    if fmt == "csv":
+        import csv
+
+        w = csv.writer(sys.stdout, lineterminator="\n")
+        w.writerow(headers)
+        for r in rows:
+            w.writerow(["" if r.get(h) is None else r.get(h) for h in headers])
+        return
+    cells = [[str("" if r.get(h) is None else r.get(h)) for h in headers] for r in rows]
+    if fmt == "md":
+        esc = [[c.replace("|", "\\|") for c in row] for row in cells]
+        sys.stdout.write("| " + " | ".join(headers) + " |\n")
+        sys.stdout.write("|" + "|".join("---" for _ in headers) + "|\n")
+        for row in esc:
+            sys.stdout.write("| " + " | ".join(row) + " |\n")
+        return
+    sys.stdout.write(table(cells, headers) + "\n")

@@ -17,7 +17,8 @@ def add_arguments(p):
     g.add_argument("--vacancies", metavar="FRACTION_OR_COUNT",
                    help="remove atoms at random: a fraction (0.01, 1%%) or a whole count (5)")
     g.add_argument("--substitute", action="append", default=[], metavar="ELEMENT:AMOUNT",
-                   help="random substitutional solutes, e.g. Ni:0.1 (fraction) or Ni:5 (count); repeatable")
+                   help="random substitutional solutes: Ni:0.1 (atom fraction of the whole crystal's sites) or Ni:5 (count); "
+                        "repeatable, each a share of the whole crystal (for weight percent use --alloy)")
     g.add_argument("--interstitial", action="append", default=[], metavar="ELEMENT:AMOUNT",
                    help="interstitial solutes in empty holes: C:3 (count), C:0.01 (fraction of the holes) or "
                         "C:0.4wt%% (weight percent of the crystal); repeatable")

@@ -61,6 +61,37 @@ def sigma_of(M, max_sigma=999):
     return None
 
 
+def tilt_angle(axis, plane):
+    """The unfolded tilt angle (degrees) of a symmetric tilt boundary: twice
+    the angle between the boundary plane and the lowest-index reference plane
+    of the {100} family (else {110}) that contains the tilt axis, taking the
+    nearer one.  Boundaries on different planes never share it, unlike the
+    misorientation folded by the cubic symmetry: (310)[001] 36.87, (210)[001]
+    53.13, (112)[1-10] 70.53, (111)[1-10] 109.47 (common practice: 2 atan of
+    the index ratio).
+
+    >>> round(tilt_angle((0, 0, 1), (3, 1, 0)), 2), round(tilt_angle((0, 0, 1), (2, 1, 0)), 2)
+    (36.87, 53.13)
+    >>> round(tilt_angle((1, -1, 0), (1, 1, 2)), 2), round(tilt_angle((1, -1, 0), (1, 1, 1)), 2)
+    (70.53, 109.47)
+    """
+    import itertools
+
+    t = np.asarray(axis, float)
+    p = np.asarray(plane, float)
+    p = p / np.linalg.norm(p)
+    for family in ([1, 0, 0], [1, 1, 0]):
+        refs = {tuple(np.array(v) * sgn) for v in set(itertools.permutations(family))
+                for sgn in (1,)}
+        refs |= {tuple(x * s for x, s in zip(v, signs)) for v in refs for signs in itertools.product((1, -1), repeat=3)}
+        refs = [np.array(r, float) for r in refs if abs(np.dot(r, t)) < 1e-9]
+        if refs:
+            ang = min(math.degrees(math.acos(min(1.0, abs(np.dot(r / np.linalg.norm(r), p))))) for r in refs)
+            # from the reference plane, the nearer way round: below 90 degrees of plane rotation
+            return 2.0 * ang
+    return float("nan")
+
+
 def misorientation(M, axis=None):
     """(smallest misorientation angle in degrees over the cubic symmetry,
     its axis in cubic axes).  With ``axis`` given, the smallest angle whose
@@ -228,7 +259,8 @@ def tilt_boundary(element, axis="[001]", plane="(310)", size=None, overlap=0.6, 
     angle = mis[0] if mis else None
     out.record_defect(
         "tilt_boundary", axis=format_indices(tv), plane=format_indices(pv, "plane"), sigma=sigma,
-        misorientation_deg=None if angle is None else round(angle, 4), orient=list(orient),
+        misorientation_deg=None if angle is None else round(angle, 4),
+        tilt_angle_deg=round(tilt_angle(tv, pv), 4), orient=list(orient),
         boundaries_y_A=[0.0, float(Ly)] if periodic else [float(Ly)], removed_atoms=removed,
         shared_plane_atoms=int(shared.sum()),
         overlap_rule=f"grain-2 atom of each pair closer than {overlap:g} x nearest-neighbour distance removed",

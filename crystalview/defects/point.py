@@ -127,7 +127,18 @@ def substitute(crystal: Crystal, element, fraction=None, count=None, seed=0, hos
     """Random substitutional solid solution: replace host atoms by ``element``.
 
     The number replaced is exact: ``count``, or ``round(fraction x number of
-    host sites)``.  ``host`` limits the choice to one species of the host
+    lattice sites of the whole crystal)`` (every atom but the interstitials),
+    so repeated substitutions each take their share of the whole crystal.
+    ``fraction`` is an atom fraction; for weight percent see
+    :func:`crystalview.alloy.alloy_crystal`.
+
+    >>> import crystalview as cv
+    >>> c = substitute(substitute(cv.build("Fe", phase="gamma", repeat=(5, 5, 5)), "Cr", fraction=0.18), "Ni",
+    ...                fraction=0.08, seed=1)
+    >>> c.counts()
+    {'Cr': 90, 'Fe': 370, 'Ni': 40}
+
+    ``host`` limits the choice to one species of the host
     (default: every atom whose role is 'host').  The solute's role becomes
     'solute' and its hard-sphere radius its CN12 metallic radius from the
     element data (crystalview.elements).
@@ -142,7 +153,17 @@ def substitute(crystal: Crystal, element, fraction=None, count=None, seed=0, hos
     if radius is None:
         raise UserError(f"no CN12 metallic radius for {sym} in the element data; choose another solute")
     pool = _candidates(crystal, element=host, role="host")
-    n = _count_from(len(pool), count=count, fraction=fraction, what=f"{sym} solute atoms")
+    if fraction is not None and count is None:
+        # a fraction of the whole crystal's lattice sites (every atom but the interstitials), so several
+        # substitutions in a row each take their own share: Cr 0.18 then Ni 0.08 is 18 % Cr and 8 % Ni
+        sites = int(np.count_nonzero(crystal.roles != role_code("interstitial")))
+        count = int(round(fraction_value(fraction) * sites))
+        if count > len(pool):
+            raise UserError(f"{fraction:g} of the {sites} lattice sites is {count} {sym} atoms, but only "
+                            f"{len(pool)} host sites are left; give a smaller fraction")
+        n = count
+    else:
+        n = _count_from(len(pool), count=count, fraction=None, what=f"{sym} solute atoms")
     rng = _rng(seed)
     chosen = np.sort(rng.choice(pool, size=n, replace=False)) if n else np.zeros(0, np.int64)
     out = crystal.copy()
