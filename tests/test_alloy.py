@@ -184,3 +184,13 @@ def test_bad_alloys_one_line():
     with pytest.raises(UserError, match="cannot hold"):
         alloy_crystal("Fe", "Fe-18Cr-8Ni", phase="gamma", repeat=(1, 1, 1))
     assert counts_for(parse_alloy("Ni-20Cr", unit="at"), 500) == {"Ni": 400, "Cr": 100}
+
+
+def test_format_on_every_table_command(cli):
+    for argv in (("sites", "Fe"), ("slip", "Cu", "--axis", "[001]"), ("fit", "C", "Fe")):
+        rc, out, err = cli(*argv, "--format", "csv")
+        assert rc == 0, err
+        rows = list(csv.reader(io.StringIO(out)))
+        assert len(rows) >= 2 and all(len(r) == len(rows[0]) for r in rows)
+        rc, out, err = cli(*argv, "--format", "md")
+        assert rc == 0 and out.startswith("| ")

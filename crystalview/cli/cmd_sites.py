@@ -1,7 +1,7 @@
 """crystalview sites SPEC: interstitial site kinds and hole radii."""
 from __future__ import annotations
 
-from .common import add_spec_arguments, crystal_from_args, print_json, table
+from .common import FORMATS, add_spec_arguments, crystal_from_args, emit_table, print_json, table
 
 
 def register(sub):
@@ -14,6 +14,7 @@ def register(sub):
                    help="also run the generic void analysis (holes found from the atoms, channel bottlenecks); "
                         "capped at 300,000 atoms unless --max-atoms says otherwise")
     p.add_argument("--json", action="store_true", help="print JSON only")
+    p.add_argument("--format", choices=FORMATS, help="table (default), csv, md (Markdown) or json: one row per site kind")
     p.set_defaults(func=run)
 
 
@@ -58,8 +59,13 @@ def run(args):
         v = find_voids(c, max_atoms=cap)
         out["voids"] = {"method": v.method, "count": len(v), "channels": int(len(v.channels)),
                         "by_kind": v.summary()}
-    if args.json:
+    if args.json or args.format == "json":
         print_json(out)
+        return 0
+    if args.format in ("csv", "md"):
+        cols = ["kind", "label", "radius_A", "ratio", "radius_min_A", "radius_max_A", "per_cell", "per_atom",
+                "in_crystal", "coordination", "bounded_by"]
+        emit_table([{k: r.get(k) for k in cols} for r in rows], cols, args.format)
         return 0
     title = head["name"] + (f" ({head['phase']})" if head["phase"] else "") + f": {head['structure']}"
     par = f"a = {head['a_A']:.4f} A" if head["a_A"] else ""

@@ -1,8 +1,10 @@
 """crystalview slip SPEC --axis UVW: Schmid factors of every slip system."""
 from __future__ import annotations
 
+import sys
+
 from ..errors import UserError
-from .common import add_spec_arguments, crystal_from_args, print_json, table
+from .common import FORMATS, add_spec_arguments, crystal_from_args, print_json, table
 
 
 def register(sub):
@@ -24,6 +26,7 @@ def register(sub):
                    help="critical resolved shear stress in MPa, for every family or per family "
                         "(repeatable), e.g. --crss 0.5 or --crss basal=0.5 --crss prismatic=40")
     p.add_argument("--json", action="store_true", help="print JSON only: a list of systems")
+    p.add_argument("--format", choices=FORMATS, help="table (default), csv, md (Markdown) or json: one row per system")
     p.set_defaults(func=run)
 
 
@@ -54,10 +57,18 @@ def run(args):
     c = crystal_from_args(args)
     crss = _crss_arg(args.crss)
     res = schmid_factors(c, args.axis, families=args.family, stress=args.stress, crss=crss)
-    if args.json:
+    if args.json or args.format in ("json", "csv", "md"):
         rows = [r.as_dict() for r in res]             # the list stays a list (the JSON contract)
         if args.stress is not None or crss:
             rows = [dict(r, caution=CAUTION) for r in rows]
+        if args.format in ("csv", "md"):
+            from .common import emit_table
+
+            cols = [k for k in rows[0] if k != "caution"] if rows else []
+            emit_table(rows, cols, args.format)
+            if args.stress is not None or crss:
+                sys.stderr.write(CAUTION + "\n")
+            return 0
         print_json(rows)
         return 0
     _t, axis_label = load_axis(c, args.axis)

@@ -183,7 +183,14 @@ def emit_table(rows, headers, fmt="table"):
         for r in rows:
             w.writerow(["" if r.get(h) is None else r.get(h) for h in headers])
         return
-    cells = [[str("" if r.get(h) is None else r.get(h)) for h in headers] for r in rows]
+    def cell(v):
+        if v is None:
+            return ""
+        if isinstance(v, float):
+            return f"{v:.6g}"
+        return str(v)
+
+    cells = [[cell(r.get(h)) for h in headers] for r in rows]
     if fmt == "md":
         esc = [[c.replace("|", "\\|") for c in row] for row in cells]
         sys.stdout.write("| " + " | ".join(headers) + " |\n")
