@@ -250,7 +250,8 @@ def vegard(alloy, lattice, host_a, host_c=None, host_phase=None):
                 e = None
             if ph is not None:
                 a_i, c_i = ph.a, ph.c
-                how = f"{el} {ph.name} ({lattice})" + (f" at {ph.temperature_K:g} K" if ph.temperature_K else "")
+                how = f"{el} {ph.name}" + (f" ({lattice})" if ph.name != lattice else "") + \
+                    (f" at {ph.temperature_K:g} K" if ph.temperature_K else "")
             else:
                 r = e.metallic_radius if e is not None else None
                 if not r:
