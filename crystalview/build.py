@@ -24,24 +24,37 @@ BYTES_PER_ATOM = 3 * 8 + 2   # positions + species + role
 GIVEN = "given by the user"
 
 
+def cap_value(value, what="--max-atoms"):
+    """A cap given by the user as a whole positive number (refuses nan, inf,
+    fractions, negatives and words in one line).
+
+    >>> cap_value("1e6"), cap_value(2000)
+    (1000000, 2000)
+    """
+    try:
+        f = float(value)
+    except (TypeError, ValueError):
+        raise UserError(f"{what} '{value}' is not a number; give a whole number of atoms, e.g. 1000000") from None
+    if not math.isfinite(f) or f < 1 or f != int(f):
+        raise UserError(f"{what} {value} must be a whole number of 1 or more, e.g. 1000000")
+    return int(f)
+
+
 def max_atoms_default():
     v = os.environ.get("CRYSTALVIEW_MAX_ATOMS")
     if v:
-        try:
-            return int(float(v))
-        except ValueError:
-            raise UserError(f"CRYSTALVIEW_MAX_ATOMS='{v}' is not a number; give an atom count like 100000000") from None
+        return cap_value(v, "CRYSTALVIEW_MAX_ATOMS")
     return DEFAULT_MAX_ATOMS
 
 
 def check_atom_count(n, max_atoms=None, what="this request"):
     """Refuse a request over the atom cap, before anything is allocated."""
-    cap = max_atoms_default() if max_atoms is None else int(max_atoms)
-    if cap < 1:
-        raise UserError(f"the atom cap {cap} must be a positive number of atoms, e.g. --max-atoms 1000000")
+    cap = max_atoms_default() if max_atoms is None else cap_value(max_atoms)
+    n = int(n)                      # exact: Python integers do not overflow
     if n > cap:
         size = n * BYTES_PER_ATOM
-        mem = f"{size / 1e9:.1f} GB" if size >= 1e8 else f"{size / 1e6:.1f} MB"
+        mem = f"{size / 1e9:.1f} GB" if size >= 1e8 else (f"{size / 1e6:.1f} MB" if size >= 1e5 else
+                                                          f"{size / 1e3:.1f} kB")
         raise LimitError(
             f"{what} would make {n:,} atoms (about {mem} of memory for the atoms alone), "
             f"over the cap of {cap:,}; make it smaller or raise the cap with --max-atoms {n}"
@@ -375,6 +388,58 @@ def _check_repeat(repeat):
     return rep
 
 
+def _int_det(P):
+    """Exact |determinant| of an integer 3x3 matrix (Python integers)."""
+    m = [[int(round(float(x))) for x in row] for row in np.asarray(P)]
+    d = (m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
+         + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0]))
+    return abs(d)
+
+
+def _fill_reduced(conv, frac, species, P):
+    """_fill for any supercell matrix, however sheared: the cell is first
+    reduced (pairwise Gauss reduction of the integer rows, exact) to an
+    equivalent compact cell of the same lattice, whose bounding box holds few
+    conventional cells; the atoms
+    are then expressed in the user's cell and wrapped into it."""
+    P = np.asarray(P, float)
+    if np.all(np.abs(P) <= 8):
+        return _fill(conv, frac, species, P, return_index=True)
+    Pr = _reduce_rows(P, conv)
+    fn, sp, src = _fill(conv, frac, species, np.round(Pr), return_index=True)
+    f_user = (fn @ np.round(Pr)) @ np.linalg.inv(P)
+    f_user -= np.floor(f_user)
+    f_user[f_user > 1 - 1e-9] = 0.0
+    f_user[np.abs(f_user) < 1e-9] = 0.0
+    order = np.lexsort((f_user[:, 0], f_user[:, 1], f_user[:, 2]))
+    return f_user[order], sp[order], src[order]
+
+
+def _reduce_rows(P, conv, max_rounds=10_000):
+    """Integer rows spanning the same lattice as P's, made short and nearly
+    orthogonal by repeated pairwise reduction b_i -= round(b_i.b_j / b_j.b_j) b_j
+    (unimodular steps: the lattice and the determinant are unchanged)."""
+    rows = [[int(round(float(x))) for x in r] for r in np.asarray(P)]
+    conv = np.asarray(conv, float)
+    for _ in range(max_rounds):
+        changed = False
+        for i in range(3):
+            for j in range(3):
+                if i == j:
+                    continue
+                vi, vj = np.array(rows[i], float) @ conv, np.array(rows[j], float) @ conv
+                q = round(float(vi @ vj) / float(vj @ vj))
+                if q:
+                    rows[i] = [a - q * b for a, b in zip(rows[i], rows[j])]
+                    changed = True
+        if not changed:
+            break
+    R = np.array(rows, float)
+    if np.linalg.det(R) < 0:
+        R[2] = -R[2]
+    return R
+
+
 def _to_conventional(base: Crystal) -> Crystal:
     """The crystal re-expressed in its lattice's conventional cell (a crystal
     read from a file in a primitive or other cell), so supercell rows and
@@ -423,10 +488,10 @@ def _supercell_of(base: Crystal, repeat=None, supercell=None, orient=None, max_a
         else:
             P, labels = _orient_rows(orient, lat, frac, species)
             meta["orient"] = labels
-        n_est = int(round(abs(np.linalg.det(P)) * len(frac)))
+        n_est = _int_det(P) * len(frac)
         rep = _check_repeat(repeat) if repeat is not None else (1, 1, 1)
-        check_atom_count(n_est * int(np.prod(rep)), max_atoms)
-        fn, species, src = _fill(conv, frac, species, P, return_index=True)
+        check_atom_count(n_est * math.prod(rep), max_atoms)
+        fn, species, src = _fill_reduced(conv, frac, species, P)
         cell_c = P @ conv
         a_, b_, c_, al, be, ga = cell_parameters(cell_c)
         if orient is not None:
@@ -437,12 +502,13 @@ def _supercell_of(base: Crystal, repeat=None, supercell=None, orient=None, max_a
         frac = fn
     if repeat is not None:
         rep = _check_repeat(repeat)
-        check_atom_count(len(frac) * int(np.prod(rep)), max_atoms)
+        check_atom_count(len(frac) * math.prod(rep), max_atoms)
         positions, numbers = _tile(new_cell, frac, species, rep)
-        src = np.tile(src, int(np.prod(rep)))
+        src = np.tile(src, math.prod(rep))
         cell = new_cell * np.array(rep)[:, None]
         meta["repeat"] = list(rep)
     else:
+        check_atom_count(len(frac), max_atoms)
         positions, numbers = frac @ new_cell, np.asarray(species, np.uint8)
         cell = new_cell
     if lat is not None and not np.allclose(rot, np.eye(3)):

@@ -63,9 +63,26 @@ def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
         mask = os.umask(0)
         os.umask(mask)
         os.chmod(tmp, 0o666 & ~mask)   # mkstemp makes 0600; give the file the usual permissions
-        if p.exists() and not force:  # appeared while we were writing
-            raise UserError(f"'{p}' already exists; pass --force (force=True in Python) to overwrite it")
-        os.replace(tmp, p)
+        if force:
+            os.replace(tmp, p)
+        else:
+            # exclusive: a hard link fails if the name exists, so two writers racing for one new
+            # name never both succeed (the check above and the rename would leave a window)
+            try:
+                os.link(tmp, p)
+            except FileExistsError:
+                raise UserError(f"'{p}' already exists; pass --force (force=True in Python) to overwrite it") from None
+            except OSError:
+                # a file system without hard links: an exclusive create of the name, then the rename
+                try:
+                    fd2 = os.open(p, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o666 & ~mask)
+                except FileExistsError:
+                    raise UserError(f"'{p}' already exists; pass --force (force=True in Python) to overwrite "
+                                    f"it") from None
+                os.close(fd2)
+                os.replace(tmp, p)
+            else:
+                os.unlink(tmp)
     except BaseException:
         try:
             os.unlink(tmp)

@@ -55,6 +55,11 @@ def format_indices(values, kind="direction", family=False):
     return o + body + c
 
 
+#: Largest index accepted (common practice: planes and directions of engineering
+#: interest have indices of a few units; far larger ones only make loops long).
+MAX_INDEX = 1000
+
+
 def parse_indices(text, kind=None, allow_bare=True) -> Indices:
     """Parse '[1-10]', '(111)', '<110>', '{111}', '[2-1-10]', '(10-12)', '1 -1 0'.
 
@@ -87,6 +92,9 @@ def parse_indices(text, kind=None, allow_bare=True) -> Indices:
         vals = [int(m) for m in re.findall(r"-?\d", body)]
     if len(vals) not in (3, 4):
         raise UserError(f"malformed indices '{text}': need 3 indices (or 4 for hexagonal), got {len(vals)}")
+    if max(abs(v) for v in vals) > MAX_INDEX:
+        raise UserError(f"indices '{str(text)[:40]}' are over {MAX_INDEX}; crystallographic directions and planes "
+                        f"of interest have small indices (divide by their common factor), e.g. [112] or (310)")
     if all(v == 0 for v in vals):
         raise UserError(f"indices '{text}' are all zero: that is no {kind}; use e.g. "
                         + ("[100]" if kind == "direction" else "(100)"))

@@ -31,7 +31,7 @@ def run(args):
     if args.format == "json":
         args.json = True
     c = crystal_from_args(args)
-    cap = None if getattr(args, "max_atoms", None) is None else int(args.max_atoms)
+    cap = None if getattr(args, "max_atoms", None) is None else _cap(args.max_atoms)
     rep = fit(args.solute, c, max_atoms=cap)
     if args.json:
         print_json(dict(rep))
@@ -157,7 +157,7 @@ def run_table(args):
             raise UserError(f"solute '{s}' is not a chemical element symbol{suggest(s, _all_symbols())}")
     hosts = _tokens(args.spec, "SPEC")
     rows, reports = [], []
-    cap = None if getattr(args, "max_atoms", None) is None else int(args.max_atoms)
+    cap = None if getattr(args, "max_atoms", None) is None else _cap(args.max_atoms)
     for token in hosts:
         a = copy.copy(args)
         if ":" in token and not token.lower().endswith(".cif"):
@@ -185,3 +185,9 @@ def run_table(args):
         print("")
         print(f"*{reports[0]['caution']}*")
     return 0
+
+
+def _cap(value):
+    from ..build import cap_value
+
+    return cap_value(value)

@@ -45,7 +45,7 @@ def run(args):
     from ..analysis.sites import sites_report
 
     c = crystal_from_args(args)
-    cap = None if getattr(args, "max_atoms", None) is None else int(args.max_atoms)
+    cap = None if getattr(args, "max_atoms", None) is None else _cap(args.max_atoms)
     if args.voids:
         from ..analysis.voids import check_void_size
 
@@ -100,3 +100,9 @@ def run(args):
                  for k, r in out["voids"]["by_kind"].items()]
         print(table(vrows, ["hole", "count", "r min (A)", "r max (A)", "r/R", "narrowest channel (A)"]))
     return 0
+
+
+def _cap(value):
+    from ..build import cap_value
+
+    return cap_value(value)

@@ -100,7 +100,7 @@ def crystal_from_args(args, keep_average=False):
         if args.orient:
             kw["orient"] = list(args.orient)
         if args.max_atoms is not None:
-            kw["max_atoms"] = int(args.max_atoms)
+            kw["max_atoms"] = _cap(args.max_atoms)
         if getattr(args, "alloy", None):
             from ..alloy import alloy_crystal
 
@@ -199,3 +199,9 @@ def emit_table(rows, headers, fmt="table"):
             sys.stdout.write("| " + " | ".join(row) + " |\n")
         return
     sys.stdout.write(table(cells, headers) + "\n")
+
+
+def _cap(value):
+    from ..build import cap_value
+
+    return cap_value(value)

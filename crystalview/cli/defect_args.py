@@ -124,7 +124,7 @@ def apply(crystal, args):
             raise UserError(f"{flag} goes with --slab, e.g. --slab (111) {flag} 6")
     if getattr(args, "poisson", None) is not None and getattr(args, "dislocation", None) is None:
         raise UserError("--poisson goes with --dislocation, e.g. --dislocation edge --poisson 0.34")
-    max_atoms = int(args.max_atoms) if getattr(args, "max_atoms", None) is not None else None
+    max_atoms = _cap(args.max_atoms) if getattr(args, "max_atoms", None) is not None else None
     seed = getattr(args, "seed", 0)
     if seed is not None and (isinstance(seed, bool) or not isinstance(seed, int) or seed < 0):
         raise UserError(f"--seed {seed} must be a whole number of 0 or more, e.g. --seed 42")
@@ -187,3 +187,9 @@ from .common import SPEC_EXTENSIONS  # noqa: E402
 
 if (add_arguments, apply) not in SPEC_EXTENSIONS:
     SPEC_EXTENSIONS.append((add_arguments, apply))
+
+
+def _cap(value):
+    from ..build import cap_value
+
+    return cap_value(value)
