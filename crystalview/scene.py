@@ -319,8 +319,27 @@ def _write_json(path, obj, force):
     atomic_write(path, json.dumps(obj, indent=2, default=_json_default) + "\n", force=force)
 
 
+def _inside(out, name, section):
+    """``out / name`` for a scene's output name, refused in one line unless it
+    stays inside the output folder (a plain name or a sub-folder path)."""
+    import os
+
+    text = str(name)
+    if not text.strip() or any(ord(ch) < 32 for ch in text):
+        raise UserError(f"[{section}] file {text!r} is not a file name; give a plain name such as cu.png")
+    pp = Path(text)
+    if pp.is_absolute() or (os.sep != "/" and ":" in text) or ".." in pp.parts or text.startswith("~"):
+        raise UserError(f"[{section}] file '{text}' would be written outside the scene's output folder; give a plain "
+                        f"name or a sub-folder inside it, e.g. figures/cu.png")
+    if any(len(part) > 200 for part in pp.parts):
+        raise UserError(f"[{section}] file name '{text[:40]}...' is over 200 characters; give a shorter name")
+    return out / pp
+
+
 def plan_outputs(data, out_dir):
-    """The files a scene will write (checked before any work starts)."""
+    """The files a scene will write (checked before any work starts): every
+    name inside the output folder, none twice (case-insensitive, the print
+    reports written beside models included)."""
     out = Path(out_dir)
     files = []
     a = data.get("analysis", {})
@@ -329,17 +348,21 @@ def plan_outputs(data, out_dir):
     if a.get("sites"):
         files.append(out / "sites.json")
     for sol in a.get("fit", []):
-        files.append(out / f"fit-{sol}.json")
+        files.append(_inside(out, f"fit-{sol}.json", "analysis"))
     if "slip" in a:
         files.append(out / "slip.json")
     for sec in ("figures", "models", "exports"):
         for item in data.get(sec, []):
-            files.append(out / item["file"])
+            f = _inside(out, item["file"], sec)
+            files.append(f)
+            if sec == "models":
+                files.append(f.with_name(f.stem + ".report.txt"))
     files.append(out / "manifest.json")
-    names = [f.name for f in files]
-    dup = {n for n in names if names.count(n) > 1}
+    names = [str(f.relative_to(out)).lower() for f in files]
+    dup = sorted({n for n in names if names.count(n) > 1})
     if dup:
-        raise UserError(f"the scene writes {', '.join(sorted(dup))} more than once; give each output its own file name")
+        raise UserError(f"the scene writes {', '.join(dup)} more than once (names compared without case; a model "
+                        f"writes MODEL.report.txt beside it); give each output its own file name")
     return files
 
 
@@ -367,8 +390,6 @@ def existing_outputs(paths, out=None):
 
 def run_scene(path, out=None, force=False, log=print):
     """Do everything a scene file asks; returns the manifest dict."""
-    import crystalview as cv
-
     t0 = time.perf_counter()
     path = Path(path)
     data = load(path)
@@ -382,60 +403,92 @@ def run_scene(path, out=None, force=False, log=print):
                             f"pass --force to overwrite or --out to write elsewhere")
     crystal = crystal_from_scene(data, path.parent)     # bad structure or defects: fail before writing
     make_folder(out_dir)
+    # everything is written into a staging folder inside the output folder and moved into place only when the
+    # whole scene has succeeded: a scene that fails half way leaves nothing behind, so the rerun works
+    import shutil
+    import tempfile
+
+    stage = Path(tempfile.mkdtemp(prefix=".cv-stage-", dir=out_dir))
+    try:
+        manifest = _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0)
+    except BaseException:
+        shutil.rmtree(stage, ignore_errors=True)
+        raise
+    shutil.rmtree(stage, ignore_errors=True)
+    return manifest
+
+
+def _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0):
+    import crystalview as cv
+
+    final_of = {}
+
+    def at(rel):
+        """The staging path of an output name (sub-folders made)."""
+        p = stage / Path(rel)
+        p.parent.mkdir(parents=True, exist_ok=True)
+        final_of[str(p)] = out_dir / Path(rel)
+        return p
     inputs = [{"file": str(path), "sha256": _sha256(path)}]
     if "cif" in data["structure"]:
         cif = path.parent / data["structure"]["cif"]
         inputs.append({"file": str(cif), "sha256": _sha256(cif)})
     written = []
 
+    staged = []
+
     def done(p, what):
         p = Path(p)
-        written.append({"file": str(p), "what": what, "bytes": p.stat().st_size, "sha256": _sha256(p)})
-        log(f"  wrote {p}  ({what})")
+        final = final_of.get(str(p), out_dir / p.relative_to(stage))
+        written.append({"file": str(final), "what": what, "bytes": p.stat().st_size, "sha256": _sha256(p)})
+        staged.append((p, final, what))
 
     a = data.get("analysis", {})
     caution = False
     if a.get("info", True):
         s = cv.summary(crystal, planes=a.get("planes", ()), directions=a.get("directions", ()))
-        _write_json(out_dir / "info.json", s, force)
-        done(out_dir / "info.json", "structure numbers")
+        _write_json(at("info.json"), s, True)
+        done(at("info.json"), "structure numbers")
     if a.get("sites"):
         from .analysis.sites import sites_report
 
-        _write_json(out_dir / "sites.json", sites_report(crystal), force)
-        done(out_dir / "sites.json", "interstitial sites")
+        _write_json(at("sites.json"), sites_report(crystal), True)
+        done(at("sites.json"), "interstitial sites")
     for sol in a.get("fit", []):
         rep = cv.fit(sol, crystal)
-        _write_json(out_dir / f"fit-{sol}.json", _plain(rep), force)
-        done(out_dir / f"fit-{sol}.json", f"fit of {sol}")
+        _write_json(at(f"fit-{sol}.json"), _plain(rep), True)
+        done(at(f"fit-{sol}.json"), f"fit of {sol}")
         caution = True
     if "slip" in a:
         sl = a["slip"]
         res = cv.schmid_factors(crystal, sl["axis"], families=sl.get("families"), stress=sl.get("stress"),
                                 crss=sl.get("crss"))
-        _write_json(out_dir / "slip.json", _plain(res), force)
-        done(out_dir / "slip.json", f"Schmid factors along {sl['axis']}")
+        _write_json(at("slip.json"), _plain(res), True)
+        done(at("slip.json"), f"Schmid factors along {sl['axis']}")
         caution = caution or "crss" in sl
     for fig in data.get("figures", []):
         opts = {k: v for k, v in fig.items() if k != "file"}
         if "size" in opts:
             opts["size"] = tuple(opts["size"])
-        cv.render(crystal, out_dir / fig["file"], force=force, **opts)
-        done(out_dir / fig["file"], f"figure, {opts.get('style', 'ball-and-stick')}, view {opts.get('view', '[001]')}")
+        target = at(fig["file"])
+        cv.render(crystal, target, force=True, **opts)
+        done(target, f"figure, {opts.get('style', 'ball-and-stick')}, view {opts.get('view', '[001]')}")
     for m in data.get("models", []):
         opts = {k: v for k, v in m.items() if k != "file"}
         if "bed" in opts:
             opts["bed"] = tuple(opts["bed"])
-        rep = cv.print_model(crystal, out_dir / m["file"], force=force, **opts)
+        target = at(m["file"])
+        rep = cv.print_model(crystal, target, force=True, **opts)
         caution = True
-        done(out_dir / m["file"], f"print model, {opts.get('style', 'ball-and-stick')}")
+        done(target, f"print model, {opts.get('style', 'ball-and-stick')}")
         for extra in _report_files(rep):
-            if Path(extra).exists() and all(w["file"] != str(extra) for w in written):
+            if Path(extra).exists() and all(str(q) != str(extra) for q, _f, _w in staged):
                 done(extra, "print report")
     for e in data.get("exports", []):
         opts = {k: v for k, v in e.items() if k != "file"}
-        cv.export(crystal, out_dir / e["file"], force=force, **opts)
-        done(out_dir / e["file"], f"exchange file ({Path(e['file']).suffix.lstrip('.')})")
+        target = at(e["file"])
+        cv.export(crystal, target, force=True, **opts)
+        done(target, f"exchange file ({Path(e['file']).suffix.lstrip('.')})")
     manifest = {
         "scene": name,
         "title": data["scene"].get("title"),
@@ -448,11 +501,40 @@ def run_scene(path, out=None, force=False, log=print):
     }
     if caution or data["scene"].get("caution"):
         manifest["caution"] = cv.CAUTION
-    _write_json(out_dir / "manifest.json", manifest, force)
-    log(f"  wrote {out_dir / 'manifest.json'}  (manifest)")
+    _write_json(at("manifest.json"), manifest, True)
+    staged.append((at("manifest.json"), out_dir / "manifest.json", "manifest"))
+    _move_into_place(staged, force)
+    for _p, final, what in staged:
+        log(f"  wrote {final}  ({what})")
     if "caution" in manifest:
         log(f"  {cv.CAUTION}")
     return manifest
+
+
+def _move_into_place(staged, force):
+    """Move every staged file to its final name: all or nothing without
+    force (refused up front if any name exists), exclusive links so a file
+    that appeared meanwhile is never overwritten."""
+    import os
+
+    if not force:
+        there = [str(f) for _p, f, _w in staged if Path(f).exists()]
+        if there:
+            raise UserError(f"{there[0]} already exists (and {len(there) - 1} more); pass --force to overwrite")
+    moved = []
+    try:
+        for p, final, _w in staged:
+            Path(final).parent.mkdir(parents=True, exist_ok=True)
+            if force:
+                os.replace(p, final)
+            else:
+                os.link(p, final)
+                os.unlink(p)
+            moved.append(final)
+    except FileExistsError:
+        for f in moved:
+            Path(f).unlink(missing_ok=True)
+        raise UserError(f"{final} appeared while the scene ran; nothing was kept; run it again") from None
 
 
 def _report_files(rep):

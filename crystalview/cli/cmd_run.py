@@ -27,6 +27,18 @@ def run_many(paths, out=None, force=False, quiet=False, debug=False):
         from ..scene import make_folder
 
         make_folder(out)            # an unusable --out stops everything, in one line
+    if len(paths) > 1:
+        # two scenes of one name would write the same folder: refuse before anything runs
+        seen = {}
+        for path in paths:
+            try:
+                nm = load(path)["scene"]["name"]
+            except UserError:
+                continue
+            if nm.lower() in seen:
+                raise UserError(f"scenes {seen[nm.lower()]} and {path} are both named '{nm}' and would write the same "
+                                f"folder; give each scene its own [scene] name")
+            seen[nm.lower()] = path
     status = 0
     results = []
     log = (lambda *a, **k: None) if quiet else (lambda msg: print(msg, flush=True))
