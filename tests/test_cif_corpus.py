@@ -304,3 +304,28 @@ def test_every_command_on_every_readable_file(path, tmp_path, cli):
                 assert "not one of the lattice types" in err
         else:
             assert out
+
+
+def test_cif_values_checked_and_text_sanitised(tmp_path, cli):
+    """A cell given only in part, occupancies that are not numbers, escape codes in names, a multi-line
+    formula: refused in one line, or kept off the terminal and out of other files' structure."""
+    head = ("data_x\n_cell_length_a 3.6\n_cell_length_b 3.6\n_cell_length_c 3.6\n_cell_angle_alpha 90\n"
+            "_cell_angle_beta 90\n_cell_angle_gamma 90\n_symmetry_space_group_name_H-M 'F m -3 m'\n")
+    loop = ("loop_\n_atom_site_label\n_atom_site_type_symbol\n_atom_site_fract_x\n_atom_site_fract_y\n"
+            "_atom_site_fract_z\n_atom_site_occupancy\n")
+    p = tmp_path / "a.cif"
+    p.write_text("data_x\n_cell_length_a 3.6\n" + loop + "Cu1 Cu 0 0 0 1\n")
+    rc, out, err = cli("info", p)
+    assert rc == 2 and "whole cell" in err
+    for occ in ("abc", "nan", "-5", "1.7"):
+        p.write_text(head + loop + f"Cu1 Cu 0 0 0 {occ}\n")
+        rc, out, err = cli("info", p)
+        assert rc == 2 and "occupancy" in err and err.count("\n") == 1, (occ, err)
+    p.write_text(head + "_chemical_formula_sum\n;\nCu4\n8\nX 0 0 0\n;\n_chemical_name_common 'a\x1b[31mred'\n"
+                 + loop + "Cu1 Cu 0 0 0 1\n")
+    rc, out, err = cli("export", p, "-o", tmp_path / "x.xyz")
+    assert rc == 0, err
+    lines = (tmp_path / "x.xyz").read_text().splitlines()
+    assert lines[0] == "4" and len(lines) == 6                  # count, one comment line, four atoms
+    rc, out, err = cli("info", p)
+    assert "\x1b" not in out and "\x1b" not in err

@@ -4,8 +4,19 @@ import importlib
 
 import pytest
 
-MODULES = ["crystalview.recognise", "crystalview.prism", "crystalview.alloy", "crystalview.defects.point", "crystalview.occupancy", "crystalview.elements", "crystalview.build",
-           "crystalview.analysis.properties", "crystalview.exchange.cif"]
+MODULES = [
+    "crystalview.recognise",
+    "crystalview.prism",
+    "crystalview.alloy",
+    "crystalview.defects.point",
+    "crystalview.cli",
+    "crystalview.defects.boundary",
+    "crystalview.occupancy",
+    "crystalview.elements",
+    "crystalview.build",
+    "crystalview.analysis.properties",
+    "crystalview.exchange.cif",
+]
 
 
 @pytest.mark.parametrize("name", MODULES)

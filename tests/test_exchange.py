@@ -209,7 +209,7 @@ def test_malformed_cif_one_line(tmp_path):
     assert "\n" not in str(e.value)
     empty = tmp_path / "empty.cif"
     empty.write_text("data_x\n_cell_length_a 3\n_cell_length_b 3\n_cell_length_c 3\n")
-    with pytest.raises(UserError, match="no atoms|no valid unit cell"):
+    with pytest.raises(UserError, match="no atoms|no valid unit cell|whole cell"):
         cv.read_cif(empty)
     r = subprocess.run([sys.executable, "-m", "crystalview", "export", str(bad), "-o", str(tmp_path / "x.xyz")],
                        capture_output=True, text=True, env={**os.environ, "PYTHONPATH": str(ROOT)})

@@ -43,6 +43,22 @@ def make_parser():
     return p
 
 
+def clean_text(text):
+    r"""Text safe to echo on a terminal: control characters (escape codes from
+    a file's labels or a scene's values) shown as \xNN, never sent raw.
+
+    >>> print(clean_text("Fe" + chr(27) + "[31m"))
+    Fe\x1b[31m
+    """
+    return "".join(ch if ch.isprintable() or ch == " " else f"\\x{ord(ch):02x}" for ch in str(text))
+
+
+def _wants_json(argv):
+    args = [str(a) for a in argv]
+    return "--json" in args or any(a == "--format" and i + 1 < len(args) and args[i + 1] == "json"
+                                   for i, a in enumerate(args)) or "--format=json" in args
+
+
 def main(argv=None):
     from crystalview.errors import UserError
 
@@ -62,8 +78,12 @@ def main(argv=None):
     except UserError as exc:
         if debug:
             raise
-        msg = " ".join(str(exc).split())
+        msg = clean_text(" ".join(str(exc).split()))
         sys.stderr.write(f"crystalview: error: {msg}\n")
+        if _wants_json(argv):         # a caller parsing stdout gets the error as JSON too
+            import json
+
+            sys.stdout.write(json.dumps({"error": msg, "exit_status": 2}) + "\n")
         return 2
     except KeyboardInterrupt:
         sys.stderr.write("crystalview: interrupted\n")

@@ -102,7 +102,7 @@ def _family(a, b, c, al, be, ga, tol_len=1e-3, tol_ang=0.01, number=None):
 
 
 def _clean(exc, path=None):
-    text = str(exc)
+    text = "".join(ch if ch.isprintable() or ch in " \t\n" else "?" for ch in str(exc))
     if path is not None:
         text = text.replace(str(path), Path(path).name)
     return " ".join(text.split())[:200]
@@ -158,7 +158,9 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
 
     tol = DEFAULT_TOLERANCE if tolerance is None else tolerance
     p = Path(path)
+    _notes.clear()
     b = _structure_block(p, block)
+    _check_values(b, p)
     st = _small_structure(b, p)
     cell = st.cell
     pars = (cell.a, cell.b, cell.c, cell.alpha, cell.beta, cell.gamma)
@@ -277,6 +279,9 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
             "source": f"CIF file {p.name}, block {b.name}", "cif_block": b.name,
             "asymmetric_unit_sites": len(st.sites)}
     average = bool(np.any(occ < 1.0 - 1e-6))
+    if _notes:
+        meta["note"] = "; ".join(_notes)
+        _notes.clear()
     crystal = Crystal(rows, frac @ rows, numbers, roles=roles, metadata=meta, lattice=lat,
                       occupancy=occ if average else None)
     drop = _check_distances(crystal, p, b.name, labels)
@@ -316,6 +321,34 @@ def replace_lattice(lat, **kw):
     from dataclasses import replace
 
     return replace(lat, **kw)
+
+
+def _check_values(b, p):
+    """The cell fully given, every occupancy a number in [0, 1] or unknown."""
+    import gemmi
+
+    missing = [t for t in ("_cell_length_a", "_cell_length_b", "_cell_length_c", "_cell_angle_alpha",
+                           "_cell_angle_beta", "_cell_angle_gamma") if b.find_value(t) in (None, "?", ".")]
+    if missing:
+        raise UserError(f"'{p.name}' block '{b.name}' does not give its whole cell ({', '.join(missing)} missing); "
+                        f"give the three lengths and the three angles")
+    labels = list(b.find_values("_atom_site_label"))
+    occ = list(b.find_values("_atom_site_occupancy"))
+    unknown = 0
+    for k, v in enumerate(occ):
+        if v in ("?", "."):
+            unknown += 1
+            continue
+        x = gemmi.cif.as_number(v)
+        if not math.isfinite(x) or x < 0 or x > 1 + 1e-3:
+            who = _clean(labels[k])[:30] if k < len(labels) else f"number {k + 1}"
+            raise UserError(f"'{p.name}' block '{b.name}': atom site '{who}' has occupancy '{_clean(v)[:20]}'; give "
+                            f"_atom_site_occupancy as a number between 0 and 1")
+    if unknown:
+        _notes.append(f"{unknown} site(s) with unknown occupancy ('?') read as fully occupied")
+
+
+_notes = []
 
 
 def _norm_tag(tag):
@@ -460,6 +493,7 @@ def _block_name(b):
             import gemmi
 
             text = " ".join(gemmi.cif.as_string(v).split())
+            text = "".join(ch for ch in text if ch.isprintable())        # no escape codes reach a terminal
             if text and text not in ("?", "."):
                 # a formula sum 'B2 Mg' reads as MgB2's elements, not as the B2 structure type: close it up
                 return text.replace(" ", "") if tag == "_chemical_formula_sum" and len(text) < 60 else text

@@ -10,7 +10,9 @@ def xyz_text(crystal):
 
     cell = " ".join(f"{x:.8f}" for x in crystal.cell.reshape(-1))
     pbc = " ".join("T" if p else "F" for p in crystal.pbc)
-    name = str(crystal.metadata.get("name") or "crystal").replace('"', "'")
+    # one line whatever the name holds: control characters (a multi-line formula from a CIF) become spaces
+    name = "".join(ch if ch.isprintable() else " " for ch in str(crystal.metadata.get("name") or "crystal"))
+    name = " ".join(name.replace('"', "'").split()) or "crystal"
     head = (f'Lattice="{cell}" Properties=species:S:1:pos:R:3:role:S:1 pbc="{pbc}" '
             f'name="{name}" units="angstrom"')
     import io
