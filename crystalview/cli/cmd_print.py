@@ -1,6 +1,8 @@
 """crystalview print SPEC -o MODEL.stl|.3mf: a watertight, printable model and its print report."""
 from __future__ import annotations
 
+import argparse
+
 from .common import add_spec_arguments, crystal_from_args, print_json
 
 
@@ -16,7 +18,17 @@ def register(sub):
     p.add_argument("--clip-to-cell", action="store_true",
                    help="cut the space-filling spheres to the cell faces (volume / cell volume = packing factor)")
     p.add_argument("--scale", type=float, metavar="MM_PER_ANGSTROM", help="model size: mm per angstrom (default 10)")
-    p.add_argument("--base", action="store_true", help="add a base plate under the model")
+    p.add_argument("--base", action=argparse.BooleanOptionalAction, default=None,
+                   help="add a base plate under the model (default: where the model alone would touch the bed over "
+                        "too small an area to stand); --no-base never adds one")
+    p.add_argument("--edges", action=argparse.BooleanOptionalAction, default=None,
+                   help="cell edges as struts of the minimum feature (default on for ball-and-stick)")
+    p.add_argument("--resolution", type=float, default=0.05, metavar="MM",
+                   help="printer resolution: the largest chord error of spheres and rods (default 0.05 mm)")
+    p.add_argument("--overhang-angle", type=float, default=45.0, metavar="DEG",
+                   help="steepest overhang printed without support, degrees from vertical (default 45)")
+    p.add_argument("--cell", choices=["prism", "primitive"], default=None,
+                   help="hcp / simple hexagonal: the hexagonal prism (default) or the stored primitive cell")
     p.add_argument("--kit", action="store_true",
                    help="separate balls with bored holes and loose rods, to assemble and take apart")
     p.add_argument("--clearance", type=float, default=0.2, metavar="MM",
@@ -41,7 +53,8 @@ def run(args):
     rep = print_model(c, args.output, style=args.style, scale=args.scale, clip_to_cell=args.clip_to_cell,
                       base=args.base, kit=args.kit, min_feature=args.min_feature, bed=tuple(args.bed),
                       material_density=args.material_density, clearance=args.clearance,
-                      max_triangles=int(args.max_triangles), force=args.force)
+                      max_triangles=int(args.max_triangles), force=args.force, resolution=args.resolution,
+                      edges=args.edges, cell=args.cell, overhang_angle=args.overhang_angle)
     if args.json:
         print_json(dict(rep))
     else:

@@ -17,12 +17,15 @@ import math
 
 import numpy as np
 
-#: Chord tolerance for curved surfaces (mm): the largest gap between a true
-#: sphere and its tessellation.  0.05 mm is half a desktop printer's finest
-#: usual layer height of 0.1 mm (common practice), so facets do not show.
-CHORD_TOLERANCE_MM = 0.05
+#: Default printer resolution (mm): the largest gap allowed between a true
+#: sphere or rod and its tessellation (the chord error).  0.05 mm is half a
+#: desktop printer's finest usual layer height of 0.1 mm (common practice), so
+#: facets do not show.
+DEFAULT_RESOLUTION_MM = 0.05
+CHORD_TOLERANCE_MM = DEFAULT_RESOLUTION_MM       # old name, kept for callers
 MIN_SEGMENTS = 24
 MAX_SEGMENTS = 128
+SPHERE_SEGMENTS = tuple(range(8, 257, 4))       # manifold3d geodesic spheres need multiples of 4
 
 
 def _manifold():
@@ -32,15 +35,77 @@ def _manifold():
 
 
 def segments_for(radius_mm, tolerance_mm=CHORD_TOLERANCE_MM, lo=MIN_SEGMENTS, hi=MAX_SEGMENTS):
-    """Segments around a circle of this radius so the chord error stays under
-    ``tolerance_mm``; rounded up to a multiple of 4 (manifold3d's geodesic
-    spheres need that) and clamped to [lo, hi]."""
+    """Segments around a circle of this radius so the polygon's chord error
+    stays under ``tolerance_mm``; rounded up to a multiple of 4 and clamped to
+    [lo, hi].  (The old sizing rule, kept for the benchmark's baseline.)"""
     r = max(float(radius_mm), 1e-9)
     x = max(-1.0, min(1.0, 1.0 - tolerance_mm / r))
     ang = math.acos(x)
     n = hi if ang <= 0 else int(math.ceil(math.pi / ang))
     n = max(lo, min(hi, n))
     return int(4 * math.ceil(n / 4))
+
+
+_SPHERE_ERR = {}
+
+
+#: Largest shortfall of a tessellated sphere's volume from the true sphere's
+#: (0.5 %): the scale of the tessellation is chosen within it to make the
+#: largest gap to the true sphere, outside or inside, as small as it can be.
+VOLUME_BUDGET = 0.005
+
+
+def sphere_shape(segments):
+    """(scale k, relative chord error) of manifold3d's geodesic sphere with
+    this many segments, measured on the tessellation itself.  The unit
+    tessellation (vertices on the sphere) is scaled by k: the vertices then
+    stand (k - 1) r outside the true sphere and the flattest faces
+    (1 - k * plane distance) r inside; k balances the two, but never lets the
+    volume fall more than ``VOLUME_BUDGET`` short of the true sphere's (nor
+    rise above it).  The chord error is the larger gap."""
+    n = int(segments)
+    got = _SPHERE_ERR.get(n)
+    if got is None:
+        m = _manifold()
+        s = m.Manifold.sphere(1.0, n)
+        k_vol = (4.0 / 3.0 * math.pi / s.volume()) ** (1.0 / 3.0)
+        mesh = s.to_mesh()
+        v = np.asarray(mesh.vert_properties, np.float64)[:, :3]
+        tri = v[np.asarray(mesh.tri_verts, np.int64)]
+        nrm = np.cross(tri[:, 1] - tri[:, 0], tri[:, 2] - tri[:, 0])
+        nrm /= np.linalg.norm(nrm, axis=1, keepdims=True)
+        plane = float(np.abs((nrm * tri[:, 0]).sum(axis=1)).min())
+        rv = np.linalg.norm(v, axis=1)
+        k_bal = 2.0 / (rv.max() + plane)
+        k = min(k_vol, max(k_bal, k_vol * (1.0 - VOLUME_BUDGET) ** (1.0 / 3.0)))
+        err = max(k * rv.max() - 1.0, 1.0 - k * rv.min(), 1.0 - k * plane)
+        got = _SPHERE_ERR[n] = (float(k), float(err))
+    return got
+
+
+def sphere_segments(radius_mm, chord_mm=DEFAULT_RESOLUTION_MM):
+    """Fewest geodesic-sphere segments whose chord error (measured, with the
+    volume-preserving scale) stays within ``chord_mm`` for this radius."""
+    r = max(float(radius_mm), 1e-9)
+    for n in SPHERE_SEGMENTS:
+        if sphere_shape(n)[1] * r <= chord_mm:
+            return n
+    return SPHERE_SEGMENTS[-1]
+
+
+def rod_sides(radius_mm, chord_mm=DEFAULT_RESOLUTION_MM, lo=8, hi=96):
+    """Fewest sides (even) of a rod's polygon circumscribing the nominal
+    circle so its corners stand at most ``chord_mm`` outside it."""
+    r = max(float(radius_mm), 1e-9)
+    c = r / (r + chord_mm)
+    n = int(math.ceil(math.pi / math.acos(c)))
+    n += n % 2
+    return max(lo, min(hi, n))
+
+
+def rod_chord_error(radius_mm, sides):
+    """Corner height of the circumscribed polygon over the nominal circle (mm)."""
+    return float(radius_mm) * (1.0 / math.cos(math.pi / int(sides)) - 1.0)
 
 
 def sphere_triangles(segments):
@@ -76,12 +141,9 @@ class Templates:
         s = self._spheres.get(key)
         if s is None:
             m = _manifold()
-            s = m.Manifold.sphere(float(radius), int(segments))
-            # volume-preserving: scale the tessellation so its volume is the
-            # true sphere's (an inscribed polyhedron is smaller), so volumes,
-            # masses and packing factors come out right at a modest triangle count
-            k = (4.0 / 3.0 * math.pi * float(radius) ** 3 / s.volume()) ** (1.0 / 3.0)
-            s = m.Manifold.sphere(float(radius) * k, int(segments))
+            # scaled so the largest gap to the true sphere is as small as it can
+            # be within a 0.5 % volume budget (see sphere_shape)
+            s = m.Manifold.sphere(float(radius) * sphere_shape(int(segments))[0], int(segments))
             self._spheres[key] = s
             self.group_of_id[s.original_id()] = group
         return s
@@ -158,8 +220,10 @@ def box_from_cell(cell_mm):
     return m.Manifold.hull_points(corners.astype(float).tolist())
 
 
-def to_trimesh(solid, templates=None):
-    """(trimesh.Trimesh, per-face group labels or None) from a manifold solid."""
+def to_trimesh(solid, templates=None, face_labels=None):
+    """(trimesh.Trimesh, per-face group labels or None) from a manifold solid.
+    ``face_labels``: {original id: labels} for solids made from a mesh whose
+    face_id indexes ``labels`` (the stitched ball-and-stick solid)."""
     import trimesh
 
     mesh = solid.to_mesh()
@@ -172,6 +236,13 @@ def to_trimesh(solid, templates=None):
         counts = np.diff(run_index) // 3
         labels = np.array([templates.group_of_id.get(int(i), "") for i in run_ids], dtype=object)
         groups = np.repeat(labels, counts)
+        if face_labels:
+            fid = np.asarray(mesh.face_id, dtype=np.int64)
+            run_of_face = np.repeat(run_ids, counts)
+            for oid, labs in face_labels.items():
+                sel = run_of_face == oid
+                if sel.any() and len(fid) == len(faces):
+                    groups[sel] = np.array(labs, dtype=object)[np.clip(fid[sel], 0, len(labs) - 1)]
         if len(groups) != len(faces):       # should not happen; fall back to no colour
             groups = None
     tm = trimesh.Trimesh(vertices=verts, faces=faces, process=False)

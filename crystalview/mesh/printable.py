@@ -28,6 +28,7 @@ import numpy as np
 
 from ..errors import LimitError, UserError
 from . import primitives as P
+from .bed import DEFAULT_OVERHANG_ANGLE
 
 DEFAULT_SCALE = 10.0            # mm per angstrom: 1 A -> 1 cm, a 3.6 A cell -> 36 mm
 DEFAULT_BED = (220.0, 220.0, 250.0)   # mm; a common desktop bed size (common practice)
@@ -210,7 +211,74 @@ def _lay_flat_rotation(points):
     return P.rotation_to(n, np.array([0.0, 0.0, -1.0]))
 
 
-def _plan(crystal, style, scale, clip, min_feature, kit, max_triangles, segments):
+def _prism_atoms(crystal, cell_choice):
+    """(points A, index into the crystal, outline corners A, outline edges)
+    of the hexagonal prism, or None where the stored cell is printed."""
+    from ..prism import has_prism, hexagonal_prism
+
+    if cell_choice == "primitive" or not has_prism(crystal):
+        return None
+    lat = crystal.lattice
+    one_cell = (len(crystal) == len(lat.basis_frac) and np.allclose(crystal.cell, lat.cell, atol=1e-6)
+                and not crystal.metadata.get("defects"))
+    if not one_cell:
+        return None
+    pr = hexagonal_prism(crystal)
+    frac_atoms = crystal.frac() if callable(getattr(crystal, "frac", None)) else \
+        np.linalg.solve(crystal.cell.T, crystal.positions.T).T
+    frac_p = np.linalg.solve(crystal.cell.T, np.asarray(pr.positions).T).T
+    idx = []
+    for k, f in enumerate(frac_p):
+        d = frac_p[k] - frac_atoms
+        d -= np.round(d)
+        dist = np.linalg.norm(d @ crystal.cell, axis=1)
+        same = np.array([s == pr.symbols[k] for s in crystal.symbols])
+        dist = np.where(same, dist, np.inf)
+        idx.append(int(np.argmin(dist)))
+    return np.asarray(pr.positions, float), np.array(idx), np.asarray(pr.corners, float), np.asarray(pr.edges)
+
+
+def _cell_outline(cell):
+    import itertools
+
+    corners = np.array(list(itertools.product((0.0, 1.0), repeat=3))) @ np.asarray(cell, float)
+    edges = []
+    for a in range(8):
+        for b in range(a + 1, 8):
+            if bin(a ^ b).count("1") == 1:
+                edges.append((a, b))
+    return corners, np.array(edges)
+
+
+def _struts(pts_A, corners_A, edges, tol=1e-3):
+    """Cell-edge struts as (point index or -1, point index or -1, p0 A, p1 A):
+    each outline edge is split at the atoms lying on it."""
+    out = []
+    for a, b in edges:
+        p, q = corners_A[a], corners_A[b]
+        d = q - p
+        L = float(np.linalg.norm(d))
+        if L < 1e-9:
+            continue
+        u = d / L
+        rel = pts_A - p
+        t = rel @ u
+        off = np.linalg.norm(rel - np.outer(t, u), axis=1)
+        on = np.nonzero((off < tol) & (t > -tol) & (t < L + tol))[0]
+        stops = [(float(t[k]), int(k)) for k in on]
+        if not any(abs(s) < tol for s, _ in stops):
+            stops.append((0.0, -1))
+        if not any(abs(s - L) < tol for s, _ in stops):
+            stops.append((L, -1))
+        stops.sort()
+        for (s0, k0), (s1, k1) in zip(stops[:-1], stops[1:]):
+            if s1 - s0 > tol:
+                out.append((k0, k1, p + u * s0, p + u * s1))
+    return out
+
+
+def _plan(crystal, style, scale, clip, min_feature, kit, max_triangles, segments, edges=False, cell_choice=None,
+          resolution=P.DEFAULT_RESOLUTION_MM, legacy=False):
     """Atoms, rods and checks in mm, before any mesh is made."""
     from ..palette import ROLE_COLOURS, atom_colours
 
@@ -220,26 +288,49 @@ def _plan(crystal, style, scale, clip, min_feature, kit, max_triangles, segments
     radii_A_all = crystal.atom_radii()
     r_max = float(radii_A_all.max())
     ball_frac = 1.0 if style == "space-filling" else BALL_FRACTION
-    seg = int(segments) if segments else P.segments_for(ball_frac * r_max * scale)
-    if segments is not None and (seg < 8 or seg > 512):
-        raise UserError(f"sphere segments {segments} must lie between 8 and 512 (about 48 is plenty)")
+    if segments is not None:
+        seg = int(segments)
+        if seg < 8 or seg > 512:
+            raise UserError(f"sphere segments {segments} must lie between 8 and 512 (about 48 is plenty)")
+        seg = int(4 * math.ceil(seg / 4))
+
+        def sphere_seg(r):
+            return seg
+    elif legacy:
+        seg = P.segments_for(ball_frac * r_max * scale)
+
+        def sphere_seg(r):
+            return seg
+    else:
+        seg = P.sphere_segments(ball_frac * r_max * scale, resolution)
+
+        def sphere_seg(r):
+            return P.sphere_segments(r, resolution)
     # first refusal: the spheres alone, before any images or neighbour search
     est = P.estimate_triangles(n_atoms, seg)
     if est > max_triangles:
         raise LimitError(f"the model would have about {est:,} triangles ({n_atoms:,} atoms), over the cap of "
                          f"{max_triangles:,}; print fewer cells or raise the cap with --max-triangles {est}")
-    pts_A, idx = _shown_atoms(crystal, clip, radii_A_all)
+    prism = _prism_atoms(crystal, cell_choice)
+    if prism is not None:
+        pts_A, idx, outline_corners, outline_edges = prism
+    else:
+        pts_A, idx = _shown_atoms(crystal, clip, radii_A_all)
+        outline_corners, outline_edges = _cell_outline(crystal.cell)
     radii_A = radii_A_all[idx]
     colours, cindex, legend = atom_colours(crystal)
     labels = [lab for lab, _ in legend]
     atom_group = np.array(labels, dtype=object)[cindex[idx]]
     group_colours = {lab: col for lab, col in legend}
     group_colours["bond"] = ROLE_COLOURS["bond"]
+    group_colours["cell"] = ROLE_COLOURS["cell"]
     group_colours["base"] = ROLE_COLOURS["cell"]
+    group_colours["label"] = ROLE_COLOURS["solute"]
     centres = pts_A * scale
     R_hs = radii_A * scale                               # hard-sphere radii in mm
     adjustments = []
     rods = []                                            # (i, j, radius_mm, group)
+    free_struts = []                                     # (p0 mm, p1 mm, radius mm): strut ends not at an atom
     if style == "ball-and-stick":
         balls = BALL_FRACTION * R_hs
         if balls.min() * 2 < min_feature:
@@ -267,6 +358,22 @@ def _plan(crystal, style, scale, clip, min_feature, kit, max_triangles, segments
             rods.append((int(i), int(j), float(r), "bond"))
         if thick:
             adjustments.append(f"thickened {thick} rod(s) to the minimum feature of {min_feature:g} mm")
+        if edges:
+            have = {(min(i, j), max(i, j)): k for k, (i, j, _r, _g) in enumerate(rods)}
+            rs = min_feature / 2
+            n_st = 0
+            for k0, k1, p0, p1 in _struts(pts_A, outline_corners, outline_edges):
+                if k0 >= 0 and k1 >= 0:
+                    key = (min(k0, k1), max(k0, k1))
+                    if key in have:                     # a bond already runs along this edge
+                        continue
+                    rods.append((k0, k1, rs, "cell"))
+                else:
+                    free_struts.append((p0 * scale, p1 * scale, rs))
+                n_st += 1
+            if n_st:
+                adjustments.append(f"cell edges drawn as {n_st} strut(s) {min_feature:g} mm across "
+                                   f"(the minimum feature)")
     else:
         balls = R_hs.copy()
         pairs, dist = _pairs(pts_A, radii_A, 1.02)
@@ -290,98 +397,220 @@ def _plan(crystal, style, scale, clip, min_feature, kit, max_triangles, segments
                                f"(minimum feature {min_feature:g} mm)")
         if len(extra):
             adjustments.append(f"tied {len(extra)} loose atom(s) to their nearest neighbour")
-    rod_seg = P.segments_for(max((r for _, _, r, _ in rods), default=1.0), lo=12, hi=64)
-    est = P.estimate_triangles(len(centres), seg, len(rods), rod_seg)
+    if legacy:
+        rod_seg_fixed = P.segments_for(max((r for _, _, r, _ in rods), default=1.0), lo=12, hi=64)
+
+        def rod_seg(r):
+            return rod_seg_fixed
+    else:
+        def rod_seg(r):
+            return P.rod_sides(r, resolution)
+    r_rod_max = max((r for _, _, r, _ in rods), default=1.0)
+    est = P.estimate_triangles(len(centres), seg, len(rods) * 2 + len(free_struts), rod_seg(r_rod_max))
     if est > max_triangles:
         raise LimitError(f"the model would have about {est:,} triangles ({len(centres):,} balls, {len(rods):,} "
                          f"rods), over the cap of {max_triangles:,}; print fewer cells or raise the cap with "
                          f"--max-triangles {est}")
-    return dict(centres=centres, balls=balls, groups=atom_group, idx=idx, rods=rods, seg=seg, rod_seg=rod_seg,
+    return dict(centres=centres, balls=balls, groups=atom_group, idx=idx, rods=rods, seg=seg,
+                rod_seg=rod_seg(r_rod_max), sphere_seg=sphere_seg, rod_seg_fn=rod_seg, free_struts=free_struts,
                 colours=group_colours, adjustments=adjustments, estimate=est, symbols=crystal.symbols[idx],
-                roles=crystal.roles[idx], cell_mm=crystal.cell * scale)
+                roles=crystal.roles[idx], cell_mm=crystal.cell * scale, outline_mm=outline_corners * scale,
+                prism=prism is not None, resolution=resolution, legacy=legacy)
 
 
 # ------------------------------------------------------------------ solid models
-def build_model(crystal, *, style="ball-and-stick", scale=None, clip_to_cell=False, base=False, kit=False,
+def _rod_between(T, group, r, sides, ci, cj, Ri, Rj, trim=True):
+    """A rod from ball i to ball j that starts just inside each ball (its end
+    discs hidden), not at the centres: fewer hidden intersections to union."""
+    from .stitch import rod_start
+
+    d = cj - ci
+    L = float(np.linalg.norm(d))
+    u = d / L
+    if not trim:
+        return P.place_rod(T.rod(group, r, sides), ci, cj)
+    r_out = r / math.cos(math.pi / sides)
+    ti = rod_start(Ri, r_out) if Ri > 0 else 0.0
+    tj = rod_start(Rj, r_out) if Rj > 0 else 0.0
+    if ti + tj >= L - 1e-6:
+        return P.place_rod(T.rod(group, r, sides), ci, cj)
+    return P.place_rod(T.rod(group, r, sides), ci + u * ti, cj - u * tj)
+
+
+def _inner_radius(r, seg):
+    return r * (1.0 - P.sphere_shape(seg)[1])
+
+
+def build_model(crystal, *, style="ball-and-stick", scale=None, clip_to_cell=False, base=None, kit=False,
                 min_feature=DEFAULT_MIN_FEATURE, bed=DEFAULT_BED, clearance=DEFAULT_CLEARANCE,
-                max_triangles=DEFAULT_MAX_TRIANGLES, segments=None, check_bed=True):
-    """The printable model (no file written): a :class:`Model` with its bodies in mm."""
+                max_triangles=DEFAULT_MAX_TRIANGLES, segments=None, check_bed=True,
+                resolution=P.DEFAULT_RESOLUTION_MM, edges=None, cell=None, overhang_angle=DEFAULT_OVERHANG_ANGLE,
+                label=None, tessellation="resolution"):
+    """The printable model (no file written): a :class:`Model` with its bodies in mm.
+
+    ``tessellation="legacy"`` rebuilds the model the old way (sphere segments
+    from a 2-D chord rule, rods from centre to centre, one batch union, laid
+    on the largest face); the benchmark uses it as its baseline."""
     scale, min_feature, bed, _, clearance = _check_options(style, scale, min_feature, bed, 1.0, clearance,
                                                            clip_to_cell, kit)
+    resolution = _positive("resolution", resolution, "length in mm", "--resolution 0.05")
+    if resolution < 0.005 or resolution > 2.0:
+        raise UserError(f"resolution {resolution:g} mm must lie between 0.005 and 2 mm (0.05 mm is the default)")
+    overhang_angle = float(overhang_angle)
+    if not math.isfinite(overhang_angle) or not 0 < overhang_angle < 90:
+        raise UserError(f"overhang angle {overhang_angle:g} must lie between 0 and 90 degrees (45 is usual)")
+    if cell not in (None, "prism", "primitive"):
+        raise UserError(f"cell '{cell}' is not known; use prism (hcp: the hexagonal prism) or primitive")
+    if edges and (style != "ball-and-stick" or kit):
+        raise UserError("--edges draws the cell edges as struts on ball-and-stick models; "
+                        "use it with --style ball-and-stick and without --kit")
+    legacy = tessellation == "legacy"
+    if edges is None:
+        edges = style == "ball-and-stick" and not kit and not legacy
     max_triangles = int(max_triangles)
-    plan = _plan(crystal, style, scale, clip_to_cell, min_feature, kit, max_triangles, segments)
+    plan = _plan(crystal, style, scale, clip_to_cell, min_feature, kit, max_triangles, segments, edges=edges,
+                 cell_choice=cell, resolution=resolution, legacy=legacy)
     if kit:
+        if base:
+            raise UserError("kit parts lie flat on the bed each on its own; drop --base with --kit")
         return _build_kit(plan, scale, min_feature, bed, clearance, check_bed)
+    from . import bed as B
+
     centres = plan["centres"]
     balls = plan["balls"]
-    cell_mm = plan["cell_mm"]
-    # orientation: largest face down (the cell's faces for a clipped model)
+    sseg, rseg = plan["sphere_seg"], plan["rod_seg_fn"]
+    outline = plan["outline_mm"]
+    hull_pts = outline if clip_to_cell else centres
+    # a first, permissive size check before any mesh (the model may still turn)
+    R0 = _lay_flat_rotation(hull_pts)
+    c0 = centres @ R0.T
     if clip_to_cell:
-        import itertools
-
-        hull_pts = np.array(list(itertools.product((0.0, 1.0), repeat=3))) @ cell_mm
+        o0 = outline @ R0.T
+        lo, hi = o0.min(axis=0), o0.max(axis=0)
     else:
-        hull_pts = centres
-    R = _lay_flat_rotation(hull_pts)
-    c_rot = centres @ R.T
-    cell_rot = cell_mm @ R.T
-    # size checks before the mesh is made
-    if clip_to_cell:
-        import itertools
-
-        corners = np.array(list(itertools.product((0.0, 1.0), repeat=3))) @ cell_rot
-        lo, hi = corners.min(axis=0), corners.max(axis=0)
-    else:
-        lo = (c_rot - balls[:, None]).min(axis=0)
-        hi = (c_rot + balls[:, None]).max(axis=0)
-    sink = 0.0
-    base_t = 0.0
-    margin = 0.0
-    if base:
-        base_t = max(min_feature, 2.0)
-        margin = 2.0
-        sink = 0.5 if clip_to_cell else min(0.25 * float(balls.min()), 3.0)
-    size = (hi - lo) + np.array([2 * margin, 2 * margin, base_t - sink])
-    _check_size(size, bed, scale, check_bed)
-    # primitives and one batch union
+        lo = (c0 - balls[:, None]).min(axis=0)
+        hi = (c0 + balls[:, None]).max(axis=0)
+    _check_size(hi - lo, bed, scale, check_bed, any_way=True)
+    # the solid, in the crystal's frame
     T = P.Templates()
-    solids = [P.place_sphere(T.sphere(g, r, plan["seg"]), c) for c, r, g in zip(c_rot, balls, plan["groups"])]
-    for i, j, r, g in plan["rods"]:
-        solids.append(P.place_rod(T.rod(g, r, plan["rod_seg"]), c_rot[i], c_rot[j]))
-    solid = P.union(solids)
+    face_labels = {}
+    solid = None
+    assembly = "one batch union"
+    if style == "ball-and-stick" and not legacy and plan["rods"]:
+        from .stitch import stitch
+
+        got = stitch(centres, balls, plan["groups"], plan["rods"], T, sseg, rseg)
+        if got is not None:
+            solid, labs = got
+            face_labels[int(np.asarray(solid.to_mesh().run_original_id)[0])] = labs
+            assembly = "stitched nodes"
+    if solid is None:
+        solids = [P.place_sphere(T.sphere(g, r, sseg(r)), c) for c, r, g in zip(centres, balls, plan["groups"])]
+        for i, j, r, g in plan["rods"]:
+            n = rseg(r)
+            solids.append(_rod_between(T, g, r, n, centres[i], centres[j], _inner_radius(balls[i], sseg(balls[i])),
+                                       _inner_radius(balls[j], sseg(balls[j])), trim=not legacy))
+        solid = P.union(solids)
+    if plan["free_struts"]:
+        extra = [P.place_rod(T.rod("cell", r, rseg(r)), p0, p1) for p0, p1, r in plan["free_struts"]]
+        extra += [P.place_sphere(T.sphere("cell", r, sseg(r)), p) for p0, p1, r in plan["free_struts"]
+                  for p in (p0, p1)]
+        solid = P.union([solid] + extra)
     if clip_to_cell:
         import manifold3d as m3
 
-        box = P.box_from_cell(cell_rot)
+        box = m3.Manifold.hull_points(np.asarray(outline, float).tolist())
         solid = m3.Manifold.batch_boolean([solid, box], m3.OpType.Intersect)
+    # orientation: the candidate face that needs least support
+    if legacy:
+        R = R0
+        rows = []
+    else:
+        tm0, _ = P.to_trimesh(solid)
+        R, rows = B.choose_orientation(tm0, hull_pts, overhang_angle)
+    M = np.zeros((3, 4))
+    M[:, :3] = R
+    solid = solid.transform(M)
+    c_rot = centres @ R.T
     bb = solid.bounding_box()
     lo = np.array(bb[:3])
     hi = np.array(bb[3:])
+    contact0 = rows[0]["contact"] if rows else 0.0
+    adjustments = list(plan["adjustments"])
+    stands = contact0 >= B.MIN_CONTACT_MM2
+    base_reason = None
+    if base is None:
+        base = not stands and not legacy
+        if base:
+            base_reason = (f"added a base plate: the model alone touches the bed over {contact0:.1f} mm^2, under the "
+                           f"{B.MIN_CONTACT_MM2:g} mm^2 it needs to stand (--no-base to print it without)")
+    elif not base and not stands:
+        adjustments.append(f"warning: without a base the model touches the bed over only {contact0:.1f} mm^2 "
+                           f"(under {B.MIN_CONTACT_MM2:g} mm^2); the slicer will need supports or a brim")
+    base_t = 0.0
+    margin = 0.0
+    sink = 0.0
     if base:
         import manifold3d as m3
 
+        base_t = max(min_feature, 2.0)
+        margin = 2.0
+        sink = 0.5 if clip_to_cell else min(0.25 * float(balls.min()), 3.0)
         w = hi - lo + 2 * margin
         plate = m3.Manifold.cube((float(w[0]), float(w[1]), float(base_t)), False)
         plate = plate.translate((float(lo[0] - margin), float(lo[1] - margin), float(lo[2] + sink - base_t)))
         T.group_of_id[plate.original_id()] = "base"
         solid = P.union([solid, plate])
+        adjustments.append(base_reason or f"base plate {base_t:g} mm thick under the model")
+        if base_reason:
+            adjustments.append(f"base plate {base_t:g} mm thick, the model sunk {sink:.1f} mm into it")
         bb = solid.bounding_box()
         lo = np.array(bb[:3])
         hi = np.array(bb[3:])
     # centre on the bed, bottom at z = 0
     shift = -np.array([(lo[0] + hi[0]) / 2, (lo[1] + hi[1]) / 2, lo[2]])
     solid = solid.translate(tuple(float(x) for x in shift))
-    mesh, groups = P.to_trimesh(solid, T)
+    mesh, groups = P.to_trimesh(solid, T, face_labels)
     _check_size(np.ptp(mesh.vertices, axis=0) if len(mesh.vertices) else np.zeros(3), bed, scale, check_bed)
     name = _model_name(crystal, style, clip_to_cell)
-    model = Model(bodies=[Body(name, mesh, groups)], colours=plan["colours"], adjustments=plan["adjustments"])
-    model.info = dict(style=style, scale_mm_per_A=scale, clip_to_cell=bool(clip_to_cell), base=bool(base), kit=False,
-                      min_feature_mm=min_feature, bed_mm=list(bed), triangle_estimate=plan["estimate"],
-                      sphere_segments=plan["seg"], cell_volume_mm3=float(abs(np.linalg.det(cell_mm))),
-                      atoms_shown=int(len(centres)), rods=len(plan["rods"]))
-    if base:
-        model.adjustments.append(f"base plate {base_t:g} mm thick under the model")
+    model = Model(bodies=[Body(name, mesh, groups)], colours=plan["colours"], adjustments=adjustments)
+    # chord error of the tessellation (mm): spheres and rods
+    ch_s = max(P.sphere_shape(sseg(r))[1] * r for r in np.unique(np.round(balls, 9)))
+    ch_r = max((P.rod_chord_error(r, rseg(r)) for _, _, r, _ in plan["rods"]), default=0.0)
+    # bed facts, measured on the mesh as written
+    V, F, N, A = B.mesh_arrays(mesh)
+    contact, overhang = B.contact_overhang(V, F, N, A, None, overhang_angle)
+    span, span_what = B.spans(c_rot, balls, [] if clip_to_cell else plan["rods"], overhang_angle)
+    model.info = dict(style=style, scale_mm_per_A=scale, clip_to_cell=bool(clip_to_cell), base=bool(base),
+                      kit=False, min_feature_mm=min_feature, bed_mm=list(bed), triangle_estimate=plan["estimate"],
+                      sphere_segments=plan["seg"], rod_sides=plan["rod_seg"],
+                      cell_volume_mm3=float(abs(np.linalg.det(plan["cell_mm"]))),
+                      atoms_shown=int(len(centres)), rods=len(plan["rods"]), edges=bool(edges),
+                      cell="hexagonal prism" if plan["prism"] else "stored cell",
+                      resolution_mm=resolution, chord_error_mm=float(max(ch_s, ch_r)),
+                      chord_error_spheres_mm=float(ch_s), chord_error_rods_mm=float(ch_r), assembly=assembly,
+                      contact_mm2=contact, overhang_mm2=overhang, overhang_angle_deg=overhang_angle,
+                      unsupported_span_mm=float(span), unsupported_span_is=span_what,
+                      orientation=_orientation_text(rows, crystal, overhang_angle))
+    if plan["prism"]:
+        model.info["cell_volume_mm3"] = float(3 * abs(np.linalg.det(plan["cell_mm"])))
     return model
+
+
+def _orientation_text(rows, crystal, angle):
+    from .bed import miller_name
+
+    if not rows:
+        return "largest face of the hull down"
+    pick = rows[0]
+    lat = crystal.lattice.cell if crystal.lattice is not None else crystal.cell
+    face = miller_name(pick["normal"], lat)
+    what = f"{face} face down" if face else "largest-contact face down"
+    if len(rows) == 1:
+        return f"{what} (the only candidate face)"
+    others = sorted(r["overhang"] for r in rows[1:])
+    return (f"{what}: least overhang of {len(rows)} candidate faces ({pick['overhang']:.0f} mm^2 beyond "
+            f"{angle:g} deg; the next best {others[0]:.0f} mm^2)")
 
 
 def _model_name(crystal, style, clip):
@@ -390,7 +619,7 @@ def _model_name(crystal, style, clip):
     return f"{name} {lat} {style}{' cell' if clip else ''}".replace("  ", " ").strip()
 
 
-def _check_size(size, bed, scale, check_bed):
+def _check_size(size, bed, scale, check_bed, any_way=False):
     size = np.asarray(size, float)
     biggest = float(size.max())
     if biggest > MAX_MODEL_MM:
@@ -401,9 +630,14 @@ def _check_size(size, bed, scale, check_bed):
         return
     bx, by, bz = bed
     fits = (size[0] <= bx and size[1] <= by and size[2] <= bz) or (size[1] <= bx and size[0] <= by and size[2] <= bz)
+    if any_way:
+        s, b = np.sort(size), np.sort(np.asarray(bed, float))
+        fits = bool((s <= b).all())
     if not fits:
         ratio = min(max(bx, by) / max(size[0], size[1], 1e-9), min(bx, by) / max(min(size[0], size[1]), 1e-9),
                     bz / max(size[2], 1e-9))
+        if any_way:
+            ratio = float((np.sort(np.asarray(bed, float)) / np.maximum(np.sort(size), 1e-9)).min())
         sug = scale * ratio * 0.95
         raise UserError(f"the model would be {size[0]:.0f} x {size[1]:.0f} x {size[2]:.0f} mm, larger than the "
                         f"bed {bx:g} x {by:g} x {bz:g} mm; use --scale {sug:.2g} or smaller, fewer cells, or "
@@ -618,10 +852,11 @@ def report_path(path):
     return p.with_name(p.stem + ".report.txt")
 
 
-def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_cell=False, base=False, kit=False,
+def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_cell=False, base=None, kit=False,
                 min_feature=DEFAULT_MIN_FEATURE, bed=DEFAULT_BED, material_density=PLA_DENSITY,
                 clearance=DEFAULT_CLEARANCE, max_triangles=DEFAULT_MAX_TRIANGLES, segments=None, force=False,
-                write_report=True):
+                write_report=True, resolution=P.DEFAULT_RESOLUTION_MM, edges=None, cell=None,
+                overhang_angle=DEFAULT_OVERHANG_ANGLE, label=None):
     """Write a printable model of ``crystal`` to ``path`` (.stl or .3mf) and
     its print report beside it (MODEL.report.txt); return the report.
 
@@ -630,7 +865,8 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
     style : "ball-and-stick" or "space-filling".
     scale : mm per angstrom (default 10: 1 A -> 1 cm).
     clip_to_cell : cut the space-filling spheres to the cell faces.
-    base : add a base plate under the model.
+    base : True adds a base plate, False never; None (default) adds one
+        where the model alone would touch the bed over too small an area.
     kit : separate balls with bored holes plus loose rods (ball-and-stick).
     min_feature : thinnest rod or neck in mm (default 2); thinner rods are
         thickened, balls below it are refused.
@@ -638,7 +874,13 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
     material_density : g/cm^3 for the mass estimate (default PLA 1.24).
     clearance : radial fit clearance of kit holes in mm (default 0.2).
     max_triangles : refuse models estimated over this many triangles.
-    segments : sphere segments (default from a 0.02 mm chord tolerance).
+    segments : sphere segments (default: from ``resolution``).
+    resolution : the printer's resolution in mm (default 0.05): spheres and
+        rods are tessellated so no facet strays further from the true surface.
+    edges : cell-edge struts (default: on for ball-and-stick, not kits).
+    cell : "prism" (default for one hcp / simple hexagonal cell: the
+        hexagonal prism) or "primitive" (the stored cell).
+    overhang_angle : degrees from vertical printed without support (45).
     force : overwrite existing files.
     """
     from ..fileio import atomic_write, check_target
@@ -652,7 +894,8 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
     material_density = _positive("material density", material_density, "density in g/cm^3", "1.24 for PLA")
     model = build_model(crystal, style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit,
                         min_feature=min_feature, bed=bed, clearance=clearance, max_triangles=max_triangles,
-                        segments=segments)
+                        segments=segments, resolution=resolution, edges=edges, cell=cell,
+                        overhang_angle=overhang_angle, label=label)
     facts = inspect(model, material_density)
     if not (facts["watertight"] and facts["is_volume"]):
         raise RuntimeError("the mesh came out not watertight; rerun with --debug and report it")
@@ -664,7 +907,7 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
     rep = PrintReport(file=str(p), format=p.suffix.lower().lstrip("."), **model.info, **facts,
                       fits_bed=True, adjustments=model.adjustments, parts=model.parts,
                       caution=f"{CAUTION} {PRINT_CAUTION}")
-    if clip_to_cell and not base:
+    if clip_to_cell and not model.info.get("base"):
         rep["volume_fraction_of_cell"] = facts["volume_cm3"] * 1000.0 / model.info["cell_volume_mm3"]
     rep["report_file"] = str(rp) if write_report else None
     from ..exchange import write_model

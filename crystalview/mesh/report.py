@@ -32,6 +32,21 @@ def report_text(rep):
         ("triangles", f"{rep.get('triangles', 0):,}"),
         ("minimum feature", f"{rep.get('min_feature_mm', 0):g} mm"),
     ]
+    if rep.get("chord_error_mm") is not None:
+        rows.append(("chord error", f"{rep['chord_error_mm']:.3f} mm (spheres {rep.get('chord_error_spheres_mm', 0):.3f}, "
+                                    f"rods {rep.get('chord_error_rods_mm', 0):.3f}; resolution "
+                                    f"{rep.get('resolution_mm', 0):g} mm; {rep.get('sphere_segments')} sphere "
+                                    f"segments, {rep.get('rod_sides')} rod sides)"))
+    if rep.get("contact_mm2") is not None:
+        rows.append(("contact", f"{rep['contact_mm2']:.1f} mm^2 on the bed"))
+        rows.append(("overhang", f"{rep['overhang_mm2']:.0f} mm^2 beyond {rep.get('overhang_angle_deg', 45):g} deg "
+                                 f"from vertical (needs support)"))
+        rows.append(("unsupported span", f"{rep.get('unsupported_span_mm', 0):.1f} mm "
+                                         f"({rep.get('unsupported_span_is', '')})"))
+        rows.append(("orientation", rep.get("orientation", "")))
+    if rep.get("cell") == "hexagonal prism":
+        rows.append(("cell", "hexagonal prism (12 corners, 2 face centres, 3 inside for hcp; --cell primitive "
+                             "for the stored cell)"))
     if rep.get("volume_fraction_of_cell") is not None:
         note = ("the packing factor" if not rep.get("adjustments") else
                 "the packing factor, plus the added neck rods")
