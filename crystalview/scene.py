@@ -109,7 +109,10 @@ SCHEMA = {
                            "scale": POS_NUM, "clip_to_cell": {"type": "boolean"}, "base": {"type": "boolean"},
                            "kit": {"type": "boolean"}, "min_feature": POS_NUM,
                            "bed": {"type": "array", "items": POS_NUM, "minItems": 3, "maxItems": 3},
-                           "material_density": POS_NUM, "clearance": {"type": "number", "minimum": 0}}}},
+                           "material_density": POS_NUM, "clearance": {"type": "number", "minimum": 0},
+                           "resolution": POS_NUM, "edges": {"type": "boolean"},
+                           "cell": {"enum": ["prism", "primitive"]},
+                           "overhang_angle": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 90}}}},
         "exports": {"type": "array", "items": {
             "type": "object", "additionalProperties": False, "required": ["file"],
             "properties": {"file": FILE, "scale": POS_NUM}}},
