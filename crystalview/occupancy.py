@@ -122,64 +122,72 @@ def site_groups(crystal, tol=SPLIT_SITE_DISTANCE, labels=None):
     if occ is not None and n:
         part = np.nonzero(occ < 1.0 - 1e-6)[0]
         if len(part):
-            parent = np.arange(n)
+            # connected components of the close pairs of partly occupied entries (vectorised)
+            from scipy.sparse import coo_matrix
+            from scipy.sparse.csgraph import connected_components
 
-            def find(i):
-                while parent[i] != i:
-                    parent[i] = parent[parent[i]]
-                    i = parent[i]
-                return i
-
-            for i, j in _close_pairs(crystal, part, tol):
-                ri, rj = find(i), find(j)
-                if ri != rj:
-                    parent[max(ri, rj)] = min(ri, rj)
-            site_of = np.array([find(i) for i in range(n)])
+            pairs = _close_pairs(crystal, part, tol)
+            if len(pairs):
+                g = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(n, n))
+                _, comp = connected_components(g, directed=False)
+                # each component named by its smallest entry index
+                smallest = np.full(comp.max() + 1, n, dtype=np.int64)
+                np.minimum.at(smallest, comp, np.arange(n))
+                site_of = smallest[comp]
     roots, site_of = np.unique(site_of, return_inverse=True)
+    site_of = site_of.reshape(-1)
     first = np.zeros(len(roots), int)
     first[site_of[::-1]] = np.arange(n)[::-1]
-    syms = crystal.symbols
     if occ is None:
         # every entry a full site: the class is the species (and role)
         key = crystal.numbers.astype(int) * 8 + crystal.roles.astype(int)
         uk, site_type = np.unique(key[first], return_inverse=True)
         sigs = [symbol_of(int(k) // 8) for k in uk]
-        return SiteGroups(first, site_of, site_type, sigs)
-    members, names = {}, {}
-    for e in range(n):
-        members.setdefault(int(site_of[e]), []).append((str(syms[e]), float(occ[e])))
-        names.setdefault(int(site_of[e]), []).append(str(labels[e]) if labels is not None else str(syms[e]))
-    sig_index, site_type, sigs = {}, np.zeros(len(roots), int), []
-    for s in range(len(roots)):
-        sig = signature(members[s])
-        total = sum(o for _, o in members[s])
+        return SiteGroups(first, site_of, site_type.reshape(-1), sigs)
+    # each site's occupation as a sorted tuple of (species, occupancy) codes; the distinct tuples are few
+    code = crystal.numbers.astype(np.int64) * 1_000_000 + np.round(np.asarray(occ) * 1e5).astype(np.int64)
+    order = np.lexsort((code, site_of))
+    bounds = np.flatnonzero(np.diff(site_of[order])) + 1
+    groups = np.split(code[order], bounds)
+    keys = [tuple(g.tolist()) for g in groups]
+    uniq = {}
+    site_type = np.empty(len(roots), int)
+    for sidx, k in enumerate(keys):
+        t = uniq.get(k)
+        if t is None:
+            t = uniq[k] = len(uniq)
+        site_type[sidx] = t
+    sigs = []
+    for k, t in sorted(uniq.items(), key=lambda kv: kv[1]):
+        members = [(symbol_of(c // 1_000_000), (c % 1_000_000) / 1e5) for c in k]
+        total = sum(o for _, o in members)
         if total > 1.0 + OCCUPANCY_SLACK:
-            who = ", ".join(f"'{nm}' {o:g}" for nm, (_, o) in zip(names[s], members[s]))
+            sidx = int(np.nonzero(site_type == t)[0][0])
+            ents = order[bounds[sidx - 1] if sidx else 0: bounds[sidx] if sidx < len(bounds) else n]
+            who = ", ".join(f"'{labels[e] if labels is not None else crystal.symbols[e]}' {float(occ[e]):g}"
+                            for e in ents)
             raise UserError(f"the site shared by {who} has occupancies summing to {total:.3f}, over 1; "
                             f"correct _atom_site_occupancy")
-        if sig not in sig_index:
-            sig_index[sig] = len(sigs)
-            sigs.append(sig)
-        site_type[s] = sig_index[sig]
+        sigs.append(signature(members))
     return SiteGroups(first, site_of, site_type, sigs)
 
 
 def _close_pairs(crystal, idx, tol):
-    """Pairs (i, j) of entries among ``idx`` closer than ``tol`` (periodic)."""
+    """(P, 2) array of entry pairs (i < j) among ``idx`` closer than ``tol`` (periodic)."""
     from scipy.spatial import cKDTree
 
     from .analysis.neighbours import with_images
 
     pos = crystal.positions[idx]
     pts, which = with_images(pos, crystal.cell, crystal.pbc, tol)
-    tree = cKDTree(pts)
-    out = set()
-    for a, lst in enumerate(tree.query_ball_point(pos, tol)):
-        for b in lst:
-            j = int(which[b])
-            if j != a:
-                out.add((int(idx[min(a, j)]), int(idx[max(a, j)])))
-    return sorted(out)
+    pairs = cKDTree(pts).query_pairs(tol, output_type="ndarray")
+    if len(pairs) == 0:
+        return np.zeros((0, 2), np.int64)
+    a, b = which[pairs[:, 0]], which[pairs[:, 1]]
+    keep = a != b
+    a, b = idx[a[keep]], idx[b[keep]]
+    out = np.stack([np.minimum(a, b), np.maximum(a, b)], axis=1)
+    return np.unique(out, axis=0) if len(out) else out
 
 
 def composition(crystal):
@@ -241,16 +249,16 @@ def realise(crystal, seed=0):
         raise UserError(f"seed {seed} must be a whole number of 0 or more, e.g. seed=42")
     g = site_groups(crystal)
     occ = np.asarray(crystal.occupancy, float)
-    syms = crystal.symbols
     rng = np.random.default_rng(int(seed))
-    keep = []
+    from .elements import atomic_number
+
+    chosen_z = np.zeros(g.n_sites, np.int64)          # the species drawn on each site (0: vacant)
     classes = []
     for t, sig in enumerate(g.signatures):
         sites = np.nonzero(g.site_type == t)[0]
-        spec = parse_signature(sig) if sig[0].isupper() else []
-        occ_of = {s: o for s, o in spec}
+        spec = parse_signature(sig)
         n = len(sites)
-        want = {s: o * n for s, o in occ_of.items()}
+        want = {s: o * n for s, o in spec}
         vac = max(0.0, n - sum(want.values()))
         labels = list(want) + ["vacant"]
         exact = np.array(list(want.values()) + [vac])
@@ -261,14 +269,17 @@ def realise(crystal, seed=0):
             cnt[order[:rest]] += 1
         draw = np.repeat(np.arange(len(labels)), cnt)
         rng.shuffle(draw)
+        zs = np.array([atomic_number(lab) for lab in labels[:-1]] + [0], np.int64)
+        chosen_z[sites] = zs[draw]
         classes.append({"site": sig, "sites": int(n),
                         "drawn": {lab: int(c) for lab, c in zip(labels, cnt) if c or lab != "vacant"}})
-        # entries of each site, by species
-        for s_idx, pick in zip(sites, draw):
-            if labels[pick] == "vacant":
-                continue
-            ent = np.nonzero((g.site_of == s_idx) & (syms == labels[pick]))[0]
-            keep.append(int(ent[np.argmax(occ[ent])]))
+    # keep, on each site, the entry of the drawn species (the most occupied one where a species has several)
+    cand = np.nonzero(crystal.numbers.astype(np.int64) == chosen_z[g.site_of])[0]
+    order = np.lexsort((-occ[cand], g.site_of[cand]))
+    cand = cand[order]
+    firsts = np.ones(len(cand), bool)
+    firsts[1:] = g.site_of[cand][1:] != g.site_of[cand][:-1]
+    keep = cand[firsts]
     keep = np.sort(np.array(keep, int))
     out = crystal.select(keep)
     shared = sum(c["sites"] for c in classes if parse_signature(c["site"]) != [(c["site"], 1.0)])

@@ -10,6 +10,7 @@ MODULES = [
     "crystalview.alloy",
     "crystalview.defects.point",
     "crystalview.cli",
+    "crystalview.progress",
     "crystalview.defects.boundary",
     "crystalview.occupancy",
     "crystalview.elements",

@@ -423,11 +423,19 @@ def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=
                    margin=margin, equal=equal, channels=channels, cell=cell)
         workers = max(1, min(nsl, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity")
                              else (os.cpu_count() or 1), 2))
-        if workers > 1:
-            with ThreadPoolExecutor(workers) as ex:
-                parts = list(ex.map(lambda j: _slab(geo, cuts[j], cuts[j + 1]), range(nsl)))
-        else:
-            parts = [_slab(geo, cuts[j], cuts[j + 1]) for j in range(nsl)]
+        from ..progress import bar
+
+        with bar(f"hole analysis of {n:,} atoms: triangulating", nsl + 1) as pb:
+            def one(j):
+                out_j = _slab(geo, cuts[j], cuts[j + 1])
+                pb.update()
+                return out_j
+
+            if workers > 1:
+                with ThreadPoolExecutor(workers) as ex:
+                    parts = list(ex.map(one, range(nsl)))
+            else:
+                parts = [one(j) for j in range(nsl)]
         n_own = sum(p["n_own"] for p in parts)
         need_pad = max((p["need_pad"] for p in parts), default=-np.inf)
         need_margin = max((p["need_margin"] for p in parts), default=-np.inf)

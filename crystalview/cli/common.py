@@ -38,6 +38,7 @@ def add_spec_arguments(p, defects=True):
     g.add_argument("--orient", nargs=3, metavar=("X", "Y", "Z"),
                    help="crystal directions for x, y, z, e.g. --orient [1-10] [11-2] [111]")
     g.add_argument("--max-atoms", type=float, metavar="N", help="atom cap (default 50 million)")
+    g.add_argument("--quiet", action="store_true", help="no progress bars on long jobs")
     g.add_argument("--alloy", metavar="ALLOY",
                    help="an alloy on the SPEC's lattice as engineers write it, base first: Fe-18Cr-8Ni, Ni-20Cr, "
                         "Fe-0.4C-1Mn (weight percent unless --at); metals substitute, C N B O H go into holes")
@@ -75,6 +76,10 @@ def crystal_from_args(args, keep_average=False):
     ``keep_average``: a CIF's partly occupied sites stay an average structure
     unless defects are asked for (which need real atoms)."""
     from ..build import build
+    from ..progress import set_quiet
+
+    if getattr(args, "quiet", False) or getattr(args, "json", False) or getattr(args, "format", None) == "json":
+        set_quiet(True)
 
     spec = args.spec
     low = spec.lower()
