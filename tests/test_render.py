@@ -297,7 +297,7 @@ def test_defect_captions(defect_crystals):
 def test_svg_bonds_behind_their_nearer_ball_and_no_gradients(tmp_path):
     c = cv.build("Cu")
     sc = G.build_scene(c, "ball-and-stick", "[112]")
-    lay = F.make_layout(sc, (600, 450))
+    lay = F.make_layout(sc, (600, 450), dpi=100)          # as cv.render lays it out (text in points)
     items = F.display_list(sc, lay)
     where = {it["atom"]: k for k, it in enumerate(items) if it["kind"] == "ball"}
     bonds = [(k, it) for k, it in enumerate(items) if it.get("ends") is not None]
@@ -318,7 +318,7 @@ def test_svg_bonds_behind_their_nearer_ball_and_no_gradients(tmp_path):
         checked += 1
     assert checked > 10
     out = tmp_path / "cu.svg"
-    cv.render(c, out, view="[112]", size=(600, 450))
+    cv.render(c, out, view="[112]", size=(600, 450), dpi=100)
     text = out.read_text()
     root = ET.fromstring(text)
     ns = "{http://www.w3.org/2000/svg}"
@@ -341,8 +341,9 @@ def test_svg_bonds_behind_their_nearer_ball_and_no_gradients(tmp_path):
         convert = shutil.which("convert") if "ImageMagick" in ver.stdout else None
     if convert:
         png = tmp_path / "cu_conv.png"
-        cmd = [convert, "-o", str(png), str(out)] if convert.endswith("rsvg-convert") else \
-            [convert, str(out), "-depth", "8", f"PNG24:{png}"]
+        # the SVG page is in mm (600 px at 100 dpi): convert at 100 dpi to get the pixels back
+        cmd = [convert, "-d", "100", "-p", "100", "-o", str(png), str(out)] if convert.endswith("rsvg-convert") \
+            else [convert, "-density", "100", str(out), "-depth", "8", f"PNG24:{png}"]
         r = subprocess.run(cmd, capture_output=True, text=True, timeout=60)
         assert r.returncode == 0, r.stderr
         arr = pv.read(str(png))

@@ -24,6 +24,9 @@ def add_figure_arguments(p):
                    help="colour close-packed layers A, B, C (default plane (111) or (0001))")
     g.add_argument("--no-defects", action="store_true", help="do not mark vacancies")
     g.add_argument("--slip-axis", metavar="UVW", help="loading axis: draw the most favoured slip plane and direction")
+    g.add_argument("--cell", default=None, metavar="prism|primitive",
+                   help="hcp and simple hexagonal: draw the hexagonal prism (default for one cell) or the "
+                        "rhombic primitive cell the crystal stores")
     g.add_argument("--no-cell", action="store_true", help="leave out the cell outline")
     g.add_argument("--no-legend", action="store_true")
     g.add_argument("--no-scale-bar", action="store_true")
@@ -38,7 +41,7 @@ def figure_kwargs(args):
     return dict(view=args.view, up=args.up, style=args.style, sites=args.sites, polyhedra=args.polyhedra,
                 planes=args.plane, directions=args.direction, layers=args.layers, defects=not args.no_defects,
                 slip_axis=args.slip_axis, cell=False if args.no_cell else None, legend=not args.no_legend,
-                scale_bar=not args.no_scale_bar, caption=cap)
+                scale_bar=not args.no_scale_bar, caption=cap, cell_shape=args.cell)
 
 
 def register(sub):
@@ -48,8 +51,15 @@ def register(sub):
     add_spec_arguments(p)
     p.add_argument("-o", "--output", required=True, metavar="FIG", help="output file: .png, .svg or .pdf")
     add_figure_arguments(p)
-    p.add_argument("--size", nargs=2, default=["1600", "1200"], metavar=("W", "H"), help="pixels (default 1600 1200)")
-    p.add_argument("--dpi", default="300", help="dots per inch recorded in the PNG (default 300)")
+    p.add_argument("--width", default=None, metavar="LENGTH",
+                   help="figure width with its unit: 85mm (one column, the default), 180mm (full width), 3.5in")
+    p.add_argument("--height", default=None, metavar="LENGTH",
+                   help="figure height with its unit (default: what the content needs, cropped tight)")
+    p.add_argument("--dpi", default="300", help="dots per inch: the PNG's pixels per inch of --width (default 300)")
+    p.add_argument("--font-size", default=None, metavar="PT",
+                   help="text size in points at any dpi (default 8; the caption is 7/8 of it)")
+    p.add_argument("--size", nargs=2, default=None, metavar=("W", "H"),
+                   help="size in pixels instead of --width/--height")
     p.add_argument("--transparent", action="store_true", help="transparent background (PNG alpha, SVG/PDF no fill)")
     p.add_argument("--force", action="store_true", help="overwrite an existing file")
     p.add_argument("--json", action="store_true", help="print what was written as JSON only")
@@ -63,19 +73,33 @@ def run(args):
 
     # cheap checks first: nothing is built or imported if the request is bad
     check_target(args.output, force=args.force, suffixes={".png", ".svg", ".pdf"})
-    size = S.check_size(args.size)
+    from ..render import text as T
+
     dpi = S.check_dpi(args.dpi)
+    if args.size is not None and (args.width is not None or args.height is not None):
+        raise UserError("give the figure's size either as --width/--height (mm, cm, in) or as --size W H "
+                        "(pixels), not both")
+    size = S.check_size(args.size) if args.size is not None else None
+    for what, val in (("--width", args.width), ("--height", args.height)):
+        if val is not None:
+            S.check_size((T.parse_length(val, what) / 25.4 * dpi,) * 2)
+    if args.font_size is not None:
+        T.check_font_pt(args.font_size)
     S.get_style(args.style)
+    from ..render.cells import check_cell_shape
+
+    check_cell_shape(args.cell)
     c = crystal_from_args(args)
     from ..render.figure import render
 
     info = render(c, args.output, size=size, dpi=dpi, transparent=args.transparent, force=args.force,
-                  **figure_kwargs(args))
+                  width=args.width, height=args.height, font_size=args.font_size, **figure_kwargs(args))
     if args.json:
         print_json(info)
         return 0
     extra = f", scale bar {info['scale_bar_A']:g} A" if "scale_bar_A" in info else ""
-    print(f"wrote {info['path']}: {info['size'][0]} x {info['size'][1]} px at {info['dpi']:g} dpi, "
+    print(f"wrote {info['path']}: {info['width_mm']:g} x {info['height_mm']:g} mm, {info['size'][0]} x "
+          f"{info['size'][1]} px at {info['dpi']:g} dpi, "
           f"{info['style']}, view {info['view']} ({info['up']} up), {info['atoms_drawn']:,} spheres drawn for "
           f"{info['atoms']:,} atoms{extra}")
     if "atoms_per_cell_from_shares" in info:

@@ -136,8 +136,11 @@ class _Builder:
         return b + b"\x00" * ((-len(b)) % 4)
 
 
-def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing="auto", max_instances=MAX_INSTANCES):
-    """(json dict, binary buffer bytes) for the crystal."""
+def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing="auto", max_instances=MAX_INSTANCES,
+                  cell_shape=None):
+    """(json dict, binary buffer bytes) for the crystal.  One conventional
+    cell of hcp or simple hexagonal is written as the hexagonal prism (17 or
+    14 atoms and its 18 edges) unless ``cell_shape='primitive'``."""
     from .. import __version__
     from ..crystal import ROLES
     from ..mesh.printable import _pairs, _shown_atoms
@@ -153,8 +156,19 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
         raise LimitError(f"{len(crystal):,} atoms is over the glTF cap of {max_instances:,} instances; "
                          f"export fewer cells")
     m_per_A = REAL_M_PER_A if real_scale else DEFAULT_M_PER_A
+    from ..prism import has_prism
+
     radii_all = crystal.atom_radii()
-    pts, idx = _shown_atoms(crystal, False, radii_all)
+    prism = None
+    if has_prism(crystal) or cell_shape is not None:
+        # the prism helpers carry no renderer (numpy only); loaded only for hexagonal crystals
+        from ..render.cells import PrismAtoms, prism_applies
+
+        prism = PrismAtoms(crystal) if prism_applies(crystal, cell_shape) else None
+    if prism is not None:
+        pts, idx = prism.positions, prism.src
+    else:
+        pts, idx = _shown_atoms(crystal, False, radii_all)
     radii = radii_all[idx]
     bonds = np.zeros((0, 2), int)
     if style == "ball-and-stick":
@@ -251,16 +265,20 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
     # cell edges as lines
     import itertools
 
-    corners = np.array(list(itertools.product((0.0, 1.0), repeat=3))) @ crystal.cell
-    edges = [(i, j) for i in range(8) for j in range(i + 1, 8)
-             if bin(i ^ j).count("1") == 1]
+    if prism is not None:
+        corners = prism.prism.corners
+        edges = [tuple(int(x) for x in e) for e in prism.prism.edges]
+    else:
+        corners = np.array(list(itertools.product((0.0, 1.0), repeat=3))) @ crystal.cell
+        edges = [(i, j) for i in range(8) for j in range(i + 1, 8)
+                 if bin(i ^ j).count("1") == 1]
     cp = to_gltf(corners).astype(np.float32)
     acc_cp = B.accessor(cp, "VEC3", ARRAY_BUFFER, minmax=True)
     acc_ci = B.accessor(np.array(edges, dtype=np.uint16).reshape(-1), "SCALAR", ELEMENT_ARRAY_BUFFER)
     mat = material("cell edges", ROLE_COLOURS["cell"], metallic=0.0, rough=1.0)
     meshes.append({"name": "cell edges", "primitives": [{"attributes": {"POSITION": acc_cp}, "indices": acc_ci,
                                                          "material": mat, "mode": 1}]})
-    nodes.append({"name": "unit cell", "mesh": len(meshes) - 1})
+    nodes.append({"name": "hexagonal prism" if prism is not None else "unit cell", "mesh": len(meshes) - 1})
     root_children.append(len(nodes) - 1)
     name = crystal.metadata.get("name") or " ".join(crystal.elements)
     lat = crystal.lattice.prototype if crystal.lattice is not None else ""
@@ -273,7 +291,8 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
         "asset": {"version": "2.0", "generator": f"crystalview {__version__}", "extras": {
             "units": "metres (glTF), +Y up = crystal z", "scale": scale_note, "metres_per_angstrom": m_per_A,
             "style": style, "atoms": int(len(crystal)), "spheres": int(len(pts)), "bonds": int(len(bonds)),
-            "cell_angstrom": [[float(x) for x in row] for row in crystal.cell]}},
+            "cell_angstrom": [[float(x) for x in row] for row in crystal.cell],
+            "cell_drawn": "hexagonal prism" if prism is not None else "crystal cell"}},
         "scene": 0,
         "scenes": [{"name": f"{name}", "nodes": [root]}],
         "nodes": nodes,
@@ -301,29 +320,33 @@ def glb_bytes(doc, blob):
 def _summary(path, doc, size):
     ex = doc["asset"]["extras"]
     return {"file": str(path), "format": str(path).rsplit(".", 1)[-1], "bytes": size, "atoms": ex["atoms"],
-            "spheres": ex["spheres"],
+            "spheres": ex["spheres"], "cell_drawn": ex.get("cell_drawn"),
             "bonds": ex["bonds"], "scale": ex["scale"], "metres_per_angstrom": ex["metres_per_angstrom"],
             "instancing": "EXT_mesh_gpu_instancing" in doc.get("extensionsUsed", []),
             "materials": [m["name"] for m in doc["materials"]]}
 
 
-def write_glb(crystal, path, *, force=False, style="ball-and-stick", real_scale=False, instancing="auto"):
+def write_glb(crystal, path, *, force=False, style="ball-and-stick", real_scale=False, instancing="auto",
+              cell_shape=None):
     """Write a .glb file; returns a summary dict."""
     from ..fileio import atomic_write, check_target
 
     check_target(path, force=force)
-    doc, blob = gltf_document(crystal, style=style, real_scale=real_scale, instancing=instancing)
+    doc, blob = gltf_document(crystal, style=style, real_scale=real_scale, instancing=instancing,
+                              cell_shape=cell_shape)
     data = glb_bytes(doc, blob)
     atomic_write(path, data, force=force)
     return _summary(path, doc, len(data))
 
 
-def write_gltf(crystal, path, *, force=False, style="ball-and-stick", real_scale=False, instancing="auto"):
+def write_gltf(crystal, path, *, force=False, style="ball-and-stick", real_scale=False, instancing="auto",
+              cell_shape=None):
     """Write a .gltf file with its buffer embedded as a data URI; returns a summary dict."""
     from ..fileio import atomic_write, check_target
 
     check_target(path, force=force)
-    doc, blob = gltf_document(crystal, style=style, real_scale=real_scale, instancing=instancing)
+    doc, blob = gltf_document(crystal, style=style, real_scale=real_scale, instancing=instancing,
+                              cell_shape=cell_shape)
     doc["buffers"][0]["uri"] = "data:application/octet-stream;base64," + base64.b64encode(blob).decode("ascii")
     text = json.dumps(doc, indent=1)
     atomic_write(path, text, force=force)

@@ -41,6 +41,24 @@ class Layout:
     caption: list          # (text, x, y) baseline positions
     caption_font: float
     bar: tuple | None      # (x0, x1, y, length_A)
+    dpi: float | None = None        # None: a pixel-only layout (1 px = 1 pt in vector files)
+    font_pt: float | None = None    # the legend / scale-bar text size in points
+    width_mm: float | None = None   # the page width asked for (the PNG rounds it to whole pixels)
+
+    @property
+    def pt_per_px(self):
+        """Points per pixel on the vector page (1 without a dpi)."""
+        if self.width_mm:
+            return self.width_mm / 25.4 * 72.0 / self.W
+        return 72.0 / self.dpi if self.dpi else 1.0
+
+    @property
+    def page_mm(self):
+        """(width, height) of the vector page in mm (None without a dpi)."""
+        if not self.dpi:
+            return None
+        k = self.pt_per_px * 25.4 / 72.0
+        return self.W * k, self.H * k
 
     def to_px(self, view, pts):
         """World -> pixel (x right, y down) and depth (larger is nearer)."""
@@ -51,48 +69,100 @@ class Layout:
 
 
 def _text_width(text, font):
-    return 0.56 * font * len(text)
+    from .text import text_width
+
+    return text_width(text, font)
 
 
-def make_layout(scene, size, legend=True, scale_bar=True, caption=True):
+#: Largest height of the drawing in a figure sized by its width, as a multiple of the width.
+MAX_ASPECT = 1.4
+
+
+def make_layout(scene, size, legend=True, scale_bar=True, caption=True, dpi=None, font_pt=None, width_mm=None):
+    """Where everything goes.  ``size`` (W, H) in pixels; H None sizes the
+    figure by its content (tight: the drawing fills the width, the height
+    follows).  With ``dpi`` text sizes are points (``font_pt``, default 8 pt,
+    the caption 7/8 of it) and keep their size at any dpi; without, text
+    scales with the image (a pixel-only layout)."""
+    from . import text as T
+
     W, H = size
-    font = max(11.0, round(min(W, H) * 0.024))
-    m = round(min(W, H) * 0.035)
-    x0, y0, x1, y1 = m, m, W - m, H - m
-    leg = []
+    tight = H is None
+    if dpi:
+        k = float(dpi) / 72.0
+        font = float(font_pt or T.FONT_PT) * k
+        m = round(5.0 * k)
+    else:
+        font = max(11.0, round(min(W, H) * 0.024))
+        m = round(min(W, H) * 0.035)
+    x0, x1 = m, W - m
+    entries = list(scene.legend) if legend and scene.legend else []
+    bar_w = (0.22 * (W - 2 * m) + font * 1.5) if scale_bar else 0.0
+    legend_under_bar = False
     lfont = font
-    if legend and scene.legend:
-        entries = scene.legend
-        lh = lfont * 1.55
+    leg = []
+    beside = False
+    below_rows = []
+    if entries:
         lw = lfont * 1.6 + max(_text_width(e[0], lfont) for e in entries)
-        if lw > 0.32 * W:
+        if not tight and not dpi and lw > 0.32 * W:          # pixel-only layout: shrink to fit beside
             lfont = max(9.0, lfont * 0.32 * W / lw)
-            lh = lfont * 1.55
             lw = lfont * 1.6 + max(_text_width(e[0], lfont) for e in entries)
-        lx = W - m - lw
-        for k, (lab, col, shape) in enumerate(entries):
-            leg.append((lab, col, shape, lx + lfont * 0.6, m + lfont * 0.7 + k * lh))
-        x1 = lx - m * 0.6
-    cap = []
-    cfont = font * 0.85
+        beside = not tight and lw <= 0.32 * W
+        if beside:
+            lh = lfont * 1.55
+            lx = W - m - lw
+            for kk, (lab, col, shape) in enumerate(entries):
+                leg.append((lab, col, shape, lx + lfont * 0.6, m + lfont * 0.7 + kk * lh))
+            x1 = lx - m * 0.6
+        else:                    # compact: entries flow in rows under the drawing, right of the scale bar
+            widest = max(lfont * 1.6 + _text_width(e[0], lfont) for e in entries)
+            if widest > W - 2 * m - bar_w:          # too narrow beside the bar: rows of their own under it
+                legend_under_bar = True
+                if widest > W - 2 * m:
+                    lfont = max(lfont * (W - 2 * m) / widest, lfont * 0.6)
+            row, xw = [], 0.0
+            for e in entries:
+                ew = lfont * 1.6 + _text_width(e[0], lfont) + lfont * 1.2
+                if row and xw + ew > W - 2 * m - (0.0 if legend_under_bar else bar_w):
+                    below_rows.append(row)
+                    row, xw = [], 0.0
+                row.append((e, xw))
+                xw += ew
+            if row:
+                below_rows.append(row)
+    cfont = font * 0.875
+    cap_lines = []
     if caption:
         lines = scene.caption if caption is True else [str(caption)]
-        widest = max(_text_width(t, cfont) for t in lines)
-        if widest > W - 2 * m:
-            cfont = max(8.0, cfont * (W - 2 * m) / widest)
-        lh = cfont * 1.45
-        ybase = H - m - (len(lines) - 1) * lh
-        for k, t in enumerate(lines):
-            cap.append((t, m, ybase + k * lh))
-        y1 = ybase - cfont * 1.6
-    bar_h = font * 3.4 if scale_bar else 0
-    y1 -= bar_h
+        if dpi or tight:
+            for t in lines:
+                cap_lines.extend(T.wrap(t, cfont, W - 2 * m))
+        else:
+            cap_lines = list(lines)
+            widest = max(_text_width(t, cfont) for t in cap_lines)
+            if widest > W - 2 * m:
+                cfont = max(8.0, cfont * (W - 2 * m) / widest)
+    clh = cfont * 1.4
+    cap_h = (len(cap_lines) * clh + cfont * 0.3) if cap_lines else 0.0
+    llh = lfont * 1.5
+    leg_h = len(below_rows) * llh + (lfont * 0.3 if below_rows else 0.0)
+    bar_h = font * 2.6 if scale_bar else 0.0
+    if below_rows and not legend_under_bar:    # the legend beside the scale bar: one block, the taller's height
+        bar_h = max(bar_h, leg_h)
+        leg_h = 0.0
     pts, rad = scene.extent_points()
     q = scene.view.project(pts)
     lo = np.min(q[:, :2] - rad[:, None], axis=0)
     hi = np.max(q[:, :2] + rad[:, None], axis=0)
     span = np.maximum(hi - lo, 1e-6)
-    rw, rh = max(x1 - x0, 10), max(y1 - y0, 10)
+    y0 = m
+    rw = max(x1 - x0, 10)
+    if tight:
+        rh = min(rw * span[1] / span[0], MAX_ASPECT * W)
+        H = int(round(y0 + rh + bar_h + leg_h + cap_h + m))
+    y1 = H - m - cap_h - leg_h - bar_h
+    rh = max(y1 - y0, 10)
     scale = float(min(rw / span[0], rh / span[1]))
     mid = (lo + hi) / 2
     wmid = (q[:, 2].min() + q[:, 2].max()) / 2
@@ -101,43 +171,85 @@ def make_layout(scene, size, legend=True, scale_bar=True, caption=True):
     bar = None
     if scale_bar:
         length = S.round_length(0.22 * (x1 - x0) / scale)
-        bx0 = m
-        by = y1 + bar_h * 0.78
-        bar = (bx0, bx0 + length * scale, by, length)
-    return Layout(W, H, font, m, (x0, y0, x1, y1), scale, centre, leg, lfont, cap, cfont, bar)
+        bar = (m, m + length * scale, y1 + font * 2.6 * 0.75, length)
+    for r, row in enumerate(below_rows):
+        y = (y1 + bar_h if legend_under_bar else y1) + lfont * 0.3 + llh * (r + 0.5)
+        for (lab, col, shape), xo in row:
+            leg.append((lab, col, shape, m + (0.0 if legend_under_bar else bar_w) + xo + lfont * 0.6, y))
+    ytop = y1 + bar_h
+    cap = []
+    yc = ytop + leg_h
+    for kk, t in enumerate(cap_lines):
+        cap.append((t, m, yc + clh * (kk + 1) - cfont * 0.1))
+    return Layout(W, H, font, m, (x0, y0, x1, y1), scale, centre, leg, lfont, cap, cfont, bar,
+                  dpi=float(dpi) if dpi else None, font_pt=float(font_pt or T.FONT_PT) if dpi else None,
+                  width_mm=width_mm if dpi else None)
 
 
 # ================================================================ public API
-def render(crystal, path, view=None, style="ball-and-stick", size=(1600, 1200), dpi=300, transparent=False,
+def render(crystal, path, view=None, style="ball-and-stick", size=None, dpi=300, transparent=False,
            *, up=None, sites=False, polyhedra=None, planes=(), directions=(), layers=None, defects=True,
-           slip_axis=None, cell=None, legend=True, scale_bar=True, caption=True, force=False):
+           slip_axis=None, cell=None, legend=True, scale_bar=True, caption=True, force=False, cell_shape=None,
+           width=None, height=None, font_size=None):
     """Draw ``crystal`` into a PNG, SVG or PDF report figure.
+
+    Size: ``width`` (a length with its unit: '85mm', '180mm', '3.5in'; the
+    default is 85 mm, one journal column) at ``dpi``, with ``height`` (a
+    length) or, by default, the height the content needs; or ``size`` (W, H)
+    in pixels.  Text is ``font_size`` points (default 8; the caption 7/8 of
+    it) at any dpi; SVG and PDF pages have the real size.
 
     ``view`` / ``up``: crystal directions ('[001]', '[2-1-10]'); orthographic,
     fitted to the frame.  ``view=None``: [001], except along the line of a
-    dislocation crystal and obliquely across the slip system with
-    ``slip_axis`` (loading axis up).  ``style``: ball-and-stick, space-filling, lattice or
+    dislocation crystal, obliquely across the slip system with
+    ``slip_axis`` (loading axis up), and the other defaults of
+    :func:`crystalview.render.scene_graph.build_scene`.  ``style``: ball-and-stick, space-filling, lattice or
     cell-cut.  Overlays: ``sites`` (interstitial sites at their free radius),
     ``polyhedra`` ('coordination', 'sites', 'both'), ``planes`` ['(111)'],
     ``directions`` ['[110]'], ``layers`` (True or a plane: close-packed
     stacking colours), ``defects`` (vacancy outlines), ``slip_axis`` (the
     favoured slip plane and direction for that loading axis).  ``caption``:
     True (structure, parameters, view), False, or your own text.
+    ``cell_shape``: 'prism' or 'primitive' for hcp and simple hexagonal.
 
     Returns a dict describing what was written.
     """
+    from . import text as T
+
     p = Path(path)
     suffix = p.suffix.lower()
     check_target(p, force=force, suffixes=SUFFIXES)
-    size = S.check_size(size)
     dpi = S.check_dpi(dpi)
+    font_pt = T.check_font_pt(font_size if font_size is not None else T.FONT_PT)
+    if size is not None and (width is not None or height is not None):
+        raise UserError("give the figure's size either as --width/--height (mm, cm, in) or as --size W H "
+                        "(pixels), not both")
+    w_mm = None
+    if size is not None:
+        size = S.check_size(size)
+    else:
+        w_mm = T.parse_length(width if width is not None else "85mm", "--width")
+        h_mm = T.parse_length(height, "--height") if height is not None else None
+        size = S.check_size((w_mm / 25.4 * dpi, (h_mm if h_mm else w_mm) / 25.4 * dpi))
+        if h_mm is None:
+            size = (size[0], None)
     st = S.get_style(style)
     scene = build_scene(crystal, st, view, up, sites=sites, polyhedra=polyhedra, planes=planes,
-                        directions=directions, layers=layers, defects=defects, slip_axis=slip_axis, cell=cell)
-    lay = make_layout(scene, size, legend=legend, scale_bar=scale_bar, caption=caption)
+                        directions=directions, layers=layers, defects=defects, slip_axis=slip_axis, cell=cell,
+                        cell_shape=cell_shape)
+    lay = make_layout(scene, size, legend=legend, scale_bar=scale_bar, caption=caption, dpi=dpi, font_pt=font_pt,
+                      width_mm=w_mm)
+    if not (S.MIN_SIDE <= lay.H <= S.MAX_SIDE):
+        raise UserError(f"the figure would be {lay.W} x {lay.H} pixels; each side must be {S.MIN_SIDE} to "
+                        f"{S.MAX_SIDE}: give --height, or a smaller --dpi or --width")
+    size = (lay.W, lay.H)
     info = dict(path=str(p), format=suffix[1:], size=list(size), dpi=dpi, style=st.name, view=scene.view.label,
                 up=scene.view.up_label, atoms=len(crystal), atoms_drawn=scene.n_atoms,
-                pixels_per_angstrom=round(lay.scale, 4))
+                pixels_per_angstrom=round(lay.scale, 4),
+                width_mm=round(lay.page_mm[0], 2), height_mm=round(lay.page_mm[1], 2),
+                font_pt=font_pt)
+    if scene.info.get("cell"):
+        info["cell"] = scene.info["cell"]
     if lay.bar:
         info["scale_bar_A"] = lay.bar[3]
     if "shares" in scene.info:
@@ -433,6 +545,10 @@ def add_scene(pl, scene, lay=None, cull=False):
             a = pl.add_mesh(sph, color=mk["colour"], opacity=0.12, smooth_shading=True)
             put(mk["group"], a)
             ring = _ring(p, mk["radius"], v)
+            if mk.get("front") and lay is not None:     # over the atoms that would hide the empty site
+                pts_, rad_ = scene.extent_points()
+                front = float(np.max(v.project(pts_)[:, 2] + rad_)) + 0.2
+                ring.points = np.asarray(ring.points) + v.toward[None, :] * (front - np.asarray(ring.points) @ v.toward)[:, None]
             r = pl.add_mesh(ring, color=mk["colour"], line_width=max(2.0, (lay.font if lay else 20) * 0.15),
                             render_lines_as_tubes=False)
             r.GetProperty().SetLighting(False)
@@ -505,12 +621,9 @@ def _font_file():
     """A system sans-serif font whose square brackets look square (VTK's
     built-in face draws [ and ] like parentheses, which would misstate Miller
     indices)."""
-    import os
+    from .text import font_file
 
-    for f in _FONTS:
-        if os.path.isfile(f):
-            return f
-    return None
+    return font_file()
 
 
 def _poly2d(pl, pts_top, H, colour, filled=True, width=2.0):
@@ -725,7 +838,8 @@ def display_list(scene, lay):
         q = lay.to_px(v, mk["pos"])
         for k in range(len(q)):
             items.append(dict(kind="ring", x=q[k, 0], y=q[k, 1], r=mk["radius"] * lay.scale, colour=mk["colour"],
-                              depth=q[k, 2], opacity=1.0, width=max(2.0, lay.font * 0.15)))
+                              depth=np.inf if mk.get("front") else q[k, 2], opacity=1.0,
+                              width=max(2.0, lay.font * 0.15)))
     items.sort(key=lambda it: (it["depth"], it.get("order", 0)))
     return items
 
@@ -783,8 +897,15 @@ def _esc(t):
 
 def svg_bytes(items, lay, transparent=False):
     W, H = lay.W, lay.H
+    if lay.dpi:        # the page in real units; drawing units are the PNG's pixels
+        if lay.width_mm:
+            page = f'width="{lay.page_mm[0]:.3f}mm" height="{lay.page_mm[1]:.3f}mm"'
+        else:          # sized in pixels: inches, exact for a whole number of pixels
+            page = f'width="{W / lay.dpi:.6g}in" height="{H / lay.dpi:.6g}in"'
+    else:
+        page = f'width="{W}" height="{H}"'
     out = [f'<?xml version="1.0" encoding="UTF-8"?>\n<svg xmlns="http://www.w3.org/2000/svg" '
-           f'width="{W}" height="{H}" viewBox="0 0 {W} {H}" font-family="Helvetica, Arial, sans-serif">']
+           f'{page} viewBox="0 0 {W} {H}" font-family="DejaVu Sans, Helvetica, Arial, sans-serif">']
     body = []
     if not transparent:
         body.append(f'<rect x="0" y="0" width="{W}" height="{H}" fill="{S.BACKGROUND}"/>')
@@ -881,8 +1002,11 @@ def _arrow_2d(it):
 
 
 def pdf_bytes(items, lay, transparent=False):
-    """A one-page PDF (points = pixels) with vector paths and Helvetica text."""
+    """A one-page PDF of the figure's real size (pixels at the layout's dpi;
+    1 px = 1 pt without one) with vector paths and Helvetica text whose
+    sizes are written in points."""
     W, H = lay.W, lay.H
+    kpt = lay.pt_per_px                                # points per pixel
     ops = []
     shadings = []
     alphas = {}
@@ -913,6 +1037,7 @@ def pdf_bytes(items, lay, transparent=False):
         s = f"{pts[0][0]:.2f} {Y(pts[0][1]):.2f} m " + " ".join(f"{x:.2f} {Y(y):.2f} l" for x, y in pts[1:])
         return s + " h"
 
+    ops.append(f"q {kpt:.6f} 0 0 {kpt:.6f} 0 0 cm")
     if not transparent:
         ops.append(f"{rgb(S.BACKGROUND)} rg 0 0 {W} {H} re f")
     for it in items:
@@ -943,24 +1068,29 @@ def pdf_bytes(items, lay, transparent=False):
         enc = enc.replace("\\", "\\\\").replace("(", "\\(").replace(")", "\\)")
         if anchor == "middle":
             x = x - 0.5 * _text_width(t, size) * 0.95
-        return f"BT /F1 {size:.1f} Tf {rgb(S.TEXT_COLOUR)} rg {x:.2f} {Y(y):.2f} Td ({enc}) Tj ET"
+        # text is set outside the pixel transform, so its size is in points as written
+        return (f"BT /F1 {size * kpt:.2f} Tf {rgb(S.TEXT_COLOUR)} rg {x * kpt:.2f} {Y(y) * kpt:.2f} Td "
+                f"({enc}) Tj ET")
 
+    texts = []
     for lab, col, shape, x, y in lay.legend:
         for kind, pts, c in swatch_shapes(shape, x, y, s, col):
             if kind == "fill":
                 ops.append(f"q {rgb(c)} rg {poly(pts)} f Q")
             else:
                 ops.append(f"q {rgb(c)} RG {max(2.0, s * 0.12):.2f} w {poly(pts)} S Q")
-        ops.append(text(lab, x + lay.legend_font, y + lay.legend_font * 0.35, lay.legend_font))
+        texts.append(text(lab, x + lay.legend_font, y + lay.legend_font * 0.35, lay.legend_font))
     for t, x, y in lay.caption:
-        ops.append(text(t, x, y, lay.caption_font))
+        texts.append(text(t, x, y, lay.caption_font))
     if lay.bar:
         x0, x1, y, L = lay.bar
         lw = max(2.0, lay.font * 0.16)
         tick = lay.font * 0.35
         ops.append(f"q {rgb(S.TEXT_COLOUR)} RG {lw:.2f} w {x0:.2f} {Y(y - tick):.2f} m {x0:.2f} {Y(y + tick):.2f} l "
                    f"{x0:.2f} {Y(y):.2f} m {x1:.2f} {Y(y):.2f} l {x1:.2f} {Y(y - tick):.2f} m {x1:.2f} {Y(y + tick):.2f} l S Q")
-        ops.append(text(S.fmt_length(L), (x0 + x1) / 2, y - tick - lay.font * 0.25, lay.font, "middle"))
+        texts.append(text(S.fmt_length(L), (x0 + x1) / 2, y - tick - lay.font * 0.25, lay.font, "middle"))
+    ops.append("Q")
+    ops.extend(texts)
     content = "\n".join(ops).encode("latin-1", "replace")
     content = zlib.compress(content)
 
@@ -989,7 +1119,7 @@ def pdf_bytes(items, lay, transparent=False):
         sh_refs.append(f"/{name} {ref} 0 R")
     gs_txt = " ".join(f"/{n} << /Type /ExtGState /ca {a} /CA {a} >>" for a, n in alphas.items())
     res = (f"<< /Font << /F1 {font} 0 R >> /Shading << {' '.join(sh_refs)} >> /ExtGState << {gs_txt} >> >>")
-    objs[2] = (f"<< /Type /Page /Parent 2 0 R /MediaBox [0 0 {W} {H}] /Resources {res} "
+    objs[2] = (f"<< /Type /Page /Parent 2 0 R /MediaBox [0 0 {W * kpt:.3f} {H * kpt:.3f}] /Resources {res} "
                f"/Contents {cont} 0 R >>").encode("latin-1")
     out = bytearray(b"%PDF-1.4\n%\xe2\xe3\xcf\xd3\n")
     offs = []

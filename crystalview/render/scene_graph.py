@@ -107,11 +107,50 @@ def auto_view(crystal, slip=None):
         if line:
             up = orient[1] if len(orient) == 3 and orient[2] == line else None
             return str(line), (str(up) if up else None)
+    for d in _defect_records(crystal, "stacking"):      # edge-on: along a close-packed row, the normal up
+        if d.get("parent_lattice") == "fcc":
+            return "[1-10]", "[111]"
+        if d.get("parent_lattice") == "hcp":
+            return "[2-1-10]", "[0001]"
     for d in _defect_records(crystal, "tilt_boundary"):
         orient = d.get("orient") or []
         if len(orient) == 3:           # along the tilt axis, boundary normal up: the boundary lies flat
             return str(orient[2]), str(orient[1])
     return "[001]", None
+
+
+def plane_view(crystal, plane, max_index=3, tilt_deg=30.0):
+    """A low-index oblique view that shows a plane as an area and the cell as
+    a box: the plane's normal about ``tilt_deg`` from the line of sight, and
+    no cell axis seen end-on or across (each at least about 10 degrees out of
+    the picture).  Returns (view text, None: the default up)."""
+    from ..lattice import format_indices, parse_indices, plane_normal
+
+    ind = parse_indices(str(plane), kind="plane")
+    if ind.family:
+        raise UserError(f"plane '{plane}' is a family {{hkl}}; give one plane in round brackets, e.g. (111)")
+    ref = _ref_cell(crystal)
+    nrm = plane_normal(ref, ind)
+    nrm = nrm / np.linalg.norm(nrm)
+    rng = np.arange(-max_index, max_index + 1)
+    uvw = np.array(list(itertools.product(rng, rng, rng)), float)
+    uvw = uvw[np.any(uvw != 0, axis=1)]
+    uvw = uvw[np.gcd.reduce(np.abs(uvw).astype(int), axis=1) == 1]
+    t = uvw @ ref
+    t /= np.linalg.norm(t, axis=1)[:, None]
+    axes = ref / np.linalg.norm(ref, axis=1)[:, None]
+    ang = np.degrees(np.arccos(np.clip(t @ nrm, -1, 1)))            # the front of the plane faces us
+    cost = (ang - tilt_deg) ** 2 + 2.0 * np.abs(uvw).sum(axis=1)
+    cost[np.any(np.abs(t @ axes.T) < 0.17, axis=1)] = np.inf          # a cell face would be seen edge-on
+    cost[np.any(np.abs(t @ axes.T) > 0.9, axis=1)] = np.inf           # or almost end-on
+    if not np.isfinite(cost).any():
+        return "[001]", None
+    best = uvw[int(np.argmin(cost))].astype(int)
+    if crystal.lattice is not None and crystal.lattice.is_hexagonal:
+        from ..lattice import miller_to_mb_direction
+
+        return format_indices(miller_to_mb_direction(tuple(int(x) for x in best))), None
+    return format_indices(best), None
 
 
 def slip_view(crystal, slip, max_index=3, tilt_deg=25.0):
@@ -158,7 +197,8 @@ class Scene:
     atom_radius: np.ndarray = None
     atom_colour: np.ndarray = None                       # index into colours
     atom_src: np.ndarray = None                          # index of the crystal atom drawn
-    atom_frac_shown: np.ndarray = None                   # share of the atom inside the cell (cell-cut)
+    atom_frac_shown: np.ndarray = None                   # share of the atom inside the cell (cell-cut, prism)
+    atom_place: list = None                              # "corner", "face centre", "inside" (hexagonal prism)
     bonds: np.ndarray = None                             # (K, 2, 3)
     bond_atoms: np.ndarray = None                        # (K, 2) index into atom_pos of each stick's ends
     bond_radius: float = 0.0
@@ -358,18 +398,29 @@ def lattice_nn_distance(crystal):
 def median_nn_distance(crystal, sample=20000):
     """Median over the atoms (a sample of up to ``sample``) of each atom's
     nearest-neighbour distance, periodic images included."""
-    from scipy.spatial import cKDTree
-
     from ..analysis.neighbours import with_images
 
     n = len(crystal)
     if n < 2 and not any(crystal.pbc):
         return float("nan")
-    idx = np.arange(n) if n <= sample else np.linspace(0, n - 1, sample).astype(int)
-    cutoff = max(2.0 * (crystal.volume / max(n, 1)) ** (1 / 3), 1.0) if crystal.volume > 0 else 5.0
+    # host atoms to host atoms where there are hosts: one interstitial in a small
+    # cell would otherwise make its short bonds the typical distance
+    host = crystal.roles == 0
+    use = host if host.sum() >= 1 and (host.sum() < n) else np.ones(n, bool)
+    ppos = crystal.positions[use]
+    m = len(ppos)
+    idx = np.arange(m) if m <= sample else np.linspace(0, m - 1, sample).astype(int)
+    cutoff = max(2.0 * (crystal.volume / max(m, 1)) ** (1 / 3), 1.0) if crystal.volume > 0 else 5.0
     for _ in range(6):
-        pts, _ = with_images(crystal.positions, crystal.cell, crystal.pbc, cutoff)
-        d, _ = cKDTree(pts).query(crystal.positions[idx], k=2, distance_upper_bound=cutoff)
+        pts, _ = with_images(ppos, crystal.cell, crystal.pbc, cutoff)
+        if len(pts) * len(idx) <= 2_000_000:        # small: plain numpy, no tree to build (or import)
+            dd = np.linalg.norm(ppos[idx][:, None, :] - pts[None, :, :], axis=2)
+            dd[dd > cutoff] = np.inf
+            d = np.sort(dd, axis=1)[:, :2]
+        else:
+            from scipy.spatial import cKDTree
+
+            d, _ = cKDTree(pts).query(ppos[idx], k=2, distance_upper_bound=cutoff)
         d = d[:, 1]
         d = d[np.isfinite(d) & (d > 1e-6)]
         if len(d) >= 0.5 * len(idx):
@@ -422,10 +473,12 @@ def _plane_offset(crystal, normal, frac_pos=None):
     return float(vals[np.argmin(np.abs(vals - c) + 1e-7 * (vals > c))])
 
 
-def classify_layers(crystal, normal_text=None):
+def classify_layers(crystal, normal_text=None, points=None):
     """Stacking position (0, 1, 2 for A, B, C) of each atom of a close-packed
     crystal, from its in-plane offset against the first layer; the second
-    distinct position met going up the normal is called B.
+    distinct position met going up the normal is called B.  ``points``: classify
+    these positions instead (the atoms and images a figure draws, each by its
+    own place: an image on a cell face can sit in another layer than its atom).
 
     Returns (positions (N,) int, normal label).  Raises UserError for
     crystals that are not close-packed along that normal."""
@@ -460,7 +513,10 @@ def classify_layers(crystal, normal_text=None):
     if abs(cosang[j] - 0.5) > 0.05:
         raise UserError(f"the layers on {label} are not triangular nets; stacking colours need close-packed planes")
     basis = np.array([a1, a2])
-    rel = pos - pos[i0]
+    if points is not None:
+        pos = np.asarray(points, float).reshape(-1, 3)
+        h = pos @ n
+    rel = pos - pos[i0] if points is None else pos - crystal.positions[i0]
     rel -= np.outer(rel @ n, n)
     st, *_ = np.linalg.lstsq(basis.T, rel.T, rcond=None)
     st = st.T
@@ -488,20 +544,31 @@ def classify_layers(crystal, normal_text=None):
 
 def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=False, polyhedra=None,
                 planes=(), directions=(), layers=None, defects=True, slip_axis=None, cell=None,
-                complete_cell=True):
+                complete_cell=True, cell_shape=None):
     """Everything a figure or the window will draw, as numpy arrays.
 
     ``view`` None picks one (:func:`auto_view`: along a dislocation's line,
-    obliquely across a slip system, else [001]).  ``polyhedra`` is None,
+    obliquely across a slip system, a low-index oblique view of the
+    hexagonal prism, else [001]).  ``polyhedra`` is None,
     'coordination', 'sites' or 'both'.  ``layers`` is None, True (the
-    close-packed planes of the lattice) or a plane '(111)'."""
+    close-packed planes of the lattice) or a plane '(111)'.  ``cell_shape``:
+    None (the hexagonal prism for one conventional hcp / simple hexagonal
+    cell, else the crystal's cell), 'prism' or 'primitive'."""
+    from .cells import PrismAtoms, best_prism_view, prism_applies, prism_candidates
+
     st = S.get_style(style) if isinstance(style, str) else style
+    use_prism = prism_applies(crystal, cell_shape)
     slip_info = _slip(crystal, slip_axis) if slip_axis else None
     if view is None:
-        view, auto_up = auto_view(crystal, slip_info)
+        if use_prism and slip_info is None:
+            view, auto_up = best_prism_view(crystal)
+        else:
+            view, auto_up = auto_view(crystal, slip_info)
         if (sites and view == "[001]" and auto_up is None and crystal.lattice is not None
                 and crystal.lattice.family == "cubic"):
             view, auto_up = "[013]", "[001]"     # along a cube axis the sites hide behind atoms and bonds
+        elif planes and view == "[001]" and auto_up is None and not slip_info:
+            view, auto_up = plane_view(crystal, planes[0])
         if up is None:
             up = auto_up
     v = make_view(crystal, view, up)
@@ -516,50 +583,72 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
     sc.colours = list(colours)
     sc.legend = [(lab, col, "ball") for lab, col in legend]
     radii = crystal.atom_radii()
+    draw_r = radii * st.atom_scale
 
-    # stacking layers recolour the host atoms
+    cell_mat = crystal.cell
+    frac = crystal.frac
+    use_cell = st.cell_outline if cell is None else bool(cell)
+    prism = PrismAtoms(crystal) if use_prism else None
+    if st.cut and n > S.MAX_CUT_ATOMS:
+        raise UserError(f"the cell-cut style makes a mesh per atom and is meant for a few cells "
+                        f"({n:,} atoms here, limit {S.MAX_CUT_ATOMS:,}); use --style space-filling")
+    # the points drawn: the crystal's atoms and their images on the cell (or prism) faces
+    if st.cut:
+        planes_cut = prism.planes() if prism is not None else cell_planes(cell_mat)
+        if prism is not None:
+            pts, src = prism_candidates(crystal, planes_cut, draw_r)
+        else:
+            from ..analysis.neighbours import with_images
+
+            pts, src = with_images(crystal.positions, cell_mat, crystal.pbc, float(draw_r.max()))
+    elif prism is not None:
+        pts, src = prism.positions, prism.src
+    else:
+        src = np.arange(n)
+        shifts = np.zeros((n, 3))
+        if complete_cell:
+            bi, bs = boundary_images(frac, crystal.pbc)
+            src = np.concatenate([src, bi])
+            shifts = np.vstack([shifts, bs])
+        pts = crystal.positions[src] + shifts @ cell_mat
+    col = cidx[src].copy()
+
+    # stacking layers recolour the host atoms: each drawn point by its own
+    # position (a copy on a cell face may sit in another layer than its parent)
     if layers:
-        cls, lab = classify_layers(crystal, None if layers is True else layers)
-        host = crystal.roles == ROLES.index("host")
+        cls, lab = classify_layers(crystal, None if layers is True else layers, points=pts)
+        host = crystal.roles[src] == ROLES.index("host")
         base = len(sc.colours)
         names = "ABC"
         used = sorted(set(cls[host].tolist()))
         for k in range(3):
             sc.colours.append(palette.LAYER_COLOURS[names[k]])
-        cidx = cidx.copy()
-        cidx[host] = base + cls[host]
+        col[host] = base + cls[host]
         sc.legend = [e for e in sc.legend if not e[0].endswith("(host)") and "(" in e[0]] + \
             [(f"layer {names[k]} on {lab}", palette.LAYER_COLOURS[names[k]], "ball") for k in used]
         sc.info["layers"] = lab
+        sc.info["layer_of_drawn"] = cls
 
-    cell_mat = crystal.cell
-    frac = crystal.frac
-    src = np.arange(n)
-    shifts = np.zeros((n, 3))
-    use_cell = st.cell_outline if cell is None else bool(cell)
     if st.cut:
-        if n > S.MAX_CUT_ATOMS:
-            raise UserError(f"the cell-cut style makes a mesh per atom and is meant for a few cells "
-                            f"({n:,} atoms here, limit {S.MAX_CUT_ATOMS:,}); use --style space-filling")
-        sc_pos, sc_src, share, meshes = _cut_atoms(crystal, radii * st.atom_scale, cidx, sc.colours)
+        keep, share, meshes = _clip_spheres(pts, draw_r[src], planes_cut, col, sc.colours)
         sc.cut_meshes = meshes
-        sc.atom_pos = sc_pos
-        sc.atom_src = sc_src
-        sc.atom_radius = radii[sc_src] * st.atom_scale
-        sc.atom_colour = cidx[sc_src]
+        pts, src, col, share = pts[keep], src[keep], col[keep], share[keep]
         sc.atom_frac_shown = share
-        sc.info["shares"] = _share_table(crystal, sc_src, share)
-    else:
-        if complete_cell:
-            bi, bs = boundary_images(frac, crystal.pbc)
-            src = np.concatenate([src, bi])
-            shifts = np.vstack([shifts, bs])
-        sc.atom_src = src
-        sc.atom_pos = crystal.positions[src] + shifts @ cell_mat
-        sc.atom_radius = radii[src] * st.atom_scale
-        sc.atom_colour = cidx[src]
+        sc.info["shares"] = _share_table(crystal, src, share)
+        if "layer_of_drawn" in sc.info:
+            sc.info["layer_of_drawn"] = sc.info["layer_of_drawn"][keep]
+    sc.atom_pos = np.asarray(pts, float)
+    sc.atom_src = np.asarray(src)
+    sc.atom_radius = draw_r[src]
+    sc.atom_colour = col
+    if prism is not None:
+        sc.info["cell"] = "hexagonal prism"
+        sc.info["prism"] = dict(counts=prism.counts(), atoms_in_prism=float(prism.shares.sum()))
+        if not st.cut:
+            sc.atom_place = list(prism.place)
+            sc.atom_frac_shown = prism.shares
     if use_cell:
-        sc.cell_edges = outline_edges(crystal)
+        sc.cell_edges = prism.edges if prism is not None else outline_edges(crystal)
 
     nn = None
     if st.bonds:
@@ -620,7 +709,14 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
             done.add(s.kind)
             pts, _idx, d = _neighbour_points(crystal, np.asarray(s.position, float),
                                              max(4.0 * float(s.radius), 3.0 * float(np.max(radii))))
-            shell, _ = _shell(pts, _idx, d, tol=0.05)
+            nb = getattr(s, "neighbours", None)
+            k_nb = 0 if nb is None else len(nb)
+            if k_nb >= 4:          # the site's own bounding atoms: the k nearest (ties at the shell kept)
+                order = np.argsort(d)
+                cut = d[order[k_nb - 1]] * (1 + 1e-6)
+                shell = pts[d <= cut]
+            else:
+                shell, _ = _shell(pts, _idx, d, tol=0.05)
             hm = hull_mesh(shell)
             if hm is None:
                 continue
@@ -701,13 +797,100 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
         if vac:
             host_r = float(np.median(radii[crystal.roles == 0])) if (crystal.roles == 0).any() else float(radii.max())
             sc.markers.append(dict(pos=np.array(vac), radius=host_r * st.atom_scale,
-                                   colour=palette.ROLE_COLOURS["vacancy"], group="defects"))
+                                   colour=palette.ROLE_COLOURS["vacancy"], group="defects", front=True))
             sc.legend.append((f"vacancy ({len(vac)})", palette.ROLE_COLOURS["vacancy"], "ring"))
 
+    if defects:
+        _feature_marks(sc, crystal, v, st)
+    if planes and st.atom_scale >= 0.9:
+        # big spheres hide a plane through their centres: its outline is drawn over them
+        for m_ in [m_ for m_ in sc.meshes if m_["group"] == "planes"]:
+            poly = np.asarray(m_["points"], float)
+            seg = np.stack([poly, np.roll(poly, -1, axis=0)], axis=1)
+            sc.lines.append(dict(segments=seg, front=True, colour=S.darker_hex(palette.ROLE_COLOURS["plane"], 0.75),
+                                 width=3.0, group="planes", label=m_["label"] + " (outline)"))
     _shared_site_marks(sc, crystal, radii, st)
     sc.info.update(style=st.name, view=v.label, up=v.up_label, view_text=str(view), up_text=up)
     sc.caption = caption_lines(crystal, v, st, slip_info)
+    if prism is not None:
+        head = f"{len(crystal):,} atoms;"
+        if sc.caption[1].startswith(head):
+            sc.caption[1] = f"{len(crystal):,} atoms per primitive cell;" + sc.caption[1][len(head):]
+        sc.caption.insert(1, prism.caption(cut=st.cut))
     return sc
+
+
+def plane_trace(points, view, normal, origin, pad=0.06):
+    """The segment a plane (normal, through origin) shows as when seen
+    edge-on, across the extent of ``points``: (2, 3) array, or None when the
+    plane faces the viewer."""
+    n = np.asarray(normal, float)
+    n = n / np.linalg.norm(n)
+    d = np.cross(view.toward, n)
+    if np.linalg.norm(d) < 0.3:
+        return None
+    d /= np.linalg.norm(d)
+    t = (np.asarray(points, float) - origin) @ d
+    lo, hi = float(t.min()), float(t.max())
+    ext = pad * (hi - lo)
+    o = np.asarray(origin, float)
+    return np.array([o + d * (lo - ext), o + d * (hi + ext)])
+
+
+def dashes(seg, n=24):
+    """Each segment (2, 3) split into ``n`` dashes with gaps: (K, 2, 3)."""
+    out = []
+    for a, b in np.asarray(seg, float).reshape(-1, 2, 3):
+        t = np.linspace(0, 1, 2 * n)
+        p = a + (b - a) * t[:, None]
+        out.extend(np.stack([p[0::2], p[1::2]], axis=1))
+    return np.array(out)
+
+
+def _feature_marks(sc, crystal, v, st):
+    """Lines over the atoms that mark what a defect figure is about: each
+    grain boundary and stacking-fault plane (its trace, when seen edge-on) and
+    each dislocation core (the usual upside-down T: glide plane and extra
+    half-plane)."""
+    pos = crystal.positions
+    mid = pos.mean(axis=0)
+    colour = palette.ROLE_COLOURS["direction"]
+    for d in _defect_records(crystal, "tilt_boundary"):
+        ys = [float(y) for y in d.get("boundaries_y_A") or []]
+        if ys and abs(ys[0]) < 1e-6 and crystal.pbc[1]:
+            ys.append(float(crystal.cell[1, 1]))
+        segs = [plane_trace(sc.atom_pos, v, [0, 1.0, 0], [mid[0], y, mid[2]]) for y in ys]
+        segs = [q for q in segs if q is not None]
+        if segs:
+            sc.lines.append(dict(segments=dashes(segs), front=True, colour=colour, width=3.0,
+                                 group="defects", label="grain boundary"))
+            sc.legend.append((f"grain boundary {d.get('plane', '')}".strip(), colour, "line"))
+    for d in _defect_records(crystal, "stacking"):
+        hc, h = d.get("hc") or "", d.get("layer_spacing_A")
+        if not hc or not h or not d.get("faulted"):
+            continue
+        odd = "h" if d.get("parent_lattice") == "fcc" else "c"
+        zs = sorted({round(k * float(h), 6) for k, ch in enumerate(hc) if ch == odd})
+        zmin = float(pos[:, 2].min())
+        segs = [plane_trace(sc.atom_pos, v, [0, 0, 1.0], [mid[0], mid[1], zmin + z]) for z in zs]
+        segs = [q for q in segs if q is not None]
+        if segs:
+            sc.lines.append(dict(segments=dashes(segs), front=True, colour=colour, width=3.0,
+                                 group="defects", label="stacking fault"))
+            sc.legend.append((f"faulted layer ({'hcp' if odd == 'h' else 'fcc'} stacking)", colour, "line"))
+    for d in _defect_records(crystal, "dislocation"):
+        core = d.get("core_A")
+        line = np.asarray(d.get("line_vector") or [0, 0, 1.0], float)
+        if core is None or abs(float(line @ v.toward)) < 0.9:
+            continue                       # the symbol reads only along the line
+        b = float(d.get("burgers_magnitude_A") or 2.5)
+        c = np.array([float(core[0]), float(core[1]), float(mid[2])])
+        s = 1.2 * b
+        bar = np.array([c - v.right * s * 0.6, c + v.right * s * 0.6])
+        stem = np.array([c, c + v.up * s])
+        sc.lines.append(dict(segments=np.array([bar, stem]), front=True, colour=colour, width=4.0,
+                             group="defects", label="dislocation core"))
+        sc.legend.append(("dislocation core", colour, "line"))
 
 
 #: Above this many atoms on shared sites the figure names them in the legend only.
@@ -782,15 +965,19 @@ def _share_table(crystal, src, share):
 
 
 def _bonds(pos, crystal, nn):
-    from scipy.spatial import cKDTree
-
     cutoff = nn * (1 + S.BOND_TOLERANCE)
     est = len(pos) * 14
     if est > S.MAX_BONDS * 2:
         raise UserError(f"ball-and-stick would draw about {est // 2:,} sticks for {len(pos):,} atoms; "
                         f"use --style space-filling or --style lattice for crystals this big")
-    tree = cKDTree(pos)
-    pairs = tree.query_pairs(cutoff, output_type="ndarray")
+    if len(pos) <= 1500:                   # small: plain numpy, no tree to build (or import)
+        dd = np.linalg.norm(pos[:, None, :] - pos[None, :, :], axis=2)
+        i, j = np.nonzero(np.triu(dd <= cutoff, k=1))
+        pairs = np.column_stack([i, j])
+    else:
+        from scipy.spatial import cKDTree
+
+        pairs = cKDTree(pos).query_pairs(cutoff, output_type="ndarray")
     if len(pairs) > S.MAX_BONDS:
         raise UserError(f"ball-and-stick would draw {len(pairs):,} sticks; use --style space-filling or lattice")
     # pairs closer than the lattice allows (an interstitial and its cage) are
@@ -821,58 +1008,52 @@ def _slip(crystal, axis):
     return info
 
 
-def _cut_atoms(crystal, draw_r, cidx, colours):
-    """Spheres of the atoms and their images that reach into the cell, cut
-    by the cell faces.  Returns (centres, atom index, share inside, meshes)."""
-    from ..analysis.neighbours import with_images
-
-    rmax = float(draw_r.max())
-    pts, idx = with_images(crystal.positions, crystal.cell, crystal.pbc, rmax)
-    cell = crystal.cell
-    inv_h = np.linalg.inv(cell)
-    # face planes: for axis k, n_k . r in [0, 1] with n_k the reciprocal row
-    recip = inv_h.T
+def cell_planes(cell):
+    """Inward unit normals n and offsets d of a parallelepiped's six faces (inside: n . x >= d)."""
+    recip = np.linalg.inv(cell).T
     norms = np.linalg.norm(recip, axis=1)
-    f = pts @ inv_h                     # fractional
-    dist_lo = f * (1 / norms)           # distance to the low face (A), signed, inside positive
-    dist_hi = (1 - f) * (1 / norms)
-    r = draw_r[idx]
-    inside = np.all((dist_lo > -r[:, None]) & (dist_hi > -r[:, None]), axis=1)
-    pts, idx, dist_lo, dist_hi, r = pts[inside], idx[inside], dist_lo[inside], dist_hi[inside], r[inside]
+    out = []
+    for k in range(3):
+        u = recip[k] / norms[k]
+        out.append((u, 0.0))
+        out.append((-u, -1.0 / norms[k]))
+    return out
+
+
+def _clip_spheres(pts, r, planes, col, colours):
+    """Spheres at ``pts`` of radii ``r`` cut by the half-spaces ``planes``
+    (n . x >= d).  Returns (mask of the spheres reaching inside, share of
+    each sphere's volume inside, meshes)."""
+    pts = np.asarray(pts, float)
+    r = np.asarray(r, float)
+    dist = np.stack([pts @ n - d for n, d in planes], axis=1)        # signed, inside positive
+    inside = np.all(dist > -r[:, None], axis=1)
     groups = {}
-    for k in range(len(pts)):
-        cut = []
-        for ax in range(3):
-            if dist_lo[k, ax] < r[k] - 1e-9:
-                cut.append((ax, 0, round(float(dist_lo[k, ax]), 6)))
-            if dist_hi[k, ax] < r[k] - 1e-9:
-                cut.append((ax, 1, round(float(dist_hi[k, ax]), 6)))
-        key = (round(float(r[k]), 6), int(cidx[idx[k]]), tuple(cut))
+    for k in np.nonzero(inside)[0]:
+        cut = tuple((p, round(float(dist[k, p]), 6)) for p in range(len(planes)) if dist[k, p] < r[k] - 1e-9)
+        key = (round(float(r[k]), 6), int(col[k]), cut)
         groups.setdefault(key, []).append(k)
     meshes = []
-    share = np.ones(len(pts))
-    unit = recip / norms[:, None]
-    for (rad, col, cut), members in groups.items():
+    share = np.zeros(len(pts))
+    for (rad, c, cut), members in groups.items():
         base = sphere_mesh(rad)
         vol_full = base.volume
         m = base
-        for ax, side, d in cut:
-            nrm = unit[ax] if side == 0 else -unit[ax]
-            # keep the part with nrm . x >= -d  (inside the cell)
+        for p, d in cut:
+            nrm = planes[p][0]
+            # keep the part with nrm . x >= -d (inside), in the sphere's own frame
             m = m.clip_closed_surface(normal=tuple(nrm), origin=tuple(-nrm * d))
             if m.n_points == 0:
                 break
         if m.n_points == 0:
-            share[members] = 0.0
             continue
-        frac_in = float(m.volume / vol_full) if vol_full > 0 else 1.0
-        share[members] = frac_in
+        share[members] = float(m.volume / vol_full) if vol_full > 0 else 1.0
         tri = m.triangulate()
         faces = tri.faces.reshape(-1, 4)[:, 1:]
         for k in members:
-            meshes.append(dict(points=np.asarray(tri.points) + pts[k], faces=faces, colour=colours[col]))
+            meshes.append(dict(points=np.asarray(tri.points) + pts[k], faces=faces, colour=colours[c]))
     keep = share > 1e-3
-    return pts[keep], idx[keep], share[keep], meshes
+    return keep, share, meshes
 
 
 def sphere_mesh(radius, res=36):

@@ -65,12 +65,12 @@ def no_display_message(spec="SPEC"):
 
 def show(crystal, view=None, style="ball-and-stick", *, up=None, sites=False, polyhedra=None, planes=(),
          directions=(), layers=None, defects=True, slip_axis=None, cell=None, legend=True,
-         size=(1280, 960)):
+         size=(1280, 960), cell_shape=None):
     """Open ``crystal`` in a window and wait until it is closed ('q', Esc or
     the window's close button).  Without a display, raises UserError."""
     v = Viewer(crystal, view, style, up=up, sites=sites, polyhedra=polyhedra, planes=planes,
                directions=directions, layers=layers, defects=defects, slip_axis=slip_axis, cell=cell,
-               legend=legend, size=size)
+               legend=legend, size=size, cell_shape=cell_shape)
     v.run()
 
 
@@ -185,7 +185,7 @@ class Viewer:
 
     def __init__(self, crystal, view=None, style="ball-and-stick", *, up=None, sites=False, polyhedra=None,
                  planes=(), directions=(), layers=None, defects=True, slip_axis=None, cell=None, legend=True,
-                 size=(1280, 960)):
+                 size=(1280, 960), cell_shape=None):
         if not has_display():
             raise UserError(no_display_message())
         from . import style as S
@@ -193,17 +193,24 @@ class Viewer:
 
         self.crystal = crystal
         self.st = S.get_style(style) if isinstance(style, str) else style
+        from .cells import best_prism_view, prism_applies
+
+        self.cell_shape = cell_shape
+        self.prism = prism_applies(crystal, cell_shape)
         if view is None:        # the figure's choice: along a dislocation line, across a slip system
             from .scene_graph import _slip, auto_view
 
-            view, auto_up = auto_view(crystal, _slip(crystal, slip_axis) if slip_axis else None)
+            if self.prism and not slip_axis:
+                view, auto_up = best_prism_view(crystal)
+            else:
+                view, auto_up = auto_view(crystal, _slip(crystal, slip_axis) if slip_axis else None)
             up = auto_up if up is None else up
         self.view_text, self.up_text = view, up
         self.size = S.check_size(size)
         self.requests = dict(sites=sites, polyhedra=polyhedra, planes=list(planes or []),
                              directions=list(directions or []), layers=layers, slip_axis=slip_axis)
         # the plain scene: atoms, bonds, cell; every overlay is a scene of its own so it can come and go
-        self.base = build_scene(crystal, self.st, view, up, defects=False, cell=cell)
+        self.base = build_scene(crystal, self.st, view, up, defects=False, cell=cell, cell_shape=cell_shape)
         self.picks = []
         self._neigh = None
         self.message = ""
@@ -380,10 +387,11 @@ class Viewer:
         r = self.requests
         if group == "cell":
             sc = build_scene(self.crystal, replace(self.st, bonds=False, cut=False), self.view_text, self.up_text,
-                             defects=False, cell=True)
+                             defects=False, cell=True, cell_shape=self.cell_shape)
             sc.atom_pos = None
             sc.legend = []
-            sc.cell_edges = outline_edges(self.crystal)
+            if not self.prism:
+                sc.cell_edges = outline_edges(self.crystal)
         elif group == "layers":
             return self._layer_actor()
         else:
@@ -393,7 +401,7 @@ class Viewer:
                       directions=r["directions"] if group == "directions" else (),
                       slip_axis=r["slip_axis"] if group == "slip" else None)
             sc = build_scene(self.crystal, replace(self.st, bonds=False, cut=False, cell_outline=False),
-                             self.view_text, self.up_text, cell=False, **kw)
+                             self.view_text, self.up_text, cell=False, cell_shape=self.cell_shape, **kw)
             atom_labels = {e[0] for e in self.base.legend}
             sc.legend = [e for e in sc.legend if e[0] not in atom_labels]
             sc.atom_pos = None
@@ -414,16 +422,17 @@ class Viewer:
 
         if self.base.cut_meshes:
             raise UserError("stacking colours need a ball style (ball-and-stick, space-filling or lattice)")
+        # each drawn atom by its own place (a copy on a cell face may sit in another layer than its atom)
         cls, lab = classify_layers(self.crystal, None if self.requests["layers"] in (None, True, False)
-                                   else self.requests["layers"])
+                                   else self.requests["layers"], points=self.base.atom_pos)
         src = self.base.atom_src
         host = self.crystal.roles[src] == ROLES.index("host")
         rgb = F._rgb(self.base.colours)[self.base.atom_colour]
         lay_rgb = F._rgb([palette.LAYER_COLOURS[n] for n in "ABC"])
-        rgb[host] = lay_rgb[cls[src][host]]
+        rgb[host] = lay_rgb[cls[host]]
         a = F.sphere_actor(self.base.atom_pos, self.base.atom_radius, rgb)
         self.pl.renderer.AddActor(a)
-        used = sorted(set(cls[self.crystal.roles == ROLES.index("host")].tolist()))
+        used = sorted(set(cls[host].tolist()))
         self.groups["layers"] = [a]
         keep = [e for e in self.base.legend if not e[0].endswith("(host)") and "(" in e[0]]   # as build_scene does
         self.legend_of["layers"] = keep + [(f"layer {'ABC'[k]} on {lab}", palette.LAYER_COLOURS["ABC"[k]], "ball")

@@ -1,0 +1,190 @@
+"""Which cell a figure (or a glTF file) draws: the crystal's own cell, or for
+one conventional cell of hcp / simple hexagonal the hexagonal prism the
+trade draws (crystalview/prism.py), with its atoms' shares and outline.
+
+No vtk or pyvista here.
+"""
+from __future__ import annotations
+
+import itertools
+
+import numpy as np
+
+from ..errors import UserError
+
+CELL_SHAPES = ("prism", "primitive")
+
+#: Shares of a lattice point on the hexagonal prism (common practice: any
+#: materials-science textbook's hcp cell: 12 corners x 1/6 + 2 faces x 1/2 + 3 inside).
+PLACE_SHARES = {"corner": 1.0 / 6.0, "face centre": 0.5, "inside": 1.0}
+
+
+def check_cell_shape(shape):
+    """None, 'prism' or 'primitive', or a one-line UserError."""
+    if shape is None:
+        return None
+    key = str(shape).strip().lower().replace("_", "-")
+    aliases = {"hexagonal": "prism", "hexagonal-prism": "prism", "hex": "prism", "conventional": "prism",
+               "rhombic": "primitive", "rhombus": "primitive", "primitive-cell": "primitive"}
+    key = aliases.get(key, key)
+    if key not in CELL_SHAPES:
+        raise UserError(f"cell '{shape}' unknown; use --cell prism (the hexagonal prism of hcp and simple "
+                        f"hexagonal) or --cell primitive (the rhombic cell the crystal stores)")
+    return key
+
+
+def is_one_conventional_cell(crystal):
+    """True when the crystal is exactly one conventional cell of its lattice:
+    same cell, same atoms on the lattice's sites, no defects, no repeat."""
+    lat = getattr(crystal, "lattice", None)
+    if lat is None or len(crystal) != len(lat.basis_frac) or not all(bool(x) for x in crystal.pbc):
+        return False
+    md = crystal.metadata or {}
+    if md.get("defects") or md.get("orient") or md.get("orientation") or md.get("realisation"):
+        return False
+    rep = md.get("repeat")
+    if rep is not None and tuple(int(x) for x in rep) != (1, 1, 1):
+        return False
+    if not np.allclose(crystal.cell, lat.cell, atol=1e-6):
+        return False
+    if np.any(crystal.roles != 0):
+        return False
+    f = crystal.frac
+    want = (np.asarray(lat.basis_frac, float) + lat.origin_frac) % 1.0
+    d = (f[:, None, :] - want[None, :, :] + 0.5) % 1.0 - 0.5
+    return bool(np.all(np.min(np.abs(d).max(axis=2), axis=1) < 1e-4))
+
+
+def prism_applies(crystal, shape=None):
+    """Whether to draw the hexagonal prism.  ``shape`` None: wherever it
+    applies (one conventional hcp / simple hexagonal cell); 'primitive':
+    never; 'prism': where it applies, else a UserError saying why not."""
+    from ..prism import has_prism
+
+    shape = check_cell_shape(shape)
+    ok = has_prism(crystal) and is_one_conventional_cell(crystal)
+    if shape == "primitive":
+        if not has_prism(crystal):
+            raise UserError(_not_hex(crystal, "primitive"))
+        return False
+    if shape == "prism" and not ok:
+        if not has_prism(crystal):
+            raise UserError(_not_hex(crystal, "prism"))
+        raise UserError("--cell prism draws one conventional hcp or simple hexagonal cell; this crystal has "
+                        "repeats, defects or a new orientation, so it is drawn in its own cell (leave out --cell)")
+    return ok
+
+
+def _not_hex(crystal, shape):
+    lat = getattr(crystal, "lattice", None)
+    what = lat.prototype if lat is not None else "of no known lattice type"
+    return (f"--cell {shape} chooses between the hexagonal prism and the rhombic primitive cell of hcp and "
+            f"simple hexagonal crystals; this crystal is {what} and is drawn in its own cell (leave out --cell)")
+
+
+class PrismAtoms:
+    """The prism's atoms as a figure draws them."""
+
+    def __init__(self, crystal):
+        from ..prism import hexagonal_prism
+
+        p = hexagonal_prism(crystal)
+        self.prism = p
+        self.positions = np.asarray(p.positions, float)
+        self.place = list(p.place)
+        self.layer = list(p.layer)
+        self.src = source_atoms(crystal, self.positions)
+        self.edges = np.stack([p.corners[p.edges[:, 0]], p.corners[p.edges[:, 1]]], axis=1)   # (18, 2, 3)
+        self.shares = np.array([PLACE_SHARES[s] for s in self.place])
+
+    def counts(self):
+        return {k: self.place.count(k) for k in PLACE_SHARES}
+
+    def planes(self):
+        """Inward unit normals n and offsets d of the prism's 8 faces (inside: n . x >= d)."""
+        c = self.prism.corners
+        centre = c.mean(axis=0)
+        out = []
+        faces = [(0, 1, 2), (6, 8, 7)] + [(k, (k + 1) % 6, k + 6) for k in range(6)]
+        for i, j, k in faces:
+            n = np.cross(c[j] - c[i], c[k] - c[i])
+            n /= np.linalg.norm(n)
+            if n @ (centre - c[i]) < 0:
+                n = -n
+            out.append((n, float(n @ c[i])))
+        return out
+
+    def caption(self, cut=False):
+        n = self.counts()
+        total = float(self.shares.sum())
+        parts = [f"{n['corner']} corners x 1/6", f"{n['face centre']} face centres x 1/2"]
+        if n["inside"]:
+            parts.append(f"{n['inside']} inside x 1")
+        drawn = "" if cut else f"{len(self.positions)} atoms drawn, "
+        return f"hexagonal prism: {drawn}" + " + ".join(parts) + f" = {total:g} atoms"
+
+
+def source_atoms(crystal, points):
+    """Index of the crystal atom each point is a periodic image of."""
+    f = np.linalg.solve(crystal.cell.T, np.asarray(points, float).T).T
+    g = crystal.frac
+    d = (f[:, None, :] - g[None, :, :] + 0.5) % 1.0 - 0.5
+    err = np.abs(d).max(axis=2)
+    src = np.argmin(err, axis=1)
+    if np.any(err[np.arange(len(src)), src] > 1e-4):
+        raise UserError("the hexagonal prism's sites do not match this crystal's atoms")
+    return src
+
+
+def prism_candidates(crystal, planes, radii):
+    """Atoms and images whose spheres reach into the prism: (points, atom index)."""
+    rmax = float(np.max(radii))
+    pts, idx = [], []
+    for s in itertools.product(range(-2, 3), range(-2, 3), range(-1, 3)):
+        p = crystal.positions + np.array(s, float) @ crystal.cell
+        keep = np.ones(len(p), bool)
+        for n, d in planes:
+            keep &= p @ n - d > -rmax
+        pts.append(p[keep])
+        idx.append(np.nonzero(keep)[0])
+    return np.vstack(pts), np.concatenate(idx)
+
+
+def best_prism_view(crystal, max_index=5, elevation=(15.0, 30.0), apart=0.76):
+    """A low-index view of the prism with the c axis up that looks a little
+    down on it, off its mirror planes, with all its atoms apart on the page
+    (centres at least ``apart`` x the atom radius apart): (view text, up text)."""
+    from ..lattice import format_indices, miller_to_mb_direction
+
+    pa = PrismAtoms(crystal)
+    L = np.asarray(crystal.lattice.cell, float)
+    R = float(np.min(crystal.atom_radii()))
+    cz = L[2] / np.linalg.norm(L[2])
+    ax = L[0] / np.linalg.norm(L[0])
+    best = None
+    rng = range(-max_index, max_index + 1)
+    for uvw in itertools.product(rng, rng, rng):
+        if uvw == (0, 0, 0) or np.gcd.reduce(np.abs(uvw)) != 1 or uvw[2] <= 0:
+            continue
+        t = np.array(uvw, float) @ L
+        t /= np.linalg.norm(t)
+        el = np.degrees(np.arcsin(t @ cz))
+        if not (elevation[0] <= el <= elevation[1]):
+            continue
+        up = cz - (t @ cz) * t
+        up /= np.linalg.norm(up)
+        right = np.cross(up, t)
+        flat = t - (t @ cz) * cz
+        az = np.degrees(np.arctan2(np.cross(ax, flat) @ cz, ax @ flat)) % 30.0
+        if min(az, 30.0 - az) < 5.0:
+            continue                              # along a mirror: back atoms hide behind front ones
+        q = np.stack([pa.positions @ right, pa.positions @ up], axis=1)
+        d = np.linalg.norm(q[:, None] - q[None], axis=2) + np.eye(len(q)) * 1e9
+        sep = float(d.min()) / R
+        lab = format_indices(miller_to_mb_direction(uvw))
+        score = (sep >= apart, -len(lab), round(sep, 2), uvw[0] - uvw[1], -abs(uvw[0]))
+        if best is None or score > best[0]:
+            best = (score, lab)
+    if best is None:          # pragma: no cover - the search space always has one
+        return "[2-1-10]", "[0001]"
+    return best[1], "[0001]"
