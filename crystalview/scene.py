@@ -100,6 +100,10 @@ SCHEMA = {
                            "layers": {"type": ["boolean", "string"]}, "cell": {"type": "boolean"},
                            "legend": {"type": "boolean"}, "scale_bar": {"type": "boolean"},
                            "defects": {"type": "boolean"},
+                           "width": {"type": "string", "pattern": r"^\s*[0-9.]+\s*(mm|cm|in|pt)?\s*$"},
+                           "height": {"type": "string", "pattern": r"^\s*[0-9.]+\s*(mm|cm|in|pt)?\s*$"},
+                           "font_size": {"type": "number", "minimum": 4, "maximum": 36},
+                           "cell_shape": {"enum": ["prism", "primitive"]},
                            "planes": {"type": "array", "items": INDEX},
                            "directions": {"type": "array", "items": INDEX},
                            "slip_axis": INDEX}}},
@@ -474,8 +478,9 @@ def _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0
         if "size" in opts:
             opts["size"] = tuple(opts["size"])
         target = at(fig["file"])
-        cv.render(crystal, target, force=True, **opts)
-        done(target, f"figure, {opts.get('style', 'ball-and-stick')}, view {opts.get('view', '[001]')}")
+        info = cv.render(crystal, target, force=True, **opts)
+        used = info.get("view") if isinstance(info, dict) else None         # the view actually drawn
+        done(target, f"figure, {opts.get('style', 'ball-and-stick')}, view {used or opts.get('view', 'default')}")
     for m in data.get("models", []):
         opts = {k: v for k, v in m.items() if k != "file"}
         if "bed" in opts:
