@@ -18,6 +18,8 @@ def register(sub):
                    help="glTF: real size (1 angstrom = 1e-10 m) instead of 1 angstrom = 1 cm")
     p.add_argument("--instancing", choices=["auto", "on", "off"],
                    help="glTF: EXT_mesh_gpu_instancing (auto: for crystals over 2000 atoms)")
+    p.add_argument("--cell", dest="cell_shape", choices=["prism", "primitive"],
+                   help="glTF of one hcp or simple hexagonal cell: the hexagonal prism (default) or the primitive cell")
     p.add_argument("--force", action="store_true", help="overwrite an existing file")
     p.add_argument("--json", action="store_true", help="print what was written as JSON only")
     p.set_defaults(func=run)
@@ -38,6 +40,12 @@ def run(args):
         opts["real_scale"] = True
     if args.instancing:
         opts["instancing"] = args.instancing
+    if args.cell_shape:
+        if suffix not in (".glb", ".gltf"):
+            from ..errors import UserError
+
+            raise UserError(f"--cell is for glTF (.glb/.gltf) exports; for '{args.output}' leave it out")
+        opts["cell_shape"] = args.cell_shape
     c = crystal_from_args(args, keep_average=suffix == ".cif")
     info = export(c, args.output, force=args.force, **opts)
     info = dict(info)
@@ -55,7 +63,8 @@ def run(args):
         if "space_group" in info and info.get("format") == "cif":
             extra += f", space group {info['space_group']}"
         shown = info.get("spheres")
-        images = f" ({shown} spheres with the images on the cell faces)" if shown and shown != info["atoms"] else ""
+        what = "the hexagonal prism" if info.get("cell_drawn") == "hexagonal prism" else "the images on the cell faces"
+        images = f" ({shown} spheres with {what})" if shown and shown != info["atoms"] else ""
         if "entries" in info:
             images = f" ({info['entries']} site entries with their occupancies)"
         print(f"wrote {info['file']}: {info['atoms']:g} atoms{images}, {info['bytes']:,} bytes{extra}")
