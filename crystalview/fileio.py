@@ -14,6 +14,14 @@ from pathlib import Path
 from .errors import UserError
 
 
+#: Errors of the destination (full disk, quota, read-only, too big a file) that a user can act on.
+_DISK_ERRORS = {getattr(__import__("errno"), n) for n in ("ENOSPC", "EDQUOT", "EROFS", "EFBIG", "EIO")
+                if hasattr(__import__("errno"), n)}
+#: Longest file name accepted: the temporary name beside it adds about 40 characters to the 255 a
+#: file system allows.
+MAX_NAME = 200
+
+
 def check_target(path, force=False, suffixes=None):
     """Raise UserError if ``path`` cannot be written (exists without force,
     wrong suffix, folder missing or not writable).  Writes nothing."""
@@ -23,6 +31,8 @@ def check_target(path, force=False, suffixes=None):
             f"cannot write '{p}': unknown file type '{p.suffix or '(none)'}'; "
             f"use one of {', '.join(sorted(suffixes))}"
         )
+    if len(p.name) > MAX_NAME:
+        raise UserError(f"the file name '{p.name[:30]}...' is {len(p.name)} characters; give at most {MAX_NAME}")
     if p.exists() and p.is_dir():
         raise UserError(f"'{p}' is a folder; give a file name")
     if p.exists() and not force:
@@ -46,7 +56,10 @@ def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
     p = check_target(path, force=force)
     parent = p.parent if str(p.parent) else Path(".")
     _remove_stale_temps(p)
-    fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.{os.getpid()}.", suffix=".tmp-cv" + p.suffix, dir=parent)
+    try:
+        fd, tmp = tempfile.mkstemp(prefix=f".{p.name}.{os.getpid()}.", suffix=".tmp-cv" + p.suffix, dir=parent)
+    except OSError as exc:
+        raise UserError(f"cannot write '{p}': {exc.strerror or exc}; choose another file or folder") from None
     try:
         if writer is None:
             if isinstance(data, str):
@@ -83,11 +96,14 @@ def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
                 os.replace(tmp, p)
             else:
                 os.unlink(tmp)
-    except BaseException:
+    except BaseException as exc:
         try:
             os.unlink(tmp)
         except OSError:
             pass
+        if isinstance(exc, OSError) and exc.errno in _DISK_ERRORS:
+            raise UserError(f"cannot write '{p}': {exc.strerror}; nothing was written (free some space or choose "
+                            f"another folder)") from None
         raise
     return p
 

@@ -191,6 +191,8 @@ def load(path):
         raise UserError(f"{p}: not a UTF-8 text file; a scene is a TOML text file") from None
     except tomllib.TOMLDecodeError as exc:
         raise UserError(f"{p}: not valid TOML: {exc}") from None
+    except RecursionError:
+        raise UserError(f"{p}: values nested too deeply; a scene is a flat TOML file") from None
     validate(data, str(p))
     s = data["structure"]
     keys = [k for k in ("element", "compound", "lattice", "cif") if k in s]

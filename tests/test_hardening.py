@@ -78,3 +78,55 @@ def test_internal_fault_exits_1_with_hint(cli, monkeypatch):
     monkeypatch.setattr(props, "summary", broken)
     rc, out, err = cli("info", "Cu")
     assert rc == 1 and "internal error" in err and "--debug" in err and "Traceback" not in err
+
+
+def test_bad_numbers_and_places_are_one_line_errors(tmp_path, cli, monkeypatch):
+    """Cases that used to end as internal faults (exit 1): now one line, exit 2, nothing written."""
+    cases = [
+        ("render", "Cu", "-o", tmp_path / "x.png", "--size", "inf", "100"),
+        ("build", "Cu", "--max-atoms", "nan"),
+        ("build", "Cu", "--max-atoms", "inf"),
+        ("export", "Cu", "-o", tmp_path / ("a" * 250 + ".cif")),
+        ("export", "Cu", "-o", "/proc/x.cif"),
+        ("build", "Cu", "--slab", "(111)", "--vacuum", "1e300"),
+        ("info", "Cu", "--direction", "[12345678901234567890 1 1]"),
+    ]
+    for argv in cases:
+        rc, out, err = cli(*argv)
+        assert rc == 2 and err.count("\n") == 1 and "internal" not in err, (argv, err)
+    monkeypatch.setenv("CRYSTALVIEW_MAX_ATOMS", "inf")
+    rc, out, err = cli("build", "Cu")
+    assert rc == 2 and "CRYSTALVIEW_MAX_ATOMS" in err
+    monkeypatch.delenv("CRYSTALVIEW_MAX_ATOMS")
+    deep = tmp_path / "deep.toml"
+    deep.write_text('[scene]\nname = "d"\n[structure]\nelement = "Cu"\nx = ' + "[" * 600 + "]" * 600 + "\n")
+    rc, out, err = cli("run", deep, "--out", tmp_path / "o")
+    assert rc == 2 and "internal" not in err
+    assert not list(tmp_path.glob("*.png")) and not list(tmp_path.glob("*.cif"))
+
+
+def test_full_disk_is_a_one_line_error_and_leaves_nothing(tmp_path, cli, monkeypatch):
+    import errno
+    import os
+
+    real = os.fsync
+
+    def full(fd):
+        raise OSError(errno.ENOSPC, "No space left on device")
+
+    monkeypatch.setattr(os, "fsync", full)
+    rc, out, err = cli("export", "Cu", "-o", tmp_path / "cu.cif")
+    monkeypatch.setattr(os, "fsync", real)
+    assert rc == 2 and "No space left" in err and list(tmp_path.iterdir()) == []
+
+
+def test_sheared_supercells_and_huge_repeats_refused_or_cheap(cli):
+    import time
+
+    t = time.perf_counter()
+    rc, out, err = cli("build", "Cu", "--supercell", "999", "998", "0", "1000", "999", "0", "0", "0", "1")
+    assert rc == 0 and "4 atoms" in out and time.perf_counter() - t < 10      # was 27 s and 2.8 GB
+    rc, out, err = cli("build", "Cu", "--repeat", "2097152", "2097152", "2097152")
+    assert rc == 2 and "36,893,488,147,419,103,232 atoms" in err                # exact, no 64-bit overflow
+    rc, out, err = cli("build", "Cu", "--max-atoms", "3")
+    assert rc == 2 and "4 atoms" in err

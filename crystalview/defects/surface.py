@@ -104,6 +104,10 @@ def plane_spacings(heights, period, tol=1e-4):
     return out
 
 
+#: Largest vacuum gap accepted (A): far more than any surface model needs.
+MAX_VACUUM = 1000.0
+
+
 def slab(crystal_or_element, hkl, layers=None, thickness=None, vacuum=10.0, repeat=(1, 1), phase=None,
          max_atoms=None) -> Crystal:
     """An (hkl) slab with the plane normal along z.
@@ -132,8 +136,8 @@ def slab(crystal_or_element, hkl, layers=None, thickness=None, vacuum=10.0, repe
         vac = float(vacuum)
     except (TypeError, ValueError):
         vac = float("nan")
-    if not (math.isfinite(vac) and vac >= 0):
-        raise UserError(f"vacuum {vacuum!r} must be a length of 0 A or more, e.g. 10")
+    if not (math.isfinite(vac) and 0 <= vac <= MAX_VACUUM):
+        raise UserError(f"vacuum {vacuum!r} must be a length from 0 to {MAX_VACUUM:g} A, e.g. 10")
     nx, ny = repeats(repeat, 2, "repeat", "(3, 3)")
     P, n, hstep = _cell_rows(lat, hkl3)
     frac, species = _fill(lat.cell, lat.basis_frac, parent.numbers, P)

@@ -70,7 +70,7 @@ def check_size(size):
     """(W, H) as two ints within the accepted range, or UserError."""
     try:
         w, h = (int(round(float(x))) for x in size)
-    except (TypeError, ValueError):
+    except (TypeError, ValueError, OverflowError):
         raise UserError(f"size {size!r} must be two whole numbers of pixels, e.g. --size 1600 1200") from None
     for v in (w, h):
         if not (MIN_SIDE <= v <= MAX_SIDE):
