@@ -738,8 +738,14 @@ def _expands_to(site_frac, site_types, rots, tf, frac, types, cell, prec):
 
 
 def cif_text(crystal, *, symmetry=True):
-    """The CIF 1.1 text of a crystal (see the module docstring)."""
-    return _cif_text(crystal, symmetry=symmetry)[0]
+    """The CIF 1.1 text of a crystal (see the module docstring).
+
+    >>> import crystalview as cv
+    >>> "_space_group_IT_number 229" in cif_text(cv.build("Fe"))
+    True
+    """
+    head, rows, _info = _cif_text(crystal, symmetry=symmetry)
+    return head + "".join(rows)
 
 
 def _cif_text(crystal, *, symmetry=True):
@@ -815,11 +821,9 @@ def _cif_text(crystal, *, symmetry=True):
                   "_symmetry_Int_Tables_number 1", "_space_group_name_H-M_alt 'P 1'",
                   "_symmetry_space_group_name_H-M 'P 1'", "loop_", "_space_group_symop_id",
                   "_space_group_symop_operation_xyz", "1 x,y,z"]
-        idx = list(range(len(crystal)))
-        frac = crystal.frac
-        frac = frac - np.floor(frac)
-        frac[np.abs(frac - 1.0) < 1e-10] = 0.0
-    roles = crystal.roles[idx] if len(idx) else np.zeros(0, np.uint8)
+        idx = None                     # every atom, streamed in chunks below
+        frac = None
+    roles = crystal.roles if idx is None else (crystal.roles[idx] if len(idx) else np.zeros(0, np.uint8))
     with_roles = bool(np.any(roles != 0))
     if with_roles:
         lines.append(f"# {ROLE_TAG}: the crystalview role of each site ({', '.join(ROLES)}); "
@@ -828,17 +832,44 @@ def _cif_text(crystal, *, symmetry=True):
               "_atom_site_fract_z", "_atom_site_occupancy"]
     if with_roles:
         lines.append(ROLE_TAG)
+    head = "\n".join(lines) + "\n"
+    return head, _atom_rows(crystal, idx, frac, average, with_roles), info
+
+
+#: Atoms formatted per chunk when the whole cell is listed (bounds the memory of large exports).
+ROW_CHUNK = 100_000
+
+
+def _atom_rows(crystal, idx, frac, average, with_roles):
+    """The atom-site rows as text chunks: the listed sites (``idx`` with their
+    ``frac``), or every atom in chunks when ``idx`` is None."""
+    from ..crystal import ROLES
+
     syms = crystal.symbols
     seen = {}
-    for m, k in enumerate(idx):
-        s = str(syms[k])
-        seen[s] = seen.get(s, 0) + 1
-        role = ROLES[int(crystal.roles[k])]
-        label = f"{s}{seen[s]}" + ("" if role == "host" else f"_{role}")
-        occ = "1" if not average else format(float(crystal.occupancy[k]), ".6g")
-        row = f"{label} {s} {frac[m, 0]:.8f} {frac[m, 1]:.8f} {frac[m, 2]:.8f} {occ}"
-        lines.append(row + (f" {role}" if with_roles else ""))
-    return "\n".join(lines) + "\n", info
+    if idx is None:
+        spans = [(a, min(a + ROW_CHUNK, len(crystal))) for a in range(0, len(crystal), ROW_CHUNK)]
+    else:
+        spans = [None]
+    for span in spans:
+        if span is None:
+            ks, fr = list(idx), frac
+        else:
+            ks = range(span[0], span[1])
+            fr = crystal.to_fractional(crystal.positions[span[0]:span[1]])
+            fr = fr - np.floor(fr)
+            fr[np.abs(fr - 1.0) < 1e-10] = 0.0
+        rows = []
+        fl = fr.tolist()
+        for m, k in enumerate(ks):
+            s = str(syms[k])
+            seen[s] = seen.get(s, 0) + 1
+            role = ROLES[int(crystal.roles[k])]
+            label = f"{s}{seen[s]}" + ("" if role == "host" else f"_{role}")
+            occ = "1" if not average else format(float(crystal.occupancy[k]), ".6g")
+            f = fl[m]
+            rows.append(f"{label} {s} {f[0]:.8f} {f[1]:.8f} {f[2]:.8f} {occ}" + (f" {role}" if with_roles else ""))
+        yield "\n".join(rows) + ("\n" if rows else "")
 
 
 def write_cif(crystal, path, *, force=False, symmetry=True):
@@ -850,8 +881,18 @@ def write_cif(crystal, path, *, force=False, symmetry=True):
     if crystal.pbc != (True, True, True):
         raise UserError("CIF describes a crystal periodic in three directions; this one is not "
                         "(a slab or a finite piece) - export it as .xyz or .glb")
-    text, info = _cif_text(crystal, symmetry=symmetry)
-    atomic_write(path, text, force=force)
+    head, rows, info = _cif_text(crystal, symmetry=symmetry)
+    size = [0]
+
+    def writer(tmp):
+        with open(tmp, "w", encoding="utf-8", newline="\n") as fh:
+            fh.write(head)
+            size[0] += len(head.encode("utf-8"))
+            for part in rows:                     # streamed: memory stays near the crystal's own
+                fh.write(part)
+                size[0] += len(part.encode("utf-8"))
+
+    atomic_write(path, writer=writer, force=force)
     if info["mode"] == "symmetry":
         sg = f"{info['hm'] or info['type_symbol']} (No. {info['number']})"
         sites, ops = len(info["sites"]), len(info["ops"])
@@ -859,7 +900,7 @@ def write_cif(crystal, path, *, force=False, symmetry=True):
         sg, sites, ops = "P 1 (all atoms listed)", len(crystal), 1
     out = {"file": str(path), "format": "cif", "atoms": len(crystal), "space_group": sg,
            "space_group_number": info.get("number", 1) if info["mode"] == "symmetry" else 1,
-           "sites_listed": sites, "symmetry_operations": ops, "bytes": len(text.encode("utf-8"))}
+           "sites_listed": sites, "symmetry_operations": ops, "bytes": size[0]}
     if info["mode"] != "symmetry":
         out["note"] = info["reason"]
     from ..occupancy import is_average
