@@ -116,7 +116,10 @@ SCHEMA = {
                            "material_density": POS_NUM, "clearance": {"type": "number", "minimum": 0},
                            "resolution": POS_NUM, "edges": {"type": "boolean"},
                            "cell": {"enum": ["prism", "primitive"]},
-                           "overhang_angle": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 90}}}},
+                           "overhang_angle": {"type": "number", "exclusiveMinimum": 0, "exclusiveMaximum": 90},
+                           "label": {"type": "string", "minLength": 1, "maxLength": 60},
+                           "label_style": {"enum": ["emboss", "engrave"]},
+                           "label_stroke": {"type": "number", "minimum": 0.2, "maximum": 10}}}},
         "exports": {"type": "array", "items": {
             "type": "object", "additionalProperties": False, "required": ["file"],
             "properties": {"file": FILE, "scale": POS_NUM}}},

@@ -445,7 +445,7 @@ def build_model(crystal, *, style="ball-and-stick", scale=None, clip_to_cell=Fal
                 min_feature=DEFAULT_MIN_FEATURE, bed=DEFAULT_BED, clearance=DEFAULT_CLEARANCE,
                 max_triangles=DEFAULT_MAX_TRIANGLES, segments=None, check_bed=True,
                 resolution=P.DEFAULT_RESOLUTION_MM, edges=None, cell=None, overhang_angle=DEFAULT_OVERHANG_ANGLE,
-                label=None, tessellation="resolution"):
+                label=None, label_style="emboss", tessellation="resolution", label_stroke=None):
     """The printable model (no file written): a :class:`Model` with its bodies in mm.
 
     ``tessellation="legacy"`` rebuilds the model the old way (sphere segments
@@ -465,6 +465,14 @@ def build_model(crystal, *, style="ball-and-stick", scale=None, clip_to_cell=Fal
         raise UserError("--edges draws the cell edges as struts on ball-and-stick models; "
                         "use it with --style ball-and-stick and without --kit")
     legacy = tessellation == "legacy"
+    label_mode, label_text, label_style = _label_option(label, label_style, crystal, scale, kit, legacy, base)
+    if label_stroke is None:
+        label_stroke = LABEL_STROKE_MM
+    elif not (isinstance(label_stroke, (int, float)) and math.isfinite(label_stroke) and 0.2 <= label_stroke <= 10):
+        raise UserError(f"label stroke {label_stroke!r} must be 0.2 to 10 mm, e.g. 0.8")
+    base_given = base is not None
+    if label_mode == "carry" and base is None:
+        base = True
     if edges is None:
         edges = style == "ball-and-stick" and not kit and not legacy
     max_triangles = int(max_triangles)
@@ -550,6 +558,10 @@ def build_model(crystal, *, style="ball-and-stick", scale=None, clip_to_cell=Fal
     base_t = 0.0
     margin = 0.0
     sink = 0.0
+    label_info = None
+    base_mm = None
+    if base and label_mode == "carry" and base_reason is None and not base_given:
+        adjustments.append("base plate added to carry the label")
     if base:
         import manifold3d as m3
 
@@ -557,10 +569,53 @@ def build_model(crystal, *, style="ball-and-stick", scale=None, clip_to_cell=Fal
         margin = 2.0
         sink = 0.5 if clip_to_cell else min(0.25 * float(balls.min()), 3.0)
         w = hi - lo + 2 * margin
-        plate = m3.Manifold.cube((float(w[0]), float(w[1]), float(base_t)), False)
-        plate = plate.translate((float(lo[0] - margin), float(lo[1] - margin), float(lo[2] + sink - base_t)))
+        x_lo, y_lo = float(lo[0] - margin), float(lo[1] - margin)
+        z_top = float(lo[2] + sink)
+        plate_w, strip = float(w[0]), 0.0
+        lab = None
+        if label_text:
+            from . import label as L
+
+            height = float(hi[2] - lo[2] + base_t - sink) + L.RELIEF_MM
+
+            def fits(bw, sd):
+                return not check_bed or _fits((bw, float(w[1]) + sd, height), bed)
+
+            stroke = max(float(label_stroke), 2 * float(resolution))
+            lab = L.plan_label(label_text, stroke, label_style, plate_w, margin, resolution, fits,
+                               depth=float(w[1]))
+            need_w = max(plate_w, lab.width + 2 * margin)
+            need = np.array([need_w, float(w[1]) + lab.height + margin, float(hi[2] - lo[2] + base_t - sink)])
+            if check_bed and not _fits(need, bed):
+                adjustments.append(f"label left out: at a legible size (strokes {stroke:g} mm, capitals "
+                                   f"{lab.cap_height:.0f} mm) it needs a {need[0]:.0f} x {need[1]:.0f} mm base, "
+                                   f"larger than the bed; use a shorter --label or a bigger --bed")
+                lab = None
+            else:
+                strip = lab.height + margin
+                grown_w = need_w - plate_w
+                plate_w = need_w
+                x_lo = float((lo[0] + hi[0]) / 2 - plate_w / 2)
+                adjustments.append(f"base enlarged by a {strip:.0f} mm label strip along the front edge"
+                                   + (f" and {grown_w:.0f} mm wider" if grown_w > 1e-6 else "")
+                                   + f" so the label's strokes are at least {stroke:g} mm")
+        plate = m3.Manifold.cube((plate_w, float(w[1]) + strip, float(base_t)), False)
+        plate = plate.translate((x_lo, y_lo - strip, z_top - base_t))
         T.group_of_id[plate.original_id()] = "base"
-        solid = P.union([solid, plate])
+        parts = [solid, plate]
+        if lab is not None:
+            text = L.label_solid(lab, x_lo + (plate_w - lab.width) / 2, y_lo - strip + margin, z_top,
+                                 depth_limit=base_t - 1.0)
+            T.group_of_id[text.original_id()] = "label"
+            solid = P.union(parts)
+            solid = P.union([solid, text]) if lab.style == "emboss" else solid - text
+            label_info = dict(text=lab.text, lines=lab.lines, style=lab.style, font=L.FONT_NAME,
+                              size_mm=lab.size, cap_height_mm=lab.cap_height, stroke_mm=lab.stroke,
+                              relief_mm=lab.relief, area_mm2=L.text_area(lab), block_mm=[lab.width, lab.height],
+                              strip_mm=strip)
+        else:
+            solid = P.union(parts)
+        base_mm = [plate_w, float(w[1]) + strip, float(base_t)]
         adjustments.append(base_reason or f"base plate {base_t:g} mm thick under the model")
         if base_reason:
             adjustments.append(f"base plate {base_t:g} mm thick, the model sunk {sink:.1f} mm into it")
@@ -591,10 +646,48 @@ def build_model(crystal, *, style="ball-and-stick", scale=None, clip_to_cell=Fal
                       chord_error_spheres_mm=float(ch_s), chord_error_rods_mm=float(ch_r), assembly=assembly,
                       contact_mm2=contact, overhang_mm2=overhang, overhang_angle_deg=overhang_angle,
                       unsupported_span_mm=float(span), unsupported_span_is=span_what,
-                      orientation=_orientation_text(rows, crystal, overhang_angle))
+                      orientation=_orientation_text(rows, crystal, overhang_angle),
+                      base_mm=base_mm, base_sink_mm=float(sink) if base else None, label=label_info)
     if plan["prism"]:
         model.info["cell_volume_mm3"] = float(3 * abs(np.linalg.det(plan["cell_mm"])))
     return model
+
+
+#: Thinnest stroke of label text (mm): two lines of a 0.4 mm nozzle, which a desktop printer lays down
+#: cleanly on a plate (common practice); text carries no load, so it need not meet the structural
+#: minimum feature of the rods.
+LABEL_STROKE_MM = 0.8
+
+
+def _label_option(label, label_style, crystal, scale, kit, legacy, base):
+    """(mode, text, style): mode "auto" (a label where a base is made),
+    "carry" (an explicit text: a base is made to carry it) or "none"."""
+    from . import label as L
+
+    if label_style not in L.STYLES:
+        from ..errors import suggest
+
+        raise UserError(f"unknown label style '{label_style}'{suggest(str(label_style), L.STYLES)}; "
+                        f"use emboss or engrave")
+    if label is False or (isinstance(label, str) and label.strip().lower() == "none"):
+        return "none", None, label_style
+    if label is None or label is True or (isinstance(label, str) and label.strip().lower() == "auto"):
+        if kit or legacy:
+            return "none", None, label_style
+        return "auto", L.auto_text(crystal, scale), label_style
+    text = L.check_text(label)
+    if kit:
+        raise UserError("kit parts have no base to carry a label; use --label none with --kit")
+    if base is False:
+        raise UserError("a label goes on the base plate; drop --no-base or use --label none")
+    return "carry", text, label_style
+
+
+def _fits(size, bed):
+    size = np.asarray(size, float)
+    bx, by, bz = bed
+    return bool((size[0] <= bx and size[1] <= by and size[2] <= bz)
+                or (size[1] <= bx and size[0] <= by and size[2] <= bz))
 
 
 def _orientation_text(rows, crystal, angle):
@@ -856,7 +949,7 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
                 min_feature=DEFAULT_MIN_FEATURE, bed=DEFAULT_BED, material_density=PLA_DENSITY,
                 clearance=DEFAULT_CLEARANCE, max_triangles=DEFAULT_MAX_TRIANGLES, segments=None, force=False,
                 write_report=True, resolution=P.DEFAULT_RESOLUTION_MM, edges=None, cell=None,
-                overhang_angle=DEFAULT_OVERHANG_ANGLE, label=None):
+                overhang_angle=DEFAULT_OVERHANG_ANGLE, label=None, label_style="emboss"):
     """Write a printable model of ``crystal`` to ``path`` (.stl or .3mf) and
     its print report beside it (MODEL.report.txt); return the report.
 
@@ -881,6 +974,10 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
     cell : "prism" (default for one hcp / simple hexagonal cell: the
         hexagonal prism) or "primitive" (the stored cell).
     overhang_angle : degrees from vertical printed without support (45).
+    label : text embossed or engraved on the base; None or "auto" (default)
+        writes the structure, lattice parameters and scale where a base is
+        made, "none" never; an explicit text adds a base to carry it.
+    label_style : "emboss" (raised text, default) or "engrave" (cut in).
     force : overwrite existing files.
     """
     from ..fileio import atomic_write, check_target
@@ -895,7 +992,7 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
     model = build_model(crystal, style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit,
                         min_feature=min_feature, bed=bed, clearance=clearance, max_triangles=max_triangles,
                         segments=segments, resolution=resolution, edges=edges, cell=cell,
-                        overhang_angle=overhang_angle, label=label)
+                        overhang_angle=overhang_angle, label=label, label_style=label_style)
     facts = inspect(model, material_density)
     if not (facts["watertight"] and facts["is_volume"]):
         raise RuntimeError("the mesh came out not watertight; rerun with --debug and report it")

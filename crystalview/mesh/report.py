@@ -44,6 +44,16 @@ def report_text(rep):
         rows.append(("unsupported span", f"{rep.get('unsupported_span_mm', 0):.1f} mm "
                                          f"({rep.get('unsupported_span_is', '')})"))
         rows.append(("orientation", rep.get("orientation", "")))
+    if rep.get("base_mm"):
+        b = rep["base_mm"]
+        rows.append(("base", f"{b[0]:.1f} x {b[1]:.1f} mm, {b[2]:g} mm thick"))
+    lab = rep.get("label")
+    if lab:
+        how = "embossed" if lab.get("style") == "emboss" else "engraved"
+        lines = lab.get("lines") or []
+        rows.append(("label", f"'{lab['text']}' {how} {lab['relief_mm']:g} mm, {lab['font']}, capitals "
+                              f"{lab['cap_height_mm']:.1f} mm high, {len(lines)} line(s), strokes >= "
+                              f"{lab['stroke_mm']:.2f} mm (minimum feature {rep.get('min_feature_mm', 0):g} mm)"))
     if rep.get("cell") == "hexagonal prism":
         rows.append(("cell", "hexagonal prism (12 corners, 2 face centres, 3 inside for hcp; --cell primitive "
                              "for the stored cell)"))
