@@ -288,6 +288,11 @@ def alloy_crystal(spec, alloy, unit="wt", *, phase=None, lattice=None, element=N
     from .defects.point import substitute
 
     al = alloy if isinstance(alloy, Alloy) else parse_alloy(alloy, unit)
+    from .elements import phase_alias
+
+    if phase is not None and str(spec)[:2].capitalize() in ("Fe",) and phase_alias("Fe", phase) == "martensite":
+        return _martensite(al, a=a, c=c, repeat=repeat, supercell=supercell, orient=orient, max_atoms=max_atoms,
+                           seed=seed, site=site, tolerance=tolerance)
     host = build(spec, phase=phase, lattice=lattice, element=element, a=a, c=c)
     lat = host.lattice
     host_el = lat.elements[0] if lat is not None and lat.elements else None
@@ -324,7 +329,7 @@ def alloy_crystal(spec, alloy, unit="wt", *, phase=None, lattice=None, element=N
         k = smallest_repeat(al, lat.atoms_per_cell, tolerance)
         el, asked, made, allowed = miss
         raise UserError(f"this crystal of {n_sites} sites cannot hold '{al.text}' ({al.unit}%): {el} would be "
-                        f"{made:.3g} instead of {asked:g} (allowed +-{allowed:.2g}); use at least --repeat {k} {k} {k} "
+                        f"{made:.3g} instead of {asked:g} (allowed +-{allowed:.2g}); --repeat {k} {k} {k} holds it, "
                         f"or a larger tolerance")
     k = 0
     for el in al.order:
@@ -373,3 +378,81 @@ def report_lines(rec):
         lines.append(f"a = {lp['a_A']:.4f} A by {lp['note']}: {comps}. An estimate: real alloys deviate by up to "
                      f"a few tenths of a percent; give -a for a measured value")
     return lines
+
+
+#: Iron-carbon martensite at room temperature (Roberts 1953, from memory; see
+#: the data file's roberts1953): a = A0 - 0.013 x, c = A0 + 0.116 x for x wt% C.
+MARTENSITE_A0 = 2.866
+
+
+def martensite_parameters(wt_c):
+    """(a, c) in A of Fe-C martensite with ``wt_c`` weight percent carbon.
+
+    >>> a, c = martensite_parameters(0.4)
+    >>> round(a, 4), round(c, 4), round(c / a, 4)
+    (2.8608, 2.9124, 1.018)
+    """
+    x = float(wt_c)
+    return MARTENSITE_A0 - 0.013 * x, MARTENSITE_A0 + 0.116 * x
+
+
+def _martensite(al, *, a=None, c=None, repeat=None, supercell=None, orient=None, max_atoms=None, seed=0,
+                site=None, tolerance=None):
+    """Fe-C martensite: body-centred tetragonal iron with the carbon in the z
+    octahedral sites, its a and c from the carbon content (Roberts 1953);
+    substitutional metals as in any alloy."""
+    from . import elements as E
+    from .build import build
+    from .defects.interstitial import fill_sites
+    from .defects.point import substitute
+
+    if al.base != "Fe":
+        raise UserError(f"martensite here is iron-carbon martensite; the alloy '{al.text}' is {al.base}-based")
+    if "C" not in al.parts:
+        raise UserError(f"martensite's tetragonality comes from its carbon; the alloy '{al.text}' has none "
+                        f"(give e.g. Fe-0.4C; without carbon the structure is ferrite)")
+    wt = {el: 100.0 * w for el, w in at_to_wt(al.atom_fractions()).items()}
+    if not 0 < wt["C"] <= 2.0:
+        raise UserError(f"martensite with {wt['C']:.3g} wt% C is outside the range of the lattice-parameter relation "
+                        f"(0 to about 2 wt% C)")
+    am, cm = martensite_parameters(wt["C"])
+    a_use = am if a is None else a
+    c_use = cm if c is None else c
+    if repeat is None and supercell is None and orient is None:
+        n = smallest_repeat(al, 2, tolerance)
+        repeat = (n, n, n)
+    crystal = build("bct", element="Fe", a=a_use, c=c_use, repeat=repeat, supercell=supercell, orient=orient,
+                    max_atoms=max_atoms)
+    counts = counts_for(al, len(crystal))
+    miss = worst_miss(al, counts, tolerance)
+    if miss is not None:
+        k = smallest_repeat(al, 2, tolerance)
+        el, asked, made, allowed = miss
+        raise UserError(f"this crystal of {len(crystal)} sites cannot hold '{al.text}' ({al.unit}%): {el} would be "
+                        f"{made:.3g} instead of {asked:g}; --repeat {k} {k} {k} holds it")
+    k = 0
+    for el in al.order:
+        if el not in ("Fe",) + INTERSTITIAL_ELEMENTS and counts[el]:
+            crystal = substitute(crystal, el, count=counts[el], seed=seed + k, host="Fe")
+            k += 1
+    for el in al.order:
+        if el in INTERSTITIAL_ELEMENTS and counts[el]:
+            crystal = fill_sites(crystal, el, kind=site or "octahedral", count=counts[el], seed=seed + k,
+                                 max_atoms=max_atoms)
+            k += 1
+    src = E._data()["sources"]["roberts1953"]
+    crystal.metadata.update(phase="martensite", source=src if a is None and c is None else "given by the user",
+                            temperature_K=293 if a is None and c is None else None,
+                            note=f"Fe-C martensite: body-centred tetragonal, c/a = {c_use / a_use:.4f} for "
+                                 f"{wt['C']:.3g} wt% C; carbon in the z octahedral sites")
+    from dataclasses import replace
+
+    crystal.lattice = replace(crystal.lattice, phase="martensite", source=crystal.metadata["source"])
+    crystal.metadata["alloy"] = {
+        "text": al.text, "unit": al.unit, "asked": dict(al.parts), "base": al.base, "counts": counts,
+        "made_wt_percent": made_percent(counts, "wt"), "made_at_percent": made_percent(counts, "at"), "seed": seed,
+        "repeat": list(repeat) if repeat is not None else None, "sites": int(sum(v for e, v in counts.items()
+                                                                                if e not in INTERSTITIAL_ELEMENTS)),
+        "tolerance": "5 % of each amount, at least 0.02 points" if tolerance is None else f"{tolerance:g} points"}
+    crystal.metadata["name"] = al.text
+    return crystal

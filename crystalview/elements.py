@@ -155,6 +155,9 @@ def phase(symbol, name=None) -> Phase:
         alias = phase_alias(e.symbol, name)
         if isinstance(alias, str) and alias in e.phases:
             return e.phases[alias]
+        if alias == "martensite":
+            raise UserError(f"{e.symbol} martensite is body-centred tetragonal with c/a = 1 + 0.045 x wt% C "
+                            f"(Roberts 1953); give its carbon with --alloy, e.g. --phase martensite --alloy Fe-0.4C")
         trade = list(_data().get("phase_aliases", {}).get(e.symbol, {}))
         raise UserError(
             f"{e.symbol} has no phase '{name}'{suggest(name, list(e.phases) + trade)}; "

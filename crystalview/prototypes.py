@@ -67,6 +67,8 @@ PROTOTYPES = {
                          ((0, 0, 0), (0, _H, _H), (_H, 0, _H), (_H, _H, 0),
                           (0.25, 0.25, 0.25), (0.25, 0.75, 0.75), (0.75, 0.25, 0.75), (0.75, 0.75, 0.25)),
                          (0,) * 8, 227, "Fd-3m", "8a (origin choice 1)"),
+    "bct": Prototype("bct", "body-centred tetragonal", "tetragonal", ((0, 0, 0), (_H, _H, _H)), (0, 0),
+                     139, "I4/mmm", "2a", default_c_over_a=1.0),
     "B2": Prototype("B2", "B2 (ordered body-centred cubic, CsCl type)", "cubic",
                     ((0, 0, 0), (_H, _H, _H)), (0, 1), 221, "Pm-3m", "1a + 1b", n_species=2),
     "L1_2": Prototype("L1_2", "L1_2 (ordered face-centred cubic, Cu3Au type)", "cubic",
@@ -81,6 +83,7 @@ PROTOTYPES = {
 _ALIASES = {
     "simple-cubic": "sc", "simple_cubic": "sc", "cubic": "sc", "primitive-cubic": "sc",
     "body-centred-cubic": "bcc", "body-centered-cubic": "bcc",
+    "body-centred-tetragonal": "bct", "body-centered-tetragonal": "bct",
     "face-centred-cubic": "fcc", "face-centered-cubic": "fcc",
     "hexagonal-close-packed": "hcp", "simple-hexagonal": "hex", "sh": "hex",
     "diamond-cubic": "diamond", "dc": "diamond",

@@ -194,3 +194,33 @@ def test_format_on_every_table_command(cli):
         assert len(rows) >= 2 and all(len(r) == len(rows[0]) for r in rows)
         rc, out, err = cli(*argv, "--format", "md")
         assert rc == 0 and out.startswith("| ")
+
+
+def test_martensite_tetragonality_from_carbon(cli):
+    # source: Roberts, Trans. AIME 197 (1953) 203 (from memory): c/a = 1 + 0.045 x for x wt% C,
+    # a = 2.866 - 0.013 x, c = 2.866 + 0.116 x A
+    from crystalview.alloy import martensite_parameters
+
+    for x in (0.2, 0.4, 0.8, 1.2):
+        a, c = martensite_parameters(x)
+        assert c / a == pytest.approx(1 + 0.045 * x, abs=0.002)
+    m = alloy_crystal("Fe", "Fe-0.4C", phase="martensite")
+    assert m.lattice.prototype == "bct" and m.metadata["phase"] == "martensite"
+    assert m.lattice.c / m.lattice.a == pytest.approx(1.018, abs=1e-3)
+    # carbon sits in the z octahedral sites: its two nearest iron atoms lie along c
+    import numpy as np
+
+    ci = np.nonzero(m.symbols == "C")[0]
+    fe = m.positions[m.symbols == "Fe"]
+    for i in ci:
+        d = fe - m.positions[i]
+        f = np.linalg.solve(m.cell.T, d.T).T
+        d = (f - np.round(f)) @ m.cell
+        near = d[np.argsort(np.linalg.norm(d, axis=1))[:2]]
+        assert np.all(np.abs(near[:, 2]) > 0.99 * np.linalg.norm(near, axis=1))
+    # the z sites are the larger octahedral holes when c/a > 1 (geometry)
+    rows = {r["kind"]: r for r in json.loads(cli("sites", "bct", "--element", "Fe", "-a", "2.8608", "-c", "2.9124",
+                                                 "--json")[1])["sites"]}
+    assert rows["octahedral"]["radius_A"] > rows["octahedral-xy"]["radius_A"]
+    rc, out, err = cli("info", "Fe", "--phase", "martensite")
+    assert rc == 2 and "--alloy" in err and err.count("\n") == 1

@@ -27,6 +27,7 @@ def sg(c):
     ("L1_2", dict(elements=("Ni", "Al"), a=3.572), 221),
     ("L1_0", dict(elements=("Ti", "Al"), a=4.005, c=4.070), 123),
     ("L1_0", dict(elements=("Cu", "Au"), a=3.9), 123),      # ordering alone lowers cubic to tetragonal
+    ("bct", dict(element="Fe", a=2.8608, c=2.9124), 139),   # body-centred tetragonal, I4/mmm 2a
 ])
 def test_space_group_of_every_lattice_type(spec, kw, number):
     assert sg(cv.build(spec, **kw)) == number

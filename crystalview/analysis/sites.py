@@ -82,6 +82,13 @@ TEMPLATES = {
     "B2": [("octahedral", 6, _BCC_FACE + _BCC_EDGE, _SADDLE.split(";")[0]), ("tetrahedral", 4, _BCC_TET, "")],
     "L1_2": [("octahedral", 6, _FCC_OCT, ""), ("tetrahedral", 4, _FCC_TET, "")],
     "L1_0": [("octahedral", 6, _FCC_OCT, ""), ("tetrahedral", 4, _FCC_TET, "")],
+    # body-centred tetragonal: the octahedral sites split by the axis of their two nearest atoms; carbon in
+    # martensite sits in the z sites, which is what makes the cell tetragonal (Honeycombe & Bhadeshia, from memory)
+    "bct": [("octahedral", 6, ((0.5, 0.5, 0), (0, 0, 0.5)),
+             "z sites: the two nearest atoms lie along c (the sites carbon takes in martensite)"),
+            ("octahedral-xy", 6, ((0.5, 0, 0.5), (0, 0.5, 0.5), (0.5, 0, 0), (0, 0.5, 0)),
+             "x and y sites: the two nearest atoms lie along a or b"),
+            ("tetrahedral", 4, _BCC_TET, "")],
 }
 
 
