@@ -496,6 +496,9 @@ def _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0
         done(target, f"print model, {opts.get('style', 'ball-and-stick')}")
         for extra in _report_files(rep):
             if Path(extra).exists() and all(str(q) != str(extra) for q, _f, _w in staged):
+                # the report names the model's final place, not the staging folder
+                text = Path(extra).read_text(encoding="utf-8")
+                Path(extra).write_text(text.replace(str(stage), str(out_dir)), encoding="utf-8")
                 done(extra, "print report")
     for e in data.get("exports", []):
         opts = {k: v for k, v in e.items() if k != "file"}
