@@ -16,50 +16,8 @@ from .errors import LimitError, UserError, suggest
 from .lattice import _gcd_reduce, cell_from_parameters, cell_parameters, parse_indices
 from .prototypes import PROTOTYPES, is_lattice, prototype
 
-#: Default cap on the number of atoms a single build may make (overridable
-#: with max_atoms= / --max-atoms / the CRYSTALVIEW_MAX_ATOMS variable).
-DEFAULT_MAX_ATOMS = 50_000_000
-BYTES_PER_ATOM = 3 * 8 + 2   # positions + species + role
-#: The source recorded for a lattice parameter the user gave.
-GIVEN = "given by the user"
-
-
-def cap_value(value, what="--max-atoms"):
-    """A cap given by the user as a whole positive number (refuses nan, inf,
-    fractions, negatives and words in one line).
-
-    >>> cap_value("1e6"), cap_value(2000)
-    (1000000, 2000)
-    """
-    try:
-        f = float(value)
-    except (TypeError, ValueError):
-        raise UserError(f"{what} '{value}' is not a number; give a whole number of atoms, e.g. 1000000") from None
-    if not math.isfinite(f) or f < 1 or f != int(f):
-        raise UserError(f"{what} {value} must be a whole number of 1 or more, e.g. 1000000")
-    return int(f)
-
-
-def max_atoms_default():
-    v = os.environ.get("CRYSTALVIEW_MAX_ATOMS")
-    if v:
-        return cap_value(v, "CRYSTALVIEW_MAX_ATOMS")
-    return DEFAULT_MAX_ATOMS
-
-
-def check_atom_count(n, max_atoms=None, what="this request"):
-    """Refuse a request over the atom cap, before anything is allocated."""
-    cap = max_atoms_default() if max_atoms is None else cap_value(max_atoms)
-    n = int(n)                      # exact: Python integers do not overflow
-    if n > cap:
-        size = n * BYTES_PER_ATOM
-        mem = f"{size / 1e9:.1f} GB" if size >= 1e8 else (f"{size / 1e6:.1f} MB" if size >= 1e5 else
-                                                          f"{size / 1e3:.1f} kB")
-        raise LimitError(
-            f"{what} would make {n:,} atoms (about {mem} of memory for the atoms alone), "
-            f"over the cap of {cap:,}; make it smaller or raise the cap with --max-atoms {n}"
-        )
-
+from .limits import (BYTES_PER_ATOM, DEFAULT_MAX_ATOMS, GIVEN, cap_value, check_atom_count,  # noqa: F401
+                     max_atoms_default)
 
 # ------------------------------------------------------------------ resolving a spec
 def _resolve(spec, phase=None, element=None, elements=None, a=None, c=None, lattice=None):

@@ -133,3 +133,18 @@ def _remove_stale_temps(p):
                 t.unlink()
             except OSError:
                 pass
+
+
+def json_default(o):
+    """JSON form of numpy values, tuples and sets (json.dumps(..., default=json_default))."""
+    import numpy as np
+
+    if isinstance(o, np.integer):
+        return int(o)
+    if isinstance(o, np.floating):
+        return float(o)
+    if isinstance(o, np.ndarray):
+        return o.tolist()
+    if isinstance(o, (set, tuple)):
+        return list(o)
+    return str(o)

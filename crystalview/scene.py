@@ -122,7 +122,15 @@ SCHEMA = {
                            "label_stroke": {"type": "number", "minimum": 0.2, "maximum": 10}}}},
         "exports": {"type": "array", "items": {
             "type": "object", "additionalProperties": False, "required": ["file"],
-            "properties": {"file": FILE, "scale": POS_NUM}}},
+            "properties": {"file": FILE, "scale": POS_NUM,
+                           # web pages (.html): the figure's options, on when the page opens
+                           "style": {"enum": ["ball-and-stick", "space-filling", "lattice", "cell-cut"]},
+                           "view": INDEX, "up": INDEX, "sites": {"type": "boolean"},
+                           "polyhedra": {"enum": ["coordination", "sites", "both"]},
+                           "planes": {"type": "array", "items": INDEX},
+                           "directions": {"type": "array", "items": INDEX},
+                           "layers": {"type": ["boolean", "string"]}, "slip_axis": INDEX,
+                           "title": {"type": "string", "maxLength": 200}}}},
     },
 }
 
@@ -325,7 +333,7 @@ def _plain(obj):
 
 
 def _write_json(path, obj, force):
-    from .cli.common import _json_default
+    from .fileio import json_default as _json_default
     from .fileio import atomic_write
 
     atomic_write(path, json.dumps(obj, indent=2, default=_json_default) + "\n", force=force)

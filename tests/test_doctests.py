@@ -11,6 +11,7 @@ MODULES = [
     "crystalview.defects.point",
     "crystalview.cli",
     "crystalview.progress",
+    "crystalview.limits",
     "crystalview.exchange.xyz",
     "crystalview.defects.boundary",
     "crystalview.occupancy",

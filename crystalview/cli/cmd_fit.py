@@ -188,6 +188,6 @@ def run_table(args):
 
 
 def _cap(value):
-    from ..build import cap_value
+    from ..limits import cap_value
 
     return cap_value(value)

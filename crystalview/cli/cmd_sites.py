@@ -103,6 +103,6 @@ def run(args):
 
 
 def _cap(value):
-    from ..build import cap_value
+    from ..limits import cap_value
 
     return cap_value(value)

@@ -136,17 +136,9 @@ def print_json(obj):
 
 
 def _json_default(o):
-    import numpy as np
+    from ..fileio import json_default
 
-    if isinstance(o, np.integer):
-        return int(o)
-    if isinstance(o, np.floating):
-        return float(o)
-    if isinstance(o, np.ndarray):
-        return o.tolist()
-    if isinstance(o, (set, tuple)):
-        return list(o)
-    return str(o)
+    return json_default(o)
 
 
 def fmt(x, nd=4):
@@ -207,6 +199,6 @@ def emit_table(rows, headers, fmt="table"):
 
 
 def _cap(value):
-    from ..build import cap_value
+    from ..limits import cap_value
 
     return cap_value(value)

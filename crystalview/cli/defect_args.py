@@ -190,6 +190,6 @@ if (add_arguments, apply) not in SPEC_EXTENSIONS:
 
 
 def _cap(value):
-    from ..build import cap_value
+    from ..limits import cap_value
 
     return cap_value(value)

@@ -169,7 +169,7 @@ def stack(element, sequence, a=None, repeat=(1, 1), spacing=None, phase=None, ma
     spacing : layer spacing (A); default ideal sqrt(2/3) d for FCC metals,
         c/2 of the element for HCP metals.
     """
-    from ..build import check_atom_count
+    from ..limits import check_atom_count
 
     seq, named = check_sequence(sequence)
     rep = tuple(repeat) if repeat is not None else (1, 1)

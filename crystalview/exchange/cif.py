@@ -151,7 +151,7 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
     >>> len(c), c.lattice.prototype
     (2, 'bcc')
     """
-    from ..build import check_atom_count
+    from ..limits import check_atom_count
     from ..crystal import ROLES, Crystal, LatticeInfo
     from ..elements import atomic_number
     from ..recognise import DEFAULT_TOLERANCE, attach_lattice

@@ -47,7 +47,7 @@ def xyz_text(crystal):
 def write_xyz(crystal, path, *, force=False):
     """Write extended XYZ with the lattice and a role column, streamed in
     chunks (memory stays near the crystal's own); returns a summary dict."""
-    from ..build import check_atom_count
+    from ..limits import check_atom_count
     from ..fileio import atomic_write
 
     check_atom_count(len(crystal), what="this XYZ export")
