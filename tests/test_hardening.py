@@ -130,3 +130,25 @@ def test_sheared_supercells_and_huge_repeats_refused_or_cheap(cli):
     assert rc == 2 and "36,893,488,147,419,103,232 atoms" in err                # exact, no 64-bit overflow
     rc, out, err = cli("build", "Cu", "--max-atoms", "3")
     assert rc == 2 and "4 atoms" in err
+
+
+def _limited(argv, gb):
+    """Run the CLI in a child process whose address space is capped at ``gb`` GB."""
+    import subprocess
+    import sys
+
+    code = ("import resource, sys; resource.setrlimit(resource.RLIMIT_AS, ({0}, {0})); "
+            "from crystalview.cli import main; sys.exit(main(sys.argv[1:]))").format(int(gb * 2 ** 30))
+    return subprocess.run([sys.executable, "-c", code, *argv], capture_output=True, text=True, timeout=300)
+
+
+def test_just_under_the_atom_cap_finishes_within_memory():
+    """A build just under the 50-million-atom cap finishes in a child process capped at 6 GB of address
+    space (the atoms need 1.3 GB); just over it is refused before anything is allocated (exit 2); never
+    killed (the review drove a process to 24 GB before)."""
+    r = _limited(["build", "Cu", "--repeat", "232", "232", "232", "--json"], 6)       # 49,948,672 atoms
+    assert r.returncode == 0, r.stderr[-500:]
+    r = _limited(["build", "Cu", "--repeat", "233", "233", "233"], 6)                 # 50,597,348 atoms
+    assert r.returncode == 2 and "over the cap" in r.stderr
+    r = _limited(["build", "Cu", "--repeat", "2097152", "2097152", "2097152"], 2)
+    assert r.returncode == 2 and "over the cap" in r.stderr
