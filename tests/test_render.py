@@ -287,7 +287,7 @@ def test_defect_captions(defect_crystals):
     cap = {k: "\n".join(G.build_scene(c, "lattice", "[001]").caption) for k, c in defect_crystals.items()}
     # source: Sutton & Balluffi, Interfaces in Crystalline Materials: a cubic (310)[001] tilt boundary is
     # Sigma 5 (h^2 + k^2 = 10, halved while even), misorientation 2 atan(1/3) = 36.87 deg
-    assert "\u03a35 (310)[001] tilt boundary, 36.87\u00b0" in cap["tilt"]
+    assert "\u03a35 (310)[001] tilt boundary, tilt 36.87\u00b0" in cap["tilt"]
     # source: Hull & Bacon, Introduction to Dislocations: fcc perfect dislocation b = a/2<110> on {111}
     assert "edge dislocation, b = a/2[1-10], line [-1-12], glide plane (111)" in cap["dislocation"]
     assert "(111) slab, 6 layers" in cap["slab"]

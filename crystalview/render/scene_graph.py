@@ -1080,8 +1080,10 @@ def defect_label(d):
         sig = d.get("sigma")
         head = f"\u03a3{sig} " if sig else ""
         txt = f"{head}{d.get('plane', '')}{d.get('axis', '')} tilt boundary"
+        if d.get("tilt_angle_deg") is not None:
+            txt += f", tilt {float(d['tilt_angle_deg']):.2f}\u00b0"
         if d.get("misorientation_deg") is not None:
-            txt += f", {float(d['misorientation_deg']):.2f}\u00b0 misorientation"
+            txt += f" ({float(d['misorientation_deg']):.2f}\u00b0 misorientation)"
         return txt
     if kind == "dislocation":
         txt = f"{d.get('character', '')} dislocation".strip()
