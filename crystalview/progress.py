@@ -88,3 +88,43 @@ def bar(description, total):
         yield b
     finally:
         b.close()
+
+
+@contextlib.contextmanager
+def working(description):
+    """A spinner with the elapsed time for one long step that cannot count its
+    progress (a boolean union, a render, a large write): it appears after
+    DELAY seconds on a terminal, and never otherwise.
+
+    >>> with working("union of 3 parts"):
+    ...     pass
+    """
+    if not enabled():
+        yield
+        return
+    import threading
+
+    state = {"status": None, "done": False}
+    lock = threading.Lock()
+    t0 = time.perf_counter()
+
+    def start():
+        with lock:
+            if state["done"]:
+                return
+            st = _console().status(f"{description} ...")
+            st.start()
+            state["status"] = st
+
+    timer = threading.Timer(DELAY, start)
+    timer.daemon = True
+    timer.start()
+    try:
+        yield
+    finally:
+        with lock:
+            state["done"] = True
+            timer.cancel()
+            if state["status"] is not None:
+                state["status"].stop()
+                _console().print(f"{description}: {time.perf_counter() - t0:.1f} s", style="dim")

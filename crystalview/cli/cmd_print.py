@@ -97,12 +97,16 @@ def run(args):
     if not args.spec:
         raise UserError("give a SPEC (e.g. crystalview print Cu -o cu.3mf) or a set (--set Cu,Fe,Mg)")
     c = crystal_from_args(args)
-    rep = print_model(c, args.output, style=args.style, scale=args.scale, clip_to_cell=args.clip_to_cell,
-                      base=args.base, kit=args.kit, min_feature=args.min_feature, bed=tuple(args.bed),
-                      material_density=args.material_density, clearance=args.clearance,
-                      max_triangles=int(args.max_triangles), force=args.force, resolution=args.resolution,
-                      edges=args.edges, cell=args.cell, overhang_angle=args.overhang_angle, label=args.label,
-                      label_style=args.label_style)
+    from ..progress import working
+
+    with working(f"print model of {len(c):,} atoms"):
+        rep = print_model(c, args.output, style=args.style, scale=args.scale, clip_to_cell=args.clip_to_cell,
+                          base=args.base, kit=args.kit, min_feature=args.min_feature, bed=tuple(args.bed),
+                          material_density=args.material_density, clearance=args.clearance,
+                          max_triangles=_triangles(args.max_triangles), force=args.force,
+                          resolution=args.resolution, edges=args.edges, cell=args.cell,
+                          overhang_angle=args.overhang_angle, label=args.label, label_style=args.label_style,
+                          label_stroke=args.label_stroke)
     if args.json:
         print_json(dict(rep))
     else:
@@ -117,7 +121,7 @@ def _run_set(args):
     crystals = _set_crystals(args)
     rep = print_set(crystals, args.output, style=args.style, scale=args.scale, clip_to_cell=args.clip_to_cell,
                     base=args.base, kit=args.kit, min_feature=args.min_feature, bed=tuple(args.bed),
-                    material_density=args.material_density, max_triangles=int(args.max_triangles),
+                    material_density=args.material_density, max_triangles=_triangles(args.max_triangles),
                     force=args.force, resolution=args.resolution, edges=args.edges, cell=args.cell,
                     overhang_angle=args.overhang_angle, label=args.label, label_style=args.label_style,
                     label_stroke=args.label_stroke)
@@ -128,3 +132,9 @@ def _run_set(args):
         names = ", ".join(rep["stl_files"])
         print(f"wrote {rep['file']}, {names} and {rep['report_file']}")
     return 0
+
+
+def _triangles(value):
+    from ..limits import cap_value
+
+    return cap_value(value, "--max-triangles")

@@ -89,12 +89,19 @@ def _positive(name, value, unit, example):
     return v
 
 
+#: Accepted print scales, mm per angstrom (a 3.6 A cell: 0.36 mm to 3.6 m).
+MIN_SCALE, MAX_SCALE = 0.1, 1000.0
+
+
 def _check_options(style, scale, min_feature, bed, material_density, clearance, clip_to_cell, kit):
     if style not in STYLES:
         from ..errors import suggest
 
         raise UserError(f"unknown style '{style}'{suggest(style, STYLES)}; use one of {', '.join(STYLES)}")
     scale = _positive("scale", DEFAULT_SCALE if scale is None else scale, "number of mm per angstrom", "--scale 10")
+    if not MIN_SCALE <= scale <= MAX_SCALE:
+        raise UserError(f"scale {scale:g} mm per angstrom is outside {MIN_SCALE:g} to {MAX_SCALE:g}; a printed "
+                        f"cell is a few centimetres at --scale 10")
     min_feature = _positive("minimum feature", min_feature, "size in mm", "--min-feature 2")
     if min_feature < 0.4:
         raise UserError(f"minimum feature {min_feature:g} mm is below what a desktop nozzle (0.4 mm) can print; "
@@ -949,7 +956,7 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
                 min_feature=DEFAULT_MIN_FEATURE, bed=DEFAULT_BED, material_density=PLA_DENSITY,
                 clearance=DEFAULT_CLEARANCE, max_triangles=DEFAULT_MAX_TRIANGLES, segments=None, force=False,
                 write_report=True, resolution=P.DEFAULT_RESOLUTION_MM, edges=None, cell=None,
-                overhang_angle=DEFAULT_OVERHANG_ANGLE, label=None, label_style="emboss"):
+                overhang_angle=DEFAULT_OVERHANG_ANGLE, label=None, label_style="emboss", label_stroke=None):
     """Write a printable model of ``crystal`` to ``path`` (.stl or .3mf) and
     its print report beside it (MODEL.report.txt); return the report.
 
@@ -992,7 +999,8 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
     model = build_model(crystal, style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit,
                         min_feature=min_feature, bed=bed, clearance=clearance, max_triangles=max_triangles,
                         segments=segments, resolution=resolution, edges=edges, cell=cell,
-                        overhang_angle=overhang_angle, label=label, label_style=label_style)
+                        overhang_angle=overhang_angle, label=label, label_style=label_style,
+                        label_stroke=label_stroke)
     facts = inspect(model, material_density)
     if not (facts["watertight"] and facts["is_volume"]):
         raise RuntimeError("the mesh came out not watertight; rerun with --debug and report it")
