@@ -178,6 +178,10 @@ def _interstitial(sym, crystal, max_atoms=None):
             preferred, reason = octs[0]["label"], BCC_NOTE
     vac = [r for r in out_rows if r["kind"] == "vacancy"]
     notes = []
+    radii = crystal.metadata.get("radii") or {}
+    if any(r.get("kind") == "covalent" for r in radii.values()):
+        notes.append("this host is not metallic (an oxide, a salt or a covalent solid; covalent radii used): "
+                     "hard-sphere hole sizes are a rough geometric guide only")
     if vac:
         notes.append(f"{vac[0]['sites_in_crystal']} vacancy hole(s) of radius up to {vac[0]['hole_radius_max_A']:.3f} A "
                      f"can trap the solute")

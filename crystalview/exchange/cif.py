@@ -274,7 +274,7 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
         basis_symbols=tuple(symbols), family=family, space_group=sg_num, source=f"CIF file {p.name}",
     )
     meta = {"built_from": str(p), "name": name, "lattice": "cif", "a": float(cell.a), "b": float(cell.b),
-            "c": float(cell.c), "angles": [float(cell.alpha), float(cell.beta), float(cell.gamma)],
+            "c": None if family == "cubic" else float(cell.c), "angles": [float(cell.alpha), float(cell.beta), float(cell.gamma)],
             "space_group": sg_name, "space_group_number": sg_num, "symmetry_operations": n_ops,
             "source": f"CIF file {p.name}, block {b.name}", "cif_block": b.name,
             "asymmetric_unit_sites": len(st.sites)}
