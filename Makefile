@@ -20,6 +20,11 @@ demo: $(STAMP)
 	$(BIN)/crystalview demo --force
 
 test: $(STAMP)
+	# headless Chromium for the web-page tests (they skip where it is absent): installed with apt where we are root
+	-@if ! command -v chromium >/dev/null && ! command -v chromium-browser >/dev/null && ! command -v google-chrome >/dev/null; then \
+	  if command -v apt-get >/dev/null && [ "$$(id -u)" = 0 ]; then \
+	    (apt-get update -qq && apt-get install -y -qq chromium >/dev/null) || echo "note: could not install chromium; the web-page tests will be skipped"; \
+	  else echo "note: no chromium and no root apt-get; the web-page tests will be skipped"; fi; fi
 	$(BIN)/python -m pytest
 
 bench: $(STAMP)

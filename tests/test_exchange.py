@@ -238,7 +238,7 @@ def test_extended_xyz(tmp_path):
 def test_dispatch_and_bad_input(tmp_path):
     from crystalview.exchange import FORMATS
 
-    assert set(FORMATS) == {".glb", ".gltf", ".cif", ".xyz", ".stl", ".3mf"}
+    assert set(FORMATS) == {".glb", ".gltf", ".cif", ".xyz", ".stl", ".3mf", ".html"}
     c = cv.build("Fe")
     with pytest.raises(UserError, match="unknown file type"):
         cv.export(c, tmp_path / "a.pdb")

@@ -6,6 +6,7 @@ through the single table :data:`FORMATS`.
     cv.export(crystal, "cell.xyz")        # extended XYZ with the lattice
     cv.export(crystal, "cell.3mf")        # printable solid, mm, coloured parts
     cv.export(crystal, "cell.stl")        # printable solid, mm
+    cv.export(crystal, "cell.html")       # one offline web page: turn, zoom, click atoms
 
 Every writer writes atomically and never overwrites unless ``force=True``.
 """
@@ -25,6 +26,7 @@ FORMATS = {
     ".xyz": ("xyz", "write_xyz", "extended XYZ with the lattice"),
     ".stl": ("stl", "write", "printable solid (mm), no colour"),
     ".3mf": ("threemf", "write", "printable solid (mm) with coloured parts"),
+    ".html": ("html", "write_html", "one self-contained web page: turn, zoom, click atoms; offline"),
 }
 
 
@@ -46,7 +48,10 @@ def export(crystal, path, *, force=False, **options):
     Options are passed to the format's writer: glTF takes ``style``,
     ``real_scale``, ``instancing``; STL / 3MF take the print options of
     :func:`crystalview.print_model` (``style``, ``scale``, ``clip_to_cell``,
-    ``base``, ``min_feature``, ...); CIF and XYZ take none.
+    ``base``, ``min_feature``, ...); HTML takes the figure's options
+    (``style``, ``view``, ``up``, ``sites``, ``polyhedra``, ``planes``,
+    ``directions``, ``layers``, ``slip_axis``, ``cell_shape``, ``title``);
+    CIF and XYZ take none.
     """
     fn = writer_for(path)
     sig = inspect.signature(fn)
