@@ -15,11 +15,10 @@ DEMO_SCENES = [
 
 
 def scenes_dir():
-    """The scenes/ folder: beside the package in a checkout, else in the working folder."""
-    here = Path(__file__).resolve().parents[2] / "scenes"
-    if here.is_dir():
-        return here
-    return Path.cwd() / "scenes"
+    """The showcase scenes, shipped inside the package (crystalview/scenes;
+    a checkout links scenes/ to it), so `crystalview demo` works from any
+    installation and any working folder."""
+    return Path(__file__).resolve().parents[1] / "scenes"
 
 
 def register(sub):
@@ -39,7 +38,7 @@ def run(args):
     d = scenes_dir()
     paths = [d / n for n in DEMO_SCENES if (d / n).is_file()]
     if not paths:
-        raise UserError(f"no demo scenes found in {d}; run the demo from a checkout of crystalview")
+        raise UserError(f"no demo scenes found in {d}; reinstall crystalview (the scenes ship with the package)")
     from ..scene import existing_outputs, make_folder
 
     make_folder(args.out)
