@@ -127,4 +127,4 @@ def working(description):
             timer.cancel()
             if state["status"] is not None:
                 state["status"].stop()
-                _console().print(f"{description}: {time.perf_counter() - t0:.1f} s", style="dim")
+                _console().print(f"{description}: {time.perf_counter() - t0:.1f} s", style="dim", highlight=False)

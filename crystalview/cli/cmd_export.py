@@ -82,7 +82,10 @@ def run(args):
         raise UserError(f"--style {args.style} is for web pages (.html); for '{args.output}' use ball-and-stick "
                         f"or space-filling")
     c = crystal_from_args(args, keep_average=suffix == ".cif")
-    info = export(c, args.output, force=args.force, **opts)
+    from ..progress import working
+
+    with working(f"{suffix.lstrip('.')} file of {len(c):,} atoms"):
+        info = export(c, args.output, force=args.force, **opts)
     info = dict(info)
     if args.json:
         print_json(info)

@@ -109,8 +109,11 @@ def run(args):
     c = crystal_from_args(args)
     from ..render.figure import render
 
-    info = render(c, args.output, size=size, dpi=dpi, transparent=args.transparent, force=args.force,
-                  width=args.width, height=args.height, font_size=args.font_size, **figure_kwargs(args))
+    from ..progress import working
+
+    with working(f"figure of {len(c):,} atoms"):
+        info = render(c, args.output, size=size, dpi=dpi, transparent=args.transparent, force=args.force,
+                      width=args.width, height=args.height, font_size=args.font_size, **figure_kwargs(args))
     if args.json:
         print_json(info)
         return 0
