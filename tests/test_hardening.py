@@ -152,3 +152,28 @@ def test_just_under_the_atom_cap_finishes_within_memory():
     assert r.returncode == 2 and "over the cap" in r.stderr
     r = _limited(["build", "Cu", "--repeat", "2097152", "2097152", "2097152"], 2)
     assert r.returncode == 2 and "over the cap" in r.stderr
+
+
+def test_overlapping_atoms_big_files_and_bond_estimates_refused_early(tmp_path, cli):
+    import time
+
+    import numpy as np
+
+    import crystalview as cv
+    from crystalview.errors import LimitError, UserError
+
+    dup = cv.Crystal(np.eye(3) * 3.6, [[0, 0, 0], [0, 0, 0]], symbols=["Cu", "Cu"])
+    with pytest.raises(UserError, match="apart"):                    # used to crash the boolean library (139)
+        cv.print_model(dup, tmp_path / "d.stl")
+    assert not (tmp_path / "d.stl").exists()
+    big = tmp_path / "big.cif"
+    with open(big, "wb") as fh:
+        fh.truncate(60_000_000)                                       # a sparse 60 MB file
+    rc, out, err = cli("info", big)
+    assert rc == 2 and "MB" in err
+    from crystalview.exchange.gltf import gltf_document
+
+    t = time.perf_counter()
+    with pytest.raises(LimitError, match="about"):                    # estimated before any bond is found
+        gltf_document(cv.build("Cu", repeat=(30, 30, 30)), max_instances=200_000)
+    assert time.perf_counter() - t < 10

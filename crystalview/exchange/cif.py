@@ -53,6 +53,9 @@ READ_MAX_WORK = 500_000_000
 #: crystal's cell (and a cell thinner than this makes periodic searches blow up).
 MIN_CELL_HEIGHT, MAX_CELL_LENGTH, MAX_CELL_ASPECT = 0.5, 10000.0, 1000.0
 ROLE_TAG = "_[local]_atom_site_role"
+#: Largest CIF file read (bytes): structure files of metals and alloys are kilobytes; this keeps a
+#: database dump or a runaway file from taking minutes and gigabytes.
+MAX_CIF_BYTES = 50_000_000
 
 
 def symprec_for(cell):
@@ -413,6 +416,10 @@ def _structure_block(p, block):
 
     if not p.is_file():
         raise UserError(f"CIF file '{p}' not found")
+    size = p.stat().st_size
+    if size > MAX_CIF_BYTES:
+        raise LimitError(f"'{p.name}' is {size / 1e6:.0f} MB; a crystal structure's CIF is far smaller (the cap is "
+                         f"{MAX_CIF_BYTES / 1e6:.0f} MB); give the structure's own file, not a database dump")
     try:
         doc = gemmi.cif.read(str(p))
     except (ValueError, RuntimeError, UnicodeError, OSError) as exc:

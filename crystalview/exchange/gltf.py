@@ -171,6 +171,10 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
         pts, idx = _shown_atoms(crystal, False, radii_all)
     radii = radii_all[idx]
     bonds = np.zeros((0, 2), int)
+    if style == "ball-and-stick" and len(pts) * 7 > max_instances:
+        # estimate before finding them: a close-packed atom has 12 neighbours, 6 bonds each side
+        raise LimitError(f"the file would hold about {len(pts) * 7:,} atoms and bonds (12 neighbours per atom), over "
+                         f"the cap of {max_instances:,}; export fewer cells or use style space-filling")
     if style == "ball-and-stick":
         bonds, _ = _pairs(pts, radii, 1.05)
     n_inst = len(pts) + len(bonds)

@@ -132,7 +132,23 @@ def _shown_atoms(crystal, clip, radii_A):
     w = crystal.wrapped()
     cutoff = float(radii_A.max()) if clip else 1e-3
     pts, idx = with_images(w.positions, w.cell, w.pbc, cutoff)
+    _refuse_overlaps(pts, idx)
     return pts, idx
+
+
+def _refuse_overlaps(pts, idx, tol=0.1):
+    """Atoms (or images) closer than ``tol`` A make degenerate solids that the
+    boolean library cannot union: refused in one line, naming the two atoms."""
+    if len(pts) < 2:
+        return
+    from scipy.spatial import cKDTree
+
+    pairs = cKDTree(pts).query_pairs(tol, output_type="ndarray")
+    if len(pairs):
+        i, j = (int(idx[k]) for k in pairs[0])
+        raise UserError(f"atoms {i} and {j} sit {np.linalg.norm(pts[pairs[0][0]] - pts[pairs[0][1]]):.3f} A apart "
+                        f"(closer than {tol} A); a model of overlapping atoms cannot be made watertight - "
+                        f"remove the duplicate")
 
 
 def _pairs(points, radii, factor):
