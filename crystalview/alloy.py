@@ -217,6 +217,25 @@ def smallest_repeat(alloy, sites_per_cell, tolerance=None):
                     f"points; allow more with a larger tolerance")
 
 
+def _place(crystal, al, counts, seed, site, max_atoms):
+    """Substitute the metals (exact counts, one seed each) and put the
+    interstitials in ``site`` holes (octahedral by default)."""
+    from .defects.interstitial import fill_sites
+    from .defects.point import substitute
+
+    k = 0
+    for el in al.order:
+        if el != al.base and el not in INTERSTITIAL_ELEMENTS and counts[el]:
+            crystal = substitute(crystal, el, count=counts[el], seed=seed + k, host=al.base)
+            k += 1
+    for el in al.order:
+        if el in INTERSTITIAL_ELEMENTS and counts[el]:
+            crystal = fill_sites(crystal, el, kind=site or "octahedral", count=counts[el], seed=seed + k,
+                                 max_atoms=max_atoms)
+            k += 1
+    return crystal
+
+
 def vegard(alloy, lattice, host_a, host_c=None, host_phase=None):
     """Vegard's-law estimate of the solid solution's lattice parameters on
     the host's ``lattice`` type: a dict with ``a``, ``c`` (hexagonal and
@@ -284,8 +303,6 @@ def alloy_crystal(spec, alloy, unit="wt", *, phase=None, lattice=None, element=N
     ([3, 3, 3], {'Cr': 21, 'Fe': 79, 'Ni': 8})
     """
     from .build import build
-    from .defects.interstitial import fill_sites
-    from .defects.point import substitute
 
     al = alloy if isinstance(alloy, Alloy) else parse_alloy(alloy, unit)
     from .elements import phase_alias
@@ -331,17 +348,7 @@ def alloy_crystal(spec, alloy, unit="wt", *, phase=None, lattice=None, element=N
         raise UserError(f"this crystal of {n_sites} sites cannot hold '{al.text}' ({al.unit}%): {el} would be "
                         f"{made:.3g} instead of {asked:g} (allowed +-{allowed:.2g}); --repeat {k} {k} {k} holds it, "
                         f"or a larger tolerance")
-    k = 0
-    for el in al.order:
-        if el == al.base or el in INTERSTITIAL_ELEMENTS or counts[el] == 0:
-            continue
-        crystal = substitute(crystal, el, count=counts[el], seed=seed + k, host=al.base)
-        k += 1
-    for el in al.order:
-        if el in INTERSTITIAL_ELEMENTS and counts[el]:
-            crystal = fill_sites(crystal, el, kind=site or "octahedral", count=counts[el], seed=seed + k,
-                                 max_atoms=max_atoms)
-            k += 1
+    crystal = _place(crystal, al, counts, seed, site, max_atoms)
     made_at = made_percent(counts, "at")
     made_wt = made_percent(counts, "wt")
     rec = {"text": al.text, "unit": al.unit, "asked": dict(al.parts), "base": al.base, "counts": counts,
@@ -403,8 +410,6 @@ def _martensite(al, *, a=None, c=None, repeat=None, supercell=None, orient=None,
     substitutional metals as in any alloy."""
     from . import elements as E
     from .build import build
-    from .defects.interstitial import fill_sites
-    from .defects.point import substitute
 
     if al.base != "Fe":
         raise UserError(f"martensite here is iron-carbon martensite; the alloy '{al.text}' is {al.base}-based")
@@ -430,16 +435,7 @@ def _martensite(al, *, a=None, c=None, repeat=None, supercell=None, orient=None,
         el, asked, made, allowed = miss
         raise UserError(f"this crystal of {len(crystal)} sites cannot hold '{al.text}' ({al.unit}%): {el} would be "
                         f"{made:.3g} instead of {asked:g}; --repeat {k} {k} {k} holds it")
-    k = 0
-    for el in al.order:
-        if el not in ("Fe",) + INTERSTITIAL_ELEMENTS and counts[el]:
-            crystal = substitute(crystal, el, count=counts[el], seed=seed + k, host="Fe")
-            k += 1
-    for el in al.order:
-        if el in INTERSTITIAL_ELEMENTS and counts[el]:
-            crystal = fill_sites(crystal, el, kind=site or "octahedral", count=counts[el], seed=seed + k,
-                                 max_atoms=max_atoms)
-            k += 1
+    crystal = _place(crystal, al, counts, seed, site, max_atoms)
     src = E._data()["sources"]["roberts1953"]
     crystal.metadata.update(phase="martensite", source=src if a is None and c is None else "given by the user",
                             temperature_K=293 if a is None and c is None else None,

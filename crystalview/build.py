@@ -5,14 +5,13 @@ from __future__ import annotations
 
 import itertools
 import math
-import os
 from pathlib import Path
 
 import numpy as np
 
 from . import elements as E
 from .crystal import Crystal, LatticeInfo
-from .errors import LimitError, UserError, suggest
+from .errors import UserError, suggest
 from .lattice import _gcd_reduce, cell_from_parameters, cell_parameters, parse_indices
 from .prototypes import PROTOTYPES, is_lattice, prototype
 

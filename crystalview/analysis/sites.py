@@ -467,9 +467,6 @@ def site_table(crystal, max_atoms=None):
     groups = {}
     for s in sites:
         groups.setdefault(s.label or s.kind, []).append(s)
-    n_cells = None
-    if lat is not None and lat.prototype in TEMPLATES:
-        n_cells = crystal.volume / abs(np.linalg.det(lat.cell))
     for label, ss in groups.items():
         r = np.array([s.radius for s in ss])
         q = np.array([s.ratio for s in ss])

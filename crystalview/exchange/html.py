@@ -28,10 +28,8 @@ built or written.
 from __future__ import annotations
 
 import base64
-import json
 import zlib
 from dataclasses import replace
-from pathlib import Path
 
 import numpy as np
 

@@ -15,7 +15,7 @@ from pathlib import Path
 import numpy as np
 
 from ..errors import UserError
-from .printable import (DEFAULT_BED, DEFAULT_SCALE, PLA_DENSITY, PRINT_CAUTION, Body, PrintReport, _positive, build_model,
+from .printable import (DEFAULT_BED, DEFAULT_SCALE, PLA_DENSITY, PRINT_CAUTION, PrintReport, _positive, build_model,
                         inspect, report_path)
 
 GAP_MM = 5.0

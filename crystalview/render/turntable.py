@@ -15,7 +15,6 @@ from __future__ import annotations
 import copy
 import math
 from dataclasses import replace
-from pathlib import Path
 
 import numpy as np
 
