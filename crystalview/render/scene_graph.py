@@ -911,13 +911,13 @@ def _shared_site_marks(sc, crystal, radii, st):
     names = ", ".join(sigs[:3]) + (" ..." if len(sigs) > 3 else "")
     colour = palette.ROLE_COLOURS["shared-site"]
     if len(shared) == len(crystal) or len(shared) > MAX_SHARED_MARKS or len(shared) == 0:
-        sc.legend.append((f"every site shared ({names}); one draw, seed {real['seed']}"
+        sc.legend.append((f"all sites shared: {names} (seed {real['seed']})"
                           if len(shared) == len(crystal) else
-                          f"{len(shared)} atoms on shared sites ({names}); seed {real['seed']}", colour, "none"))
+                          f"{len(shared)} atoms on shared sites {names} (seed {real['seed']})", colour, "none"))
         return
     sc.markers.append(dict(pos=crystal.positions[shared], radius=float(np.median(radii[shared])) * st.atom_scale * 1.18,
                            colour=colour, group="defects"))
-    sc.legend.append((f"on a partly occupied or shared site ({names}); one draw, seed {real['seed']}", colour, "ring"))
+    sc.legend.append((f"shared site {names} (seed {real['seed']})", colour, "ring"))
 
 
 def vacancy_positions(crystal):
