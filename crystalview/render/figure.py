@@ -816,10 +816,17 @@ def display_list(scene, lay):
     if scene.cell_edges is not None:
         a = lay.to_px(v, scene.cell_edges[:, 0])
         b = lay.to_px(v, scene.cell_edges[:, 1])
+        # each edge in short pieces, each at its own depth, so the painter's order puts a piece behind the
+        # balls in front of it and in front of the balls behind it (one depth per edge got both wrong)
+        pieces = 12
+        t = np.linspace(0.0, 1.0, pieces + 1)
         for k in range(len(a)):
-            items.append(dict(kind="line", pts=[(a[k, 0], a[k, 1]), (b[k, 0], b[k, 1])],
-                              width=max(1.5, lay.font * 0.11), colour=palette.ROLE_COLOURS["cell"],
-                              depth=(a[k, 2] + b[k, 2]) / 2, order=-1, opacity=1.0))
+            p = a[k][None, :] + (b[k] - a[k])[None, :] * t[:, None]
+            for j in range(pieces):
+                items.append(dict(kind="line", pts=[(p[j, 0], p[j, 1]), (p[j + 1, 0], p[j + 1, 1])],
+                                  width=max(1.5, lay.font * 0.11), colour=palette.ROLE_COLOURS["cell"],
+                                  depth=(p[j, 2] + p[j + 1, 2]) / 2, order=-1, opacity=1.0,
+                                  cap="round" if 0 < j < pieces - 1 else "butt"))
     for s in scene.overlay_spheres:
         q = lay.to_px(v, s["pos"])
         rr = np.broadcast_to(s["radius"], (len(q),))
