@@ -122,8 +122,8 @@ def test_huge_void_analysis_is_refused_fast():
     c = cv.build("Cu", repeat=(100, 100, 100))                # 4,000,000 atoms: ~100 MB, fine to build
     assert len(c) == 4_000_000
     est = void_estimate(c)
-    # bench/bench_voids.py: about 1 GB per 100,000 atoms -> tens of GB here
-    assert est["points"] > len(c) and est["bytes"] > 20e9
+    # bench/bench_voids.py: about 2.5 GB per million atoms (1.4 million points) -> some 13 GB here
+    assert est["points"] > len(c) and 10e9 < est["bytes"] < 20e9
     t = time.perf_counter()
     with pytest.raises(LimitError, match=r"void analysis of 4,000,000 atoms would need about .* GB of memory "
                                          r"and about .* min \(over the cap of 300,000 atoms\)"):
@@ -135,6 +135,37 @@ def test_huge_void_analysis_is_refused_fast():
     with pytest.raises(LimitError, match="--max-atoms 32"):
         cv.find_voids(small, max_atoms=31)
     assert len(cv.find_voids(small, max_atoms=32)) == 96
+
+
+def _column(repeats):
+    # a thin FCC column, 3.6 x 3.6 A across: a dozen periodic images per atom
+    return cv.build("fcc", element="Cu", a=3.6, supercell=[[1, 0, 0], [0, 1, 0], [0, 0, repeats]])
+
+
+def test_thin_cell_estimate_is_honest_and_a_costly_one_is_refused():
+    import time
+
+    from crystalview.analysis.voids import _find_voids, void_estimate
+    from crystalview.errors import LimitError
+
+    c = _column(150)                                          # 600 atoms, some 7,000 points
+    est = void_estimate(c)
+    info = {}
+    _find_voids(c, info=info)
+    # the estimate counts what is triangulated (atoms + images), within 20 %, never far below
+    assert 0.95 * info["points"] <= est["points"] <= 1.2 * info["points"]
+    assert est["points"] > 10 * len(c)
+    # under the atom cap, but its points are over what the cap allows: refused before anything is built
+    big = _column(20_000)                                     # 80,000 atoms, about a million points
+    t = time.perf_counter()
+    with pytest.raises(LimitError, match=r"80,000 atoms would triangulate about [\d,]+ points .* --max-atoms \d+"):
+        cv.find_voids(big)
+    assert time.perf_counter() - t < 2.0
+    # a compact crystal of the cap's size is not refused by the points check
+    from crystalview.analysis.voids import CAP_POINTS_FLOOR, CAP_POINTS_PER_ATOM
+
+    cube = cv.build("Cu", repeat=(42, 42, 42))                # 296,352 atoms
+    assert void_estimate(cube)["points"] <= 300_000 * CAP_POINTS_PER_ATOM + CAP_POINTS_FLOOR
 
 
 def test_cli_sites_voids_cap(cli):

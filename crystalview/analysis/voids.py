@@ -52,26 +52,61 @@ KINDS = ("tetrahedral", "octahedral", "cubic", "vacancy", "other")
 
 #: Atom cap of the per-hole analyses (the void analysis, and the hole-by-hole
 #: measurement of a defected crystal); raise it with ``max_atoms=`` or the
-#: command line's ``--max-atoms``.  At the cap the void analysis needs about
-#: 2-3 GB and a few minutes.
+#: command line's ``--max-atoms``.  At the cap the void analysis of a compact
+#: cell needs about 1 GB and half a minute.
 DEFAULT_MAX_HOLE_ATOMS = 300_000
-#: Cost of the void analysis per triangulated point (atoms plus the periodic
-#: images in the padding), measured with bench/bench_voids.py: 30,000 atoms
-#: (45,700 points) 12.4 s and 310 MB, 100,000 atoms (132,000 points) 68 s and
-#: 950 MB above the interpreter, on the 2-core reference machine.
-VOID_BYTES_PER_POINT = 7_500
-VOID_SECONDS_PER_POINT = 5e-4
+#: Cost of the void analysis per triangulated point (atoms, plus the periodic
+#: images in the padding, plus the points the slabs share), measured with
+#: bench/bench_voids.py on the 2-core reference machine (FCC with 1 %
+#: vacancies; peak of the whole process tree above the start, workers
+#: included): 100,000 atoms (140,000 points triangulated) ~6.5 s and
+#: ~410 MB; 1,000,000 atoms (1.37 million points) ~90 s and ~2.6 GB.  The
+#: estimates round up.
+VOID_BYTES_FIXED = 150_000_000
+VOID_BYTES_PER_POINT = 2_000
+VOID_SECONDS_PER_POINT = 6e-5
+#: The cap in triangulated points: a compact cell of ``max_atoms`` atoms
+#: makes at most about 1.4 points per atom (padding and slab overlaps; 1.27
+#: at 300,000 atoms), and a floor keeps every small cell possible.  A thin or
+#: flat cell has many more images per atom (a 3.6 x 3.6 x 3600 A column: 13
+#: points per atom), so its points are checked against this too.
+CAP_POINTS_PER_ATOM = 1.5
+CAP_POINTS_FLOOR = 60_000
+
+# Geometry of find_voids, in units of the atomic spacing s = (V / N)^(1/3):
+# the extension of the kept region beyond the cell, the first padding of
+# periodic images beyond that, and the overlap of neighbouring slabs.
+_EXT_S = 0.75
+_REACH_S = 0.9
+_MARGIN_S = 2.25
+
+
+def _slab_count(npts, span, margin):
+    """Slabs for ``npts`` points over a height ``span`` (A): an even number
+    (two run at a time), none thinner than 3 overlaps."""
+    if npts < _MIN_SPLIT_POINTS:
+        return 1
+    nsl = 2 * int(np.ceil(npts / (2 * _SLAB_POINTS)))
+    return int(max(1, min(nsl, span // (3.0 * margin))))
 
 
 def _padding_factor(crystal):
-    """Points the triangulation sees per atom (atoms + images in the padding)."""
+    """Points the triangulation sees per atom: atoms + images in the first
+    padding of find_voids (plus half a spacing for the layers of a lattice
+    that fall just inside it) + the points shared by neighbouring slabs."""
     from .neighbours import cell_heights
 
     n = max(len(crystal), 1)
     h = cell_heights(crystal.cell)
-    pad = 2.25 * (crystal.volume / n) ** (1.0 / 3.0)      # the first padding of find_voids
+    s = (crystal.volume / n) ** (1.0 / 3.0)
     pbc = np.asarray(crystal.pbc, bool)
-    return float(np.prod(np.where(pbc, (h + 2.0 * pad) / h, 1.0)))
+    pad = (_EXT_S + _REACH_S + 0.5) * s
+    hp = np.where(pbc, h + 2.0 * pad, h)
+    f = float(np.prod(hp / h))
+    k = int(np.argmax(np.where(pbc, h + 2 * _EXT_S * s, h)))
+    margin = _MARGIN_S * s
+    nsl = _slab_count(n * f, float(np.where(pbc, h + 2 * _EXT_S * s, h)[k]), margin)
+    return f * (1.0 + 2.0 * margin * (nsl - 1) / hp[k])
 
 
 def _duration(seconds):
@@ -93,7 +128,7 @@ def void_estimate(crystal):
     dict with atoms, points (atoms + periodic images), bytes, seconds."""
     n = len(crystal)
     pts = int(round(n * _padding_factor(crystal))) if n else 0
-    return {"atoms": n, "points": pts, "bytes": pts * VOID_BYTES_PER_POINT,
+    return {"atoms": n, "points": pts, "bytes": VOID_BYTES_FIXED + pts * VOID_BYTES_PER_POINT,
             "seconds": pts * VOID_SECONDS_PER_POINT}
 
 
@@ -109,9 +144,20 @@ def check_hole_atoms(n_atoms, est_bytes, est_seconds, max_atoms=None, what="the 
 
 
 def check_void_size(crystal, max_atoms=None):
-    """:func:`check_hole_atoms` for the void analysis of ``crystal``."""
+    """:func:`check_hole_atoms` for the void analysis of ``crystal``; also
+    refuses a crystal under the atom cap whose thin or flat cell makes more
+    triangulated points than the cap allows (:data:`CAP_POINTS_PER_ATOM`)."""
     e = void_estimate(crystal)
     check_hole_atoms(e["atoms"], e["bytes"], e["seconds"], max_atoms, "the void analysis")
+    cap = DEFAULT_MAX_HOLE_ATOMS if max_atoms is None else int(max_atoms)
+    if e["points"] > cap * CAP_POINTS_PER_ATOM + CAP_POINTS_FLOOR:
+        need = int(np.ceil((e["points"] - CAP_POINTS_FLOOR) / CAP_POINTS_PER_ATOM))
+        raise LimitError(
+            f"the void analysis of {e['atoms']:,} atoms would triangulate about {e['points']:,} points (the cell is "
+            f"thin, so most are periodic images), needing about {_size(e['bytes'])} of memory and about "
+            f"{_duration(e['seconds'])} (over the cap of {cap:,} atoms, {cap * CAP_POINTS_PER_ATOM:,.0f} points "
+            f"and {CAP_POINTS_FLOOR:,} more); repeat the cell across its thin directions instead, or raise the cap "
+            f"with max_atoms= / --max-atoms {need}")
 
 
 # ---------------------------------------------------------------------- geometry
@@ -323,7 +369,8 @@ _JITTER_SEED = 20240616
 #: that are triangulated and reduced one by one, two at a time on two cores).
 _SLAB_POINTS = 250_000
 _MIN_SPLIT_POINTS = 60_000
-_CHUNK = 200_000
+_CHUNK = 50_000
+_QUERY_CHUNK = 50_000
 
 
 def _dot(a, b):
@@ -336,13 +383,19 @@ def _frac(x, inv):
     return x[:, 0:1] * inv[0] + x[:, 1:2] * inv[1] + x[:, 2:3] * inv[2]
 
 
+def _cart(f, cell):
+    # element by element (not BLAS), so a row gives the same bits however many rows there are
+    return f[:, 0:1] * cell[0] + f[:, 1:2] * cell[1] + f[:, 2:3] * cell[2]
+
+
+def _index_type(n):
+    return np.int32 if n < 2 ** 31 - 8 else np.int64
+
+
 def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=None, slabs=None, info=None):
     """find_voids; ``reach`` (first outer padding, A), ``slabs`` (number of
     slab triangulations) and ``info`` (filled with the padding used) are for
     the tests."""
-    from concurrent.futures import ThreadPoolExecutor
-    import os
-
     from scipy.spatial import cKDTree
 
     from .neighbours import cell_heights, with_images
@@ -362,7 +415,7 @@ def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=
     s = (crystal.volume / n) ** (1.0 / 3.0)
     # ext: tetrahedra whose centre lies within ext of the cell are kept (the
     # copies beyond the faces join the holes and channels that cross them)
-    ext = 0.75 * s
+    ext = _EXT_S * s
     equal = float(radii_atoms.max() - radii_atoms.min()) < 1e-12
     lo_e = np.where(pbc, -ext / h, 0.0)
     hi_e = np.where(pbc, 1 + ext / h, 1.0)
@@ -384,11 +437,12 @@ def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=
     tree = cKDTree(pts_t)
     if reach is None:
         # first guess: the largest hole of the perfect lattices (FCC/HCP octahedral 0.79 s,
-        # BCC tetrahedral 0.70 s, simple cubic and diamond 0.87 s, s the atomic spacing)
-        reach = ext + 0.9 * s if pbc.any() else 0.0
+        # BCC tetrahedral 0.70 s, simple cubic and diamond 0.87 s, s the atomic spacing).
+        # (1.1 s would spare BCC and HCP with vacancies their second triangulation, but
+        # sends the redo of some open structures on another path that does not settle.)
+        reach = ext + _REACH_S * s if pbc.any() else 0.0
     pad = float(reach)
-    rho_guess = max(pad - ext, 0.9 * s)
-    margin = 2.5 * rho_guess            # overlap of neighbouring slabs, measured and redone the same way
+    margin = _MARGIN_S * s       # overlap of neighbouring slabs, measured and redone the same way
     checked = False
     for attempt in range(6):
         if pad > pad0:
@@ -414,28 +468,15 @@ def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=
         # slabs along the tallest axis
         k = int(np.argmax(np.where(pbc, h + 2 * ext, h)))
         span = (hi_e[k] - lo_e[k]) * h[k]
-        nsl = slabs if slabs is not None else (
-            1 if len(pts) < _MIN_SPLIT_POINTS else max(2, int(np.ceil(len(pts) / _SLAB_POINTS))))
-        nsl = int(max(1, min(nsl, span // (3.0 * margin)))) if slabs is None else int(slabs)
+        nsl = int(slabs) if slabs is not None else _slab_count(len(pts), span, margin)
         cuts = lo_e[k] + (hi_e[k] - lo_e[k]) * np.arange(nsl + 1) / nsl
         cuts[0], cuts[-1] = -np.inf, np.inf
         geo = dict(pts=pts, pert=pert, fpts=fpts, rad=rad, inv=inv, pbc=pbc, h=h, lo_e=lo_e, hi_e=hi_e, k=k,
                    margin=margin, equal=equal, channels=channels, cell=cell)
-        workers = max(1, min(nsl, len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity")
-                             else (os.cpu_count() or 1), 2))
         from ..progress import bar
 
         with bar(f"hole analysis of {n:,} atoms: triangulating", nsl + 1) as pb:
-            def one(j):
-                out_j = _slab(geo, cuts[j], cuts[j + 1])
-                pb.update()
-                return out_j
-
-            if workers > 1:
-                with ThreadPoolExecutor(workers) as ex:
-                    parts = list(ex.map(one, range(nsl)))
-            else:
-                parts = [one(j) for j in range(nsl)]
+            parts = _run_slabs(geo, cuts, nsl, pb)
         n_own = sum(p["n_own"] for p in parts)
         need_pad = max((p["need_pad"] for p in parts), default=-np.inf)
         need_margin = max((p["need_margin"] for p in parts), default=-np.inf)
@@ -451,10 +492,60 @@ def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=
         raise UserError("the holes are too large for the cell (open space?); void analysis needs a filled cell")
     if info is not None:
         info.update(pad=pad, margin=margin, attempts=attempt + 1, slabs=nsl, points=len(pts),
-                    need_pad=float(need_pad), ext=ext, axis=k)
+                    need_pad=float(need_pad), need_margin=float(need_margin), ext=ext, axis=k)
     if n_own == 0:
         raise UserError("no enclosed hole found inside the cell; give a filled three-dimensional structure")
     return _reduce(crystal, parts, pts, idx, rad, tree, _idx_t, radii_atoms, cell, pbc, equal, tolerance, channels, n)
+
+
+#: The slab inputs of the running analysis, inherited by the forked workers
+#: (so the points are shared copy-on-write, not pickled).
+_GEO = None
+
+
+def _slab_job(cut_lo, cut_hi):
+    return _slab(_GEO, cut_lo, cut_hi)
+
+
+def _workers(nsl):
+    import os
+
+    cores = len(os.sched_getaffinity(0)) if hasattr(os, "sched_getaffinity") else (os.cpu_count() or 1)
+    return max(1, min(nsl, cores, 2))
+
+
+def _run_slabs(geo, cuts, nsl, pb):
+    """Triangulate and reduce the slabs.  Qhull holds the GIL, so threads do
+    not run two triangulations at once; with two or more slabs and cores the
+    slabs go to two forked worker processes (Linux, and only when this process
+    runs no other thread, so that forking is safe), else they run here one by
+    one.  Either way the parts are the same."""
+    import multiprocessing
+    import threading
+
+    global _GEO
+    workers = _workers(nsl)
+    fork = (workers > 1 and "fork" in multiprocessing.get_all_start_methods()
+            and threading.active_count() == 1 and _GEO is None)
+    if not fork:
+        parts = []
+        for j in range(nsl):
+            parts.append(_slab(geo, cuts[j], cuts[j + 1]))
+            pb.update()
+        return parts
+    from concurrent.futures import ProcessPoolExecutor
+
+    _GEO = geo
+    try:
+        with ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("fork")) as ex:
+            futs = [ex.submit(_slab_job, cuts[j], cuts[j + 1]) for j in range(nsl)]
+            parts = []
+            for f in futs:
+                parts.append(f.result())
+                pb.update()
+    finally:
+        _GEO = None
+    return parts
 
 
 def _slab(geo, cut_lo, cut_hi):
@@ -467,38 +558,50 @@ def _slab(geo, cut_lo, cut_hi):
     h, inv, pbc = geo["h"], geo["inv"], geo["pbc"]
     lo = cut_lo - margin / h[k]
     hi = cut_hi + margin / h[k]
-    gi = np.nonzero((fpts[:, k] >= lo) & (fpts[:, k] <= hi))[0]
+    gi = np.nonzero((fpts[:, k] >= lo) & (fpts[:, k] <= hi))[0].astype(_index_type(len(pts)))
     try:
-        tri = Delaunay(geo["pert"][gi])
+        tri = Delaunay(geo["pert"][gi], qhull_options=_QHULL_OPTIONS)
     except QhullError:
         try:
             tri = Delaunay(pts[gi], qhull_options="QJ Qbb")
         except QhullError:
             raise UserError("the atoms are coplanar or collinear (no three-dimensional hole); give a "
                             "three-dimensional structure or make the cell periodic") from None
+    # each tetrahedron's atoms in ascending order, its neighbours (opposite
+    # each atom) permuted alike: a sorting network on the columns
     G = gi[tri.simplices]
-    o = np.argsort(G, axis=1)
-    G = np.take_along_axis(G, o, axis=1)
-    NB = np.take_along_axis(tri.neighbors, o, axis=1)
-    del tri, o
+    NB = np.array(tri.neighbors)
+    del tri, gi
+    for i, j in ((0, 1), (2, 3), (0, 2), (1, 3), (1, 2)):
+        sw = np.nonzero(G[:, i] > G[:, j])[0]
+        G[sw, i], G[sw, j] = G[sw, j], G[sw, i]
+        NB[sw, i], NB[sw, j] = NB[sw, j], NB[sw, i]
+    del sw
     T = len(G)
     rad = geo["rad"]
     centre = np.empty((T, 3))
     r = np.empty(T)
     ok = np.empty(T, bool)
+    inE = np.empty(T, bool)
+    fck = np.empty(T)
     for a in range(0, T, _CHUNK):
         g = G[a:a + _CHUNK]
         c0 = pts[g[:, 0]]
         y, rr, kk = tangent_spheres(c0, pts[g[:, 1]] - c0, pts[g[:, 2]] - c0, pts[g[:, 3]] - c0,
                                     rad[g[:, 0]], rad[g[:, 1]], rad[g[:, 2]], rad[g[:, 3]], weighted=not geo["equal"])
-        centre[a:a + _CHUNK] = c0 + y
+        cc = c0 + y
+        centre[a:a + _CHUNK] = cc
         r[a:a + _CHUNK] = rr
         ok[a:a + _CHUNK] = kk
-    fc = _frac(centre, inv)
-    inE = ok & np.isfinite(r)
-    for ax in range(3):
-        inE &= (fc[:, ax] >= geo["lo_e"][ax]) & (fc[:, ax] <= geo["hi_e"][ax])
-    own = inE & (fc[:, k] >= cut_lo) & (fc[:, k] < cut_hi)
+        f = _frac(cc, inv)
+        e = kk & np.isfinite(rr)
+        for ax in range(3):
+            e &= (f[:, ax] >= geo["lo_e"][ax]) & (f[:, ax] <= geo["hi_e"][ax])
+        inE[a:a + _CHUNK] = e
+        fck[a:a + _CHUNK] = f[:, k]
+    if T:
+        del g, c0, y, rr, kk, cc, f, e
+    own = inE & (fck >= cut_lo) & (fck < cut_hi)
     own_idx = np.nonzero(own)[0]
     rho = r + rad[G[:, 0]]
     # flat (zero-volume) tetrahedra beside two or more kept ones; a slab
@@ -525,7 +628,7 @@ def _slab(geo, cut_lo, cut_hi):
         flat_idx = flat_idx[np.abs(np.sqrt(_dot(d3, d3)) - rc) <= 1e-7 * np.maximum(rc, 1.0)]
     rows = np.concatenate([own_idx, flat_idx])
     n_own, n_rows = len(own_idx), len(rows)
-    rowmap = np.full(T, -1, np.int64)
+    rowmap = np.full(T, -1, _index_type(T))
     rowmap[rows] = np.arange(n_rows)
     nbl = NB[rows]
     valid = nbl >= 0
@@ -540,59 +643,78 @@ def _slab(geo, cut_lo, cut_hi):
     exp_rows = np.nonzero(touch[:n_own].any(1))[0]
     # padding and overlap actually needed (see the bound in _find_voids)
     depth = np.full(n_own, np.inf)
-    fo = fc[own_idx]
+    fo = _frac(centre[own_idx], inv)
     for ax in range(3):
         if pbc[ax]:
             depth = np.minimum(depth, h[ax] * np.minimum(fo[:, ax], 1 - fo[:, ax]))
     need_pad = float(np.max(rho[own_idx] - depth)) if n_own else -np.inf
-    used = np.concatenate([own_idx, nbl[:, :][valid & inE[nbs]]])
-    need_margin = -np.inf
-    if len(used):
-        fk, ru = fc[used, k], rho[used]
-        ex = np.maximum(np.where(np.isfinite(cut_hi), (fk - cut_hi) * h[k] + ru, -np.inf),
-                        np.where(np.isfinite(cut_lo), (cut_lo - fk) * h[k] + ru, -np.inf))
-        need_margin = float(ex.max())
-    out = dict(n_own=n_own, n_flat=len(flat_idx), V=G[rows], centre=centre[rows], fc=fc[rows], r=r[rows],
-               nb=nbr, pend_rows=pr, pend_cols=pc, pend_keys=pend_keys, exp_rows=exp_rows,
-               exp_keys=G[own_idx[exp_rows]], need_pad=need_pad, need_margin=need_margin)
+    # overlap: how far the sphere of every tetrahedron used (kept, or beside a
+    # kept one) reaches beyond the slab
+    ex = np.maximum(np.where(np.isfinite(cut_hi), (fck - cut_hi) * h[k] + rho, -np.inf),
+                    np.where(np.isfinite(cut_lo), (cut_lo - fck) * h[k] + rho, -np.inf))
+    used_nb = nbl[valid & inE[nbs]]
+    need_margin = max(float(ex[own_idx].max()) if n_own else -np.inf,
+                      float(ex[used_nb].max()) if len(used_nb) else -np.inf)
+    del ex, used_nb, fck
+    # where the hole of each kept tetrahedron lies in the cell (canonical copy, wrapped centre)
+    idt = _index_type(len(pts))
+    snapped = np.where(np.abs(fo - np.round(fo)) < 1e-9, np.round(fo), fo)
+    canon = np.all(~pbc | ((snapped >= 0) & (snapped < 1)), axis=1)
+    wrapped = np.where(pbc, snapped - np.floor(snapped), snapped)
+    wrapped = np.where(wrapped >= 1 - 1e-12, 0.0, wrapped)
+    del snapped, fo
+    out = dict(n_own=n_own, n_flat=len(flat_idx), V=G[rows].astype(idt), r=r[own_idx],
+               wc=_cart(wrapped, geo["cell"]), canon=canon,
+               nb=nbr.astype(idt), pend_rows=pr.astype(idt), pend_cols=pc.astype(np.int8),
+               pend_keys=pend_keys.astype(idt), exp_rows=exp_rows.astype(idt),
+               exp_keys=G[own_idx[exp_rows]].astype(idt), need_pad=need_pad, need_margin=need_margin)
+    del nbr, nbl, valid, nbs, pend, touch, rowmap
+    if not geo["equal"]:
+        out["centre"] = centre[own_idx]
+        out["wrapped"] = wrapped
+    del wrapped
     # union test of step 4 (equal radii: the point tested is the tetrahedron's own centre)
     if geo["equal"] and n_own:
-        V = G[own_idx]
-        c0 = pts[V[:, 0]]
-        a, b, c = pts[V[:, 1]] - c0, pts[V[:, 2]] - c0, pts[V[:, 3]] - c0
-        bc, ca, ab = np.cross(b, c), np.cross(c, a), np.cross(a, b)
-        det = _dot(a, bc)
-        rel = centre[own_idx] - c0
-        l1, l2, l3 = _dot(rel, bc) / det, _dot(rel, ca) / det, _dot(rel, ab) / det
-        lam = np.column_stack([1 - (l1 + l2 + l3), l1, l2, l3])
-        out["inside"] = np.all(lam > -_LAM_TOL, axis=1)
-        out["on_face"] = np.abs(lam) <= _LAM_TOL
+        inside = np.empty(n_own, bool)
+        on_face = np.empty((n_own, 4), bool)
+        for a0 in range(0, n_own, _CHUNK):
+            sl = slice(a0, a0 + _CHUNK)
+            V = G[own_idx[sl]]
+            c0 = pts[V[:, 0]]
+            a, b, c = pts[V[:, 1]] - c0, pts[V[:, 2]] - c0, pts[V[:, 3]] - c0
+            bc, ca, ab = np.cross(b, c), np.cross(c, a), np.cross(a, b)
+            det = _dot(a, bc)
+            rel = centre[own_idx[sl]] - c0
+            l1, l2, l3 = _dot(rel, bc) / det, _dot(rel, ca) / det, _dot(rel, ab) / det
+            lam = np.column_stack([1 - (l1 + l2 + l3), l1, l2, l3])
+            inside[sl] = np.all(lam > -_LAM_TOL, axis=1)
+            on_face[sl] = np.abs(lam) <= _LAM_TOL
+        out["inside"] = inside
+        out["on_face"] = on_face
     # channel passages through the faces of the canonical kept tetrahedra
     if geo["channels"] and n_own:
-        f = fc[own_idx]
-        snapped = np.where(np.abs(f - np.round(f)) < 1e-9, np.round(f), f)
-        canon = np.all(~pbc | ((snapped >= 0) & (snapped < 1)), axis=1)
         W = np.full((n_own, 4), np.nan)
-        ci = np.nonzero(canon)[0]
-        t = own_idx[ci]
-        for i in range(4):
-            u = NB[t, i]
-            m = (u >= 0) & inE[np.maximum(u, 0)]
-            if not m.any():
-                continue
-            tt, uu = t[m], u[m]
-            face = np.delete(G[tt], i, axis=1)
-            p0 = pts[face[:, 0]]
-            a = pts[face[:, 1]] - p0
-            b = pts[face[:, 2]] - p0
-            _, rf = _face_bottleneck(p0, a, b, rad[face[:, 0]], rad[face[:, 1]], rad[face[:, 2]])
-            nrm = np.cross(a, b)
-            s1 = _dot(centre[tt] - p0, nrm)
-            s2 = _dot(centre[uu] - p0, nrm)
-            cross = (s1 * s2) <= 0
-            W[ci[m], i] = np.where(cross & np.isfinite(rf), rf, np.minimum(r[tt], r[uu]))
+        ci_all = np.nonzero(canon)[0]
+        for a0 in range(0, len(ci_all), _CHUNK):
+            ci = ci_all[a0:a0 + _CHUNK]
+            t = own_idx[ci]
+            for i in range(4):
+                u = NB[t, i]
+                m = (u >= 0) & inE[np.maximum(u, 0)]
+                if not m.any():
+                    continue
+                tt, uu = t[m], u[m]
+                face = np.delete(G[tt], i, axis=1)
+                p0 = pts[face[:, 0]]
+                a = pts[face[:, 1]] - p0
+                b = pts[face[:, 2]] - p0
+                _, rf = _face_bottleneck(p0, a, b, rad[face[:, 0]], rad[face[:, 1]], rad[face[:, 2]])
+                nrm = np.cross(a, b)
+                s1 = _dot(centre[tt] - p0, nrm)
+                s2 = _dot(centre[uu] - p0, nrm)
+                cross = (s1 * s2) <= 0
+                W[ci[m], i] = np.where(cross & np.isfinite(rf), rf, np.minimum(r[tt], r[uu]))
         out["W"] = W
-        out["canon"] = canon
         if len(flat_idx):
             f3 = G[flat_idx][:, 1:]
             p0 = pts[f3[:, 0]]
@@ -605,6 +727,10 @@ def _slab(geo, cut_lo, cut_hi):
 
 
 _LAM_TOL = 1e-7
+#: scipy's default options for a 3-d Delaunay plus Q5 (skip Qhull's final
+#: search for the outer planes, which only reports the precision reached and
+#: changes no facet; about 15 % of the triangulation time).
+_QHULL_OPTIONS = "Qbb Qc Qz Q12 Q5"
 
 
 def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, equal, tolerance, channels, n):
@@ -627,60 +753,76 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
         n_own = p["n_own"]
         return np.where(local < n_own, offs_own[j] + local, offs_flat[j] + local - n_own)
 
-    V = np.empty((NR, 4), np.int64)
-    centre = np.empty((K, 3))
-    fcen = np.empty((K, 3))
+    idt = _index_type(max(NR + 1, len(pts)))
+    V = np.empty((NR, 4), idt)
     r = np.empty(K)
-    nb = np.empty((NR, 4), np.int64)
-    for j, p in enumerate(parts):
-        no, nf = p["n_own"], p["n_flat"]
-        V[offs_own[j]:offs_own[j] + no] = p["V"][:no]
-        V[offs_flat[j]:offs_flat[j] + nf] = p["V"][no:]
-        centre[offs_own[j]:offs_own[j] + no] = p["centre"][:no]
-        fcen[offs_own[j]:offs_own[j] + no] = p["fc"][:no]
-        r[offs_own[j]:offs_own[j] + no] = p["r"][:no]
-        loc = p["nb"]
-        g = np.where(loc >= 0, glob(p, j, np.maximum(loc, 0)), loc)
-        nb[offs_own[j]:offs_own[j] + no] = g[:no]
-        nb[offs_flat[j]:offs_flat[j] + nf] = g[no:]
-    # neighbours owned by another slab: matched by their four atoms
+    wc = np.empty((K, 3))
+    canon = np.empty(K, bool)
+    nb = np.empty((NR, 4), idt)
+    if not equal:
+        centre = np.empty((K, 3))
+        wrapped = np.empty((K, 3))
+    # neighbours owned by another slab: matched by their four atoms (sorted keys)
     pend = [(j, p) for j, p in enumerate(parts) if len(p["pend_rows"])]
+    found = None
     if pend:
         ek = np.vstack([p["exp_keys"] for p in parts])
-        er = np.concatenate([offs_own[j] + p["exp_rows"] for j, p in enumerate(parts)])
+        er = np.concatenate([offs_own[j] + p["exp_rows"].astype(np.int64) for j, p in enumerate(parts)])
         pk = np.vstack([p["pend_keys"] for _, p in pend])
-        u, inv_ = np.unique(np.vstack([ek, pk]), axis=0, return_inverse=True)
-        inv_ = inv_.reshape(-1)
-        lut = np.full(len(u), -1, np.int64)
-        lut[inv_[:len(ek)]] = er
-        found = lut[inv_[len(ek):]]
-        a = 0
-        for j, p in pend:
+        allk = np.vstack([ek, pk])
+        o = np.lexsort((allk[:, 3], allk[:, 2], allk[:, 1], allk[:, 0]))
+        ks = allk[o]
+        new = np.ones(len(o), bool)
+        new[1:] = np.any(ks[1:] != ks[:-1], axis=1)
+        gk = np.empty(len(o), np.int64)
+        gk[o] = np.cumsum(new) - 1
+        del ks, new, o, allk
+        lut = np.full(int(gk.max()) + 1, -1, np.int64)
+        lut[gk[:len(ek)]] = er
+        found = lut[gk[len(ek):]]
+        del gk, lut, ek, er, pk
+    a = 0
+    for j, p in enumerate(parts):
+        no, nf = p["n_own"], p["n_flat"]
+        so, sf = slice(offs_own[j], offs_own[j] + no), slice(offs_flat[j], offs_flat[j] + nf)
+        pv = p.pop("V")
+        V[so], V[sf] = pv[:no], pv[no:]
+        r[so] = p.pop("r")
+        wc[so] = p.pop("wc")
+        canon[so] = p.pop("canon")
+        if not equal:
+            centre[so] = p.pop("centre")
+            wrapped[so] = p.pop("wrapped")
+        loc = p.pop("nb")
+        g = np.where(loc >= 0, glob(p, j, np.maximum(loc, 0)), -1)
+        if len(p["pend_rows"]):
             m = len(p["pend_rows"])
-            rows = glob(p, j, p["pend_rows"])
-            nb[rows, p["pend_cols"]] = found[a:a + m]
+            g[p["pend_rows"], p["pend_cols"]] = found[a:a + m]
             a += m
-    nb[nb < 0] = -1
-    for p in parts:               # free the slab copies
-        for key in ("V", "centre", "fc", "r", "nb", "pend_keys", "exp_keys"):
+        nb[so], nb[sf] = g[:no], g[no:]
+        del pv, loc, g
+        for key in ("pend_keys", "exp_keys", "pend_rows", "pend_cols", "exp_rows"):
             p.pop(key, None)
-
-    f = fcen
-    snapped = np.where(np.abs(f - np.round(f)) < 1e-9, np.round(f), f)
-    canon = np.all(~pbc | ((snapped >= 0) & (snapped < 1)), axis=1)
-    wrapped = np.where(pbc, snapped - np.floor(snapped), snapped)
-    wrapped = np.where(wrapped >= 1 - 1e-12, 0.0, wrapped)
-    del snapped
-    wc = wrapped @ cell
+    del found
     # merge degenerate duplicates: same centre (to 1e-5 A)
     q = np.floor((wc + 3.1e-6) / 1e-5).astype(np.int64)
-    o = np.lexsort((q[:, 2], q[:, 1], q[:, 0]))
-    qs = q[o]
-    new = np.ones(K, bool)
-    new[1:] = np.any(qs[1:] != qs[:-1], axis=1)
+    q -= q.min(axis=0) if K else 0
+    span_q = q.max(axis=0) + 1 if K else np.ones(3, np.int64)
+    if float(span_q[1]) * float(span_q[2]) < 2.0 ** 62:      # two sort keys instead of three
+        q12 = q[:, 1] * span_q[2] + q[:, 2]
+        o = np.lexsort((q12, q[:, 0]))
+        new = np.ones(K, bool)
+        new[1:] = (q12[o][1:] != q12[o][:-1]) | (q[o, 0][1:] != q[o, 0][:-1])
+        del q12
+    else:
+        o = np.lexsort((q[:, 2], q[:, 1], q[:, 0]))
+        qs = q[o]
+        new = np.ones(K, bool)
+        new[1:] = np.any(qs[1:] != qs[:-1], axis=1)
+        del qs
     gid_kept = np.empty(K, np.int64)
     gid_kept[o] = np.cumsum(new) - 1
-    del q, qs, o, new
+    del q, o, new
     rk = r
     kq = 16 if tree.n >= 16 else tree.n
     if not equal:
@@ -703,7 +845,7 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
         _, gid_kept = np.unique(lab[:K], return_inverse=True)
         gid_kept = gid_kept.reshape(-1)
     ng = int(gid_kept.max()) + 1
-    group = np.full(NR + 1, -1, np.int64)       # the last entry stands for "no neighbour"
+    group = np.full(NR + 1, -1, _index_type(max(ng, NR) + 1))   # the last entry stands for "no neighbour"
     group[:K] = gid_kept
 
     # one representative per group: the largest radius, canonical copy first
@@ -738,32 +880,56 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
         inside = np.all(lam > -_LAM_TOL, axis=1)
         on_face = np.abs(lam) <= _LAM_TOL
     good = inside & np.all(~on_face | internal, axis=1)
-    del inside, on_face, internal
+    del inside, on_face, internal, nbg, nbk
     is_max = np.zeros(ng, bool)
     if good.any():
         is_max[gid_kept[good]] = True
+    del good, V, wc, r, rk, rep, canon       # what the channels need is nb, group and the parts
+    if not equal:
+        del centre, wrapped
 
     # check against nearby atoms (true free radius) and find the bounding atoms
     maxg = np.nonzero(is_max)[0]
-    d, j = tree.query(g_pos[maxg], k=kq, workers=-1)
-    slack = d - radii_atoms[idx_t[j]]
-    true_r = slack.min(axis=1)
-    g_r_max = np.minimum(g_r[maxg], true_r)
+    M = len(maxg)
     rmean_all = float(radii_atoms.mean())
-    bound = slack <= (g_r_max[:, None] + tolerance * rmean_all)
-    ncont = bound.sum(1)
-    nbr_atoms = np.where(bound, idx_t[j], -1)
-    rb = np.where(bound, radii_atoms[idx_t[j]], 0.0)
-    rbar = rb.sum(1) / np.maximum(ncont, 1)
+    g_r_max = np.empty(M)
+    ncont = np.empty(M, np.int64)
+    rbar = np.empty(M)
+    nbr_all = np.empty((M, kq), _index_type(n))
+    # the holes in order of size, so that each chunk's query can stop at the
+    # distance where no atom can bound its largest hole any more
+    by_size = np.argsort(g_r[maxg], kind="stable")
+    rmax_all = float(radii_atoms.max())
+    for a0 in range(0, M, _QUERY_CHUNK):
+        sl = by_size[a0:a0 + _QUERY_CHUNK]
+        gq = g_r[maxg[sl]]
+        reach_q = (float(gq.max()) + tolerance * rmean_all + rmax_all) * (1 + 1e-9) + 1e-6
+        d, j = tree.query(g_pos[maxg[sl]], k=kq, distance_upper_bound=reach_q)
+        lost = ~np.isfinite(d[:, 0])
+        if lost.any():          # cannot happen (the hole touches its own atoms); kept safe
+            d[lost], j[lost] = tree.query(g_pos[maxg[sl[lost]]], k=kq)
+        aj = idx_t[np.minimum(j, len(idx_t) - 1)]
+        del j
+        ra = radii_atoms[aj]
+        slack = d - ra
+        del d
+        gm = np.minimum(gq, slack.min(axis=1))
+        bound = slack <= (gm[:, None] + tolerance * rmean_all)
+        del slack
+        nc = bound.sum(1)
+        rbar[sl] = np.where(bound, ra, 0.0).sum(1) / np.maximum(nc, 1)
+        srt = np.argsort(~bound, axis=1, kind="stable")
+        nbr_all[sl] = np.take_along_axis(np.where(bound, aj, -1), srt, axis=1)
+        g_r_max[sl], ncont[sl] = gm, nc
+        del aj, ra, bound, srt
     ratio = np.where(rbar > 0, g_r_max / np.where(rbar > 0, rbar, 1.0), np.nan)
-    kinds = np.full(len(maxg), "other", dtype="<U11")
+    kinds = np.full(M, "other", dtype="<U11")
     kinds[ncont == 4] = "tetrahedral"
     kinds[ncont == 6] = "octahedral"
     kinds[ncont == 8] = "cubic"
     kinds[(ncont >= 8) & (ratio >= 0.8)] = "vacancy"
-    srt = np.argsort(~bound, axis=1, kind="stable")
-    nbr_atoms = np.take_along_axis(nbr_atoms, srt, axis=1)[:, : max(int(ncont.max()), 1)] if len(maxg) else \
-        np.zeros((0, 1), np.int64)
+    nbr_atoms = nbr_all[:, : max(int(ncont.max()), 1)].astype(np.int64) if M else np.zeros((0, 1), np.int64)
+    del nbr_all
 
     ch = np.zeros((0, 2), np.int64)
     bn = np.zeros(0)
@@ -780,7 +946,14 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
 
 def _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max):
     """(pairs (M,2) of group ids, bottleneck radius (M,)) between maximum holes."""
-    pairs, widths = [], []
+    ng = len(is_max)
+    key_parts, width_parts = [], []
+
+    def add(g1, g2, w):
+        g1, g2 = g1.astype(np.int64), g2.astype(np.int64)
+        key_parts.append(np.minimum(g1, g2) * ng + np.maximum(g1, g2))
+        width_parts.append(w)
+
     # flat (zero-volume) tetrahedra lie in a passage (e.g. the square face
     # between two simple-cubic holes): they join every hole around them.
     if NR > K:
@@ -793,8 +966,7 @@ def _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max):
             for k in range(i + 1, 4):
                 m = (ng4[:, i] >= 0) & (ng4[:, k] >= 0) & (ng4[:, i] != ng4[:, k]) & np.isfinite(rf)
                 if m.any():
-                    pairs.append(np.column_stack([ng4[m, i], ng4[m, k]]))
-                    widths.append(rf[m])
+                    add(ng4[m, i], ng4[m, k], rf[m])
     W = np.concatenate([p.pop("W") for p in parts])
     nbk = nb[:K]
     for i in range(4):
@@ -805,28 +977,51 @@ def _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max):
         g2 = group[np.where(u >= 0, u, NR)]
         m = (g2 >= 0) & (g2 != g1)
         if m.any():
-            pairs.append(np.column_stack([g1[m], g2[m]]))
-            widths.append(w[t[m]])
-    if not pairs:
+            add(g1[m], g2[m], w[t[m]])
+        del t, g1, u, g2, m
+    del W
+    if not key_parts:
         return np.zeros((0, 2), np.int64), np.zeros(0)
-    P = np.sort(np.vstack(pairs), axis=1)
-    Wd = np.concatenate(widths)
-    P, Wd = _widest(P, Wd)
+    keys = np.concatenate(key_parts)
+    Wd = np.concatenate(width_parts)
+    key_parts.clear()
+    width_parts.clear()
+    P, Wd = _widest_keys(keys, Wd, ng)
+    del keys
     if not np.all(is_max):
         P, Wd = _contract(P, Wd, is_max)
     return P, Wd
+
+
+def _widest_keys(keys, W, ng):
+    """_widest of the pairs given as keys x * ng + y."""
+    o = np.argsort(keys)           # any order among equal keys: only their maximum is kept
+    ks = keys[o]
+    start = np.ones(len(ks), bool)
+    np.not_equal(ks[1:], ks[:-1], out=start[1:])
+    idx = np.nonzero(start)[0]
+    del start
+    u = ks[idx]
+    del ks
+    Wm = np.maximum.reduceat(W[o], idx)
+    del o
+    return _pairs_of(u, ng), Wm
+
+
+def _pairs_of(keys, ng):
+    P = np.empty((len(keys), 2), np.int64)
+    np.floor_divide(keys, ng, out=P[:, 0])
+    np.subtract(keys, P[:, 0] * ng, out=P[:, 1])
+    return P
 
 
 def _widest(P, W):
     """Unique pairs, keeping the widest passage of each."""
     if len(P) == 0:
         return P, W
-    o = np.lexsort((P[:, 1], P[:, 0]))
-    P, W = P[o], W[o]
-    start = np.ones(len(P), bool)
-    start[1:] = np.any(P[1:] != P[:-1], axis=1)
-    idx = np.nonzero(start)[0]
-    return P[idx], np.maximum.reduceat(W, idx)
+    P = np.asarray(P, np.int64)
+    ng = int(P.max()) + 1
+    return _widest_keys(P[:, 0] * ng + P[:, 1], W, ng)
 
 
 def _contract(P, W, is_max):
@@ -856,6 +1051,21 @@ def _contract(P, W, is_max):
     if extra:
         EP = np.array([[x, y] for x, y, _ in extra], np.int64)
         EW = np.array([w for _, _, w in extra])
+        if len(direct_P) == 0:
+            return _widest(EP, EW)
+        # the direct pairs are unique and sorted already: merge the few new ones in
+        ng = int(max(direct_P.max(), EP.max())) + 1
+        dk = direct_P[:, 0].astype(np.int64) * ng + direct_P[:, 1]
+        if np.all(dk[1:] > dk[:-1]):
+            ek, EW = _widest_keys(EP[:, 0] * ng + EP[:, 1], EW, ng)
+            ek = ek[:, 0] * ng + ek[:, 1]
+            at = np.searchsorted(dk, ek)
+            hit = at < len(dk)
+            hit[hit] = dk[at[hit]] == ek[hit]
+            W = direct_W.copy()
+            np.maximum.at(W, at[hit], EW[hit])
+            keys = np.insert(dk, at[~hit], ek[~hit])
+            return _pairs_of(keys, ng), np.insert(W, at[~hit], EW[~hit])
         P = np.vstack([direct_P, EP])
         W = np.concatenate([direct_W, EW])
         return _widest(P, W)
