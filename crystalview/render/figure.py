@@ -187,6 +187,27 @@ def make_layout(scene, size, legend=True, scale_bar=True, caption=True, dpi=None
 
 
 # ================================================================ public API
+def figure_size(size, width, height, dpi, what="figure"):
+    """(pixel size, width in mm or None) from --size W H (pixels) or
+    --width/--height with units (85 mm wide by default); a height of None
+    means "what the content needs".
+
+    >>> figure_size(None, "85mm", None, 300)
+    ((1004, None), 85.0)
+    """
+    from . import text as T
+
+    if size is not None and (width is not None or height is not None):
+        raise UserError(f"give the {what}'s size either as --width/--height (mm, cm, in) or as --size W H "
+                        f"(pixels), not both")
+    if size is not None:
+        return S.check_size(size), None
+    w_mm = T.parse_length(width if width is not None else "85mm", "--width")
+    h_mm = T.parse_length(height, "--height") if height is not None else None
+    size = S.check_size((w_mm / 25.4 * dpi, (h_mm if h_mm else w_mm) / 25.4 * dpi))
+    return (size if h_mm is not None else (size[0], None)), w_mm
+
+
 def render(crystal, path, view=None, style="ball-and-stick", size=None, dpi=300, transparent=False,
            *, up=None, sites=False, polyhedra=None, planes=(), directions=(), layers=None, defects=True,
            slip_axis=None, cell=None, legend=True, scale_bar=True, caption=True, force=False, cell_shape=None,
@@ -221,18 +242,7 @@ def render(crystal, path, view=None, style="ball-and-stick", size=None, dpi=300,
     check_target(p, force=force, suffixes=SUFFIXES)
     dpi = S.check_dpi(dpi)
     font_pt = T.check_font_pt(font_size if font_size is not None else T.FONT_PT)
-    if size is not None and (width is not None or height is not None):
-        raise UserError("give the figure's size either as --width/--height (mm, cm, in) or as --size W H "
-                        "(pixels), not both")
-    w_mm = None
-    if size is not None:
-        size = S.check_size(size)
-    else:
-        w_mm = T.parse_length(width if width is not None else "85mm", "--width")
-        h_mm = T.parse_length(height, "--height") if height is not None else None
-        size = S.check_size((w_mm / 25.4 * dpi, (h_mm if h_mm else w_mm) / 25.4 * dpi))
-        if h_mm is None:
-            size = (size[0], None)
+    size, w_mm = figure_size(size, width, height, dpi)
     st = S.get_style(style)
     scene = build_scene(crystal, st, view, up, sites=sites, polyhedra=polyhedra, planes=planes,
                         directions=directions, layers=layers, defects=defects, slip_axis=slip_axis, cell=cell,

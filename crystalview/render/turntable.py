@@ -145,18 +145,9 @@ def turntable(crystal, path, view=None, style="ball-and-stick", size=None, dpi=N
     check_turntable_size(len(crystal))            # before anything is built
     dpi = S.check_dpi(dpi if dpi is not None else DEFAULT_DPI)
     font_pt = T.check_font_pt(font_size if font_size is not None else T.FONT_PT)
-    if size is not None and (width is not None or height is not None):
-        raise UserError("give the animation's size either as --width/--height (mm, cm, in) or as --size W H "
-                        "(pixels), not both")
-    w_mm = None
-    if size is not None:
-        size = S.check_size(size)
-    else:
-        w_mm = T.parse_length(width if width is not None else "85mm", "--width")
-        h_mm = T.parse_length(height, "--height") if height is not None else None
-        size = S.check_size((w_mm / 25.4 * dpi, (h_mm if h_mm else w_mm) / 25.4 * dpi))
-        if h_mm is None:
-            size = (size[0], None)
+    from .figure import figure_size
+
+    size, w_mm = figure_size(size, width, height, dpi, what="animation")
     st = S.get_style(style)
     scene = build_scene(crystal, st, view, up, sites=sites, polyhedra=polyhedra, planes=planes,
                         directions=directions, layers=layers, defects=defects, slip_axis=slip_axis, cell=cell,
