@@ -10,6 +10,11 @@ $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PY) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet -e '.[test]'
+	# the cairo 2D library behind figures (cairocffi loads it): installed with apt where we are root and it is missing
+	-@if ! ldconfig -p 2>/dev/null | grep -q libcairo.so.2; then \
+	  if command -v apt-get >/dev/null && [ "$$(id -u)" = 0 ]; then \
+	    (apt-get update -qq && apt-get install -y -qq libcairo2 >/dev/null) || echo "note: could not install libcairo2; figures fall back to the 3D raster and SVG/PDF are refused"; \
+	  else echo "note: libcairo2 is missing and there is no root apt-get: install it (apt install libcairo2) for SVG/PDF figures"; fi; fi
 	# the Khronos glTF validator, used by the tests (skipped only where npm is absent)
 	-command -v npm >/dev/null && npm install --no-save --silent gltf-validator@2.0.0-dev.3.10
 	touch $(STAMP)
