@@ -59,6 +59,7 @@ _API = {
     "slip_systems": "crystalview.analysis.slip:slip_systems",
     "schmid_factors": "crystalview.analysis.slip:schmid_factors",
     "slip_overlay": "crystalview.analysis.slip:slip_overlay",
+    "slip_report": "crystalview.analysis.slip:slip_report",
     "taylor_factor": "crystalview.analysis.slip:taylor_factor",
     "independent_slip_systems": "crystalview.analysis.slip:independent_slip_systems",
     # figures, meshes, files

@@ -481,8 +481,10 @@ def _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0
         caution = True
     if "slip" in a:
         sl = a["slip"]
-        res = cv.schmid_factors(crystal, sl["axis"], families=sl.get("families"), stress=sl.get("stress"),
-                                crss=sl.get("crss"))
+        from .analysis.slip import slip_report
+
+        res = slip_report(crystal, sl["axis"], families=sl.get("families"), stress=sl.get("stress"),
+                          crss=sl.get("crss"))
         _write_json(at("slip.json"), _plain(res), True)
         done(at("slip.json"), f"Schmid factors along {sl['axis']}")
         caution = caution or "crss" in sl

@@ -129,8 +129,8 @@ def test_metal_files_match_the_built_in_structure(name, cli):
     rc2, out2, _ = cli("slip", el, "--lattice", lattice, "-a", a, *(["-c", cc] if lattice == "hcp" else []),
                        "--axis", "[001]", "--json")
     assert rc1 == rc2 == 0
-    m1 = sorted((r["plane"], r["direction"], round(r["schmid_factor"], 6)) for r in json.loads(out1))
-    m2 = sorted((r["plane"], r["direction"], round(r["schmid_factor"], 6)) for r in json.loads(out2))
+    m1 = sorted((r["plane"], r["direction"], round(r["schmid_factor"], 6)) for r in json.loads(out1)["systems"])
+    m2 = sorted((r["plane"], r["direction"], round(r["schmid_factor"], 6)) for r in json.loads(out2)["systems"])
     assert m1 == m2
     # density to the precision of the file's lattice constants (same atoms, same cell)
     assert cv.density(c) == pytest.approx(cv.density(ref), rel=1e-9)

@@ -343,13 +343,30 @@ def test_cli_text(capsys):
 
 def test_cli_json(capsys):
     assert main(["slip", "Mg", "--axis", "[0001]", "--json", "--stress", "10", "--crss", "basal=0.5"]) == 0
-    data = json.loads(capsys.readouterr().out)
-    assert isinstance(data, list) and len(data) == 18
+    rep = json.loads(capsys.readouterr().out)
+    assert rep["axis"] == "[0001]" and rep["caution"] == cv.CAUTION
+    assert rep["systems_at_highest"] == 6 and rep["independent_slip_systems"] == 5
+    # no basal yield along c: basal m = 0 (Schmid's law; common practice)
+    assert rep["first_to_yield"] is None
+    data = rep["systems"]
+    assert len(data) == 18
     for d in data:
         assert {"family", "plane", "direction", "schmid_factor", "resolved_shear_stress_MPa"} <= set(d)
         if d["family"] == "basal":
             assert d["schmid_factor"] == 0 and d["yield_stress_MPa"] is None
     assert sum(d["most_favoured"] for d in data) == 6
+
+
+def test_cli_json_taylor_and_format_json_agree(capsys):
+    assert main(["slip", "Cu", "--axis", "[001]", "--json"]) == 0
+    rep = json.loads(capsys.readouterr().out)
+    # source: Taylor factor 3.06 for a random FCC polycrystal with {111}<110> slip (Taylor 1938,
+    # Bishop & Hill 1951; from memory); m = 1/sqrt(6) = 0.408 on 8 systems along [001] (common practice)
+    assert rep["taylor_factor"]["value"] == pytest.approx(3.06)
+    assert rep["highest_schmid_factor"] == pytest.approx(1 / math.sqrt(6)) and rep["systems_at_highest"] == 8
+    assert "caution" not in rep            # no stress, no yield: nothing that feeds a decision
+    assert main(["slip", "Cu", "--axis", "[001]", "--format", "json"]) == 0
+    assert json.loads(capsys.readouterr().out) == rep
 
 
 @pytest.mark.parametrize("argv,words", [

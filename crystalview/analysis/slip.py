@@ -475,6 +475,48 @@ def taylor_factor(crystal, families=None):
     return base
 
 
+def slip_report(crystal, axis, families=None, stress=None, crss=None):
+    """Everything ``slip --json`` prints, as one plain dict: the crystal, the
+    load axis, every system (highest Schmid factor first), the highest factor
+    and how many systems share it, the independent systems, the Taylor factor
+    with its source, the single-crystal yield that Schmid's law predicts
+    (with ``crss``), and the caution whenever a stress or yield is reported.
+
+    >>> import crystalview as cv
+    >>> r = slip_report(cv.build("Cu"), "[001]")
+    >>> r["axis"], len(r["systems"]), round(r["highest_schmid_factor"], 4), r["systems_at_highest"]
+    ('[001]', 12, 0.4082, 8)
+    >>> r["taylor_factor"]["value"], r["independent_slip_systems"]
+    (3.06, 5)
+    """
+    from .. import CAUTION
+
+    res = schmid_factors(crystal, axis, families=families, stress=stress, crss=crss)
+    _t, label = load_axis(crystal, axis)
+    fams = list(dict.fromkeys(r.family for r in res))
+    lat = crystal.lattice
+    tf = taylor_factor(crystal, fams) if fams else None
+    first = first_to_yield(res)
+    out = {
+        "name": crystal.metadata.get("name") or "/".join(lat.elements),
+        "structure": lat.title,
+        "axis": label,
+        "families": fams,
+        "systems": [r.as_dict() for r in res],
+        "highest_schmid_factor": res[0].schmid_factor if res else None,
+        "systems_at_highest": sum(r.most_favoured for r in res),
+        "independent_slip_systems": independent_slip_systems(crystal, fams) if fams else 0,
+        "taylor_factor": tf,
+        "first_to_yield": None if first is None else {
+            "family": first.family, "plane": first.plane, "direction": first.direction,
+            "schmid_factor": first.schmid_factor, "crss_MPa": first.crss_MPa,
+            "yield_stress_MPa": first.yield_stress_MPa},
+    }
+    if stress is not None or crss:
+        out["caution"] = CAUTION
+    return out
+
+
 # ------------------------------------------------------------------ figure overlay
 def slip_overlay(crystal, axis, families=None, cartesian=False):
     """What a figure needs to draw the most favoured slip system for a load

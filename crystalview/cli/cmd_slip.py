@@ -25,8 +25,8 @@ def register(sub):
     p.add_argument("--crss", action="append", default=None, metavar="MPA|FAMILY=MPA",
                    help="critical resolved shear stress in MPa, for every family or per family "
                         "(repeatable), e.g. --crss 0.5 or --crss basal=0.5 --crss prismatic=40")
-    p.add_argument("--json", action="store_true", help="print JSON only: a list of systems")
-    p.add_argument("--format", choices=FORMATS, help="table (default), csv, md (Markdown) or json: one row per system")
+    p.add_argument("--json", action="store_true", help="print JSON only: the load axis, every system, the Taylor factor and (with a stress) the caution")
+    p.add_argument("--format", choices=FORMATS, help="table (default), csv or md (Markdown): one row per system; json: as --json")
     p.set_defaults(func=run)
 
 
@@ -57,19 +57,19 @@ def run(args):
     c = crystal_from_args(args)
     crss = _crss_arg(args.crss)
     res = schmid_factors(c, args.axis, families=args.family, stress=args.stress, crss=crss)
-    if args.json or args.format in ("json", "csv", "md"):
-        rows = [r.as_dict() for r in res]             # the list stays a list (the JSON contract)
-        if args.stress is not None or crss:
-            rows = [dict(r, caution=CAUTION) for r in rows]
-        if args.format in ("csv", "md"):
-            from .common import emit_table
+    if args.json or args.format == "json":
+        from ..analysis.slip import slip_report
 
-            cols = [k for k in rows[0] if k != "caution"] if rows else []
-            emit_table(rows, cols, args.format)
-            if args.stress is not None or crss:
-                sys.stderr.write(CAUTION + "\n")
-            return 0
-        print_json(rows)
+        print_json(slip_report(c, args.axis, families=args.family, stress=args.stress, crss=crss))
+        return 0
+    if args.format in ("csv", "md"):
+        from .common import emit_table
+
+        rows = [r.as_dict() for r in res]
+        cols = list(rows[0]) if rows else []
+        emit_table(rows, cols, args.format)
+        if args.stress is not None or crss:
+            sys.stderr.write(CAUTION + "\n")
         return 0
     _t, axis_label = load_axis(c, args.axis)
     fams = sorted({r.family for r in res}, key=list(FAMILIES).index)
