@@ -12,10 +12,7 @@ from __future__ import annotations
 
 import importlib
 
-__version__ = "0.1.0"
-
-CAUTION = ("Caution: this is a geometric screening aid, not a design allowable; defer to the "
-           "applicable material standards, codes and qualified testing.")
+from .about import CAUTION, __version__  # noqa: F401
 
 # public name -> "module:attribute"
 _API = {
@@ -65,7 +62,7 @@ _API = {
     # figures, meshes, files
     "render": "crystalview.render.figure:render",
     "show": "crystalview.render.viewer:show",
-    "print_model": "crystalview.mesh.printable:print_model",
+    "print_model": "crystalview.exchange.model:print_model",
     "export": "crystalview.exchange:export",
     "read_cif": "crystalview.exchange.cif:read_cif",
     "run_scene": "crystalview.scene:run_scene",

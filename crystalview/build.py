@@ -12,7 +12,7 @@ import numpy as np
 from . import elements as E
 from .crystal import Crystal, LatticeInfo
 from .errors import UserError, suggest
-from .lattice import _gcd_reduce, cell_from_parameters, cell_parameters, parse_indices
+from .lattice import _gcd_reduce, cell_from_parameters, cell_nn_distance, cell_parameters, parse_indices
 from .prototypes import PROTOTYPES, is_lattice, prototype
 
 from .limits import (BYTES_PER_ATOM, DEFAULT_MAX_ATOMS, GIVEN, cap_value, check_atom_count,  # noqa: F401
@@ -143,14 +143,7 @@ def _a_from_radius(proto, r):
     return 2.0 * r / d
 
 
-def _nn_distance(cell, frac):
-    """Nearest-neighbour distance of a small periodic cell (brute force over images)."""
-    cart = np.asarray(frac) @ cell
-    shifts = np.array(list(itertools.product((-1, 0, 1), repeat=3)), float) @ cell
-    d = cart[:, None, None, :] - cart[None, :, None, :] + shifts[None, None, :, :]
-    r = np.linalg.norm(d, axis=-1)
-    r = r[r > 1e-8]
-    return float(r.min())
+_nn_distance = cell_nn_distance     # the old private name
 
 
 #: Accepted conventional-cell edge a (A): every element's conventional cell lies

@@ -7,7 +7,6 @@ come from the ``periodictable`` package.
 from __future__ import annotations
 
 import functools
-import math
 from dataclasses import dataclass, field
 from importlib import resources
 
@@ -15,8 +14,6 @@ try:
     import tomllib
 except ModuleNotFoundError:  # Python < 3.11
     import tomli as tomllib
-
-import numpy as np
 
 from .errors import UserError, suggest
 
@@ -286,80 +283,3 @@ def bonding_of(composition):
     if not other and small / total <= 0.3:
         return "metallic"
     return "non-metallic"
-
-
-def structure_radii(crystal):
-    """Hard-sphere radius of every species of a crystal read from a file,
-    chosen by its bonding, as {symbol: {radius_A, kind, source}}:
-
-    * a recognised metal lattice (fcc, bcc, hcp, ..., also ordered or
-      disordered alloys on it): half the nearest-neighbour distance for every
-      species (touching spheres), as for the built-in structures;
-    * one species on any other structure: half the nearest-neighbour distance;
-    * metallic bonding otherwise: the CN12 metallic radius of each metal
-      (the covalent radius where the data has none, said so) and the
-      interstitial radius of H, B, C, N;
-    * non-metallic structures (oxides, halides, ...): covalent radii.
-
-    >>> import crystalview as cv
-    >>> structure_radii(cv.build("Cu"))["Cu"]["kind"]
-    'touching spheres of the lattice'
-    """
-    from .analysis.neighbours import nearest_neighbour_distance
-
-    comp = crystal.counts()
-    species = list(comp)
-    bonding = bonding_of(comp)
-    lat = crystal.lattice
-    out = {}
-    recognised = lat is not None and lat.prototype != "cif"
-    if recognised and bonding == "metallic" and len(species) > 1:
-        # the lattice's own species touch; atoms off it or foreign to it get their own radius
-        from .build import _nn_distance
-        from .occupancy import parse_signature
-
-        on = {s for sig in (lat.site_species or lat.elements) for s, _ in parse_signature(sig)}
-        dnn = _nn_distance(np.asarray(lat.cell, float), np.asarray(lat.basis_frac, float))
-        for s in species:
-            if s in on:
-                out[s] = {"radius_A": dnn / 2.0, "kind": "touching spheres of the lattice",
-                          "source": "half the nearest-neighbour distance of this structure"}
-            elif s in _data()["interstitials"]:
-                i = interstitial(s)
-                out[s] = {"radius_A": float(i.radius), "kind": "interstitial", "source": i.source}
-            elif s in _data()["elements"] and element(s).metallic_radius is not None:
-                e = element(s)
-                out[s] = {"radius_A": float(e.metallic_radius), "kind": "metallic (CN12)",
-                          "source": e.sources["metallic_radius"]}
-            else:
-                out[s] = {"radius_A": covalent_radius(s), "kind": "covalent (no metallic radius in the data)",
-                          "source": COVALENT_SOURCE}
-        return out
-    if (recognised and bonding == "metallic") or len(species) == 1:
-        if recognised:
-            from .build import _nn_distance
-
-            dnn = _nn_distance(np.asarray(lat.cell, float), np.asarray(lat.basis_frac, float))
-        else:
-            from .occupancy import realise
-
-            dnn = nearest_neighbour_distance(realise(crystal, 0) if len(crystal) > 1 else crystal)
-        if math.isfinite(dnn) and dnn > 0:
-            kind = "touching spheres of the lattice" if recognised else "touching spheres (half the shortest distance)"
-            for s in species:
-                out[s] = {"radius_A": dnn / 2.0, "kind": kind,
-                          "source": "half the nearest-neighbour distance of this structure"}
-            return out
-    for s in species:
-        if bonding == "metallic" and s in _data()["interstitials"]:
-            i = interstitial(s)
-            out[s] = {"radius_A": float(i.radius), "kind": "interstitial", "source": i.source}
-            continue
-        if bonding == "metallic" and s in _data()["elements"] and element(s).metallic_radius is not None:
-            e = element(s)
-            out[s] = {"radius_A": float(e.metallic_radius), "kind": "metallic (CN12)",
-                      "source": e.sources["metallic_radius"]}
-            continue
-        kind = "covalent" if bonding != "metallic" else "covalent (no metallic radius in the data)"
-        out[s] = {"radius_A": covalent_radius(s), "kind": kind, "source": COVALENT_SOURCE}
-    return out

@@ -9,6 +9,7 @@ larger than 9: ``[1,-1,10]``.
 """
 from __future__ import annotations
 
+import itertools
 import math
 import re
 from dataclasses import dataclass
@@ -278,3 +279,20 @@ def atomic_layer_spacings(cell, basis_frac, hkl):
     gaps = np.diff(np.concatenate([t, [t[0] + 1.0]])) * d
     out = sorted({round(float(g), 6) for g in gaps if g > 1e-9})
     return out
+
+
+def cell_nn_distance(cell, frac):
+    """Nearest-neighbour distance of a small periodic cell (``cell`` rows are
+    the lattice vectors in A, ``frac`` the fractional positions), by brute
+    force over the 27 nearest images.
+
+    >>> round(cell_nn_distance(np.eye(3) * 3.6149, [[0, 0, 0], [0, .5, .5], [.5, 0, .5], [.5, .5, 0]]), 4)
+    2.5561
+    """
+    cell = np.asarray(cell, float)
+    cart = np.asarray(frac, float) @ cell
+    shifts = np.array(list(itertools.product((-1, 0, 1), repeat=3)), float) @ cell
+    d = cart[:, None, None, :] - cart[None, :, None, :] + shifts[None, None, :, :]
+    r = np.linalg.norm(d, axis=-1)
+    r = r[r > 1e-8]
+    return float(r.min())

@@ -308,7 +308,7 @@ def _sha256(path):
 def _versions():
     import importlib.metadata as md
 
-    from . import __version__
+    from .about import __version__
 
     out = {"crystalview": __version__, "python": platform.python_version()}
     for pkg in ("numpy", "scipy", "spglib", "gemmi", "periodictable", "pyvista", "vtk", "trimesh", "manifold3d"):

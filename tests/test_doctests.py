@@ -16,9 +16,16 @@ MODULES = [
     "crystalview.defects.boundary",
     "crystalview.occupancy",
     "crystalview.elements",
+    "crystalview.radii",
     "crystalview.build",
     "crystalview.analysis.properties",
     "crystalview.exchange.cif",
+    "crystalview.analysis.slip",
+    "crystalview.lattice",
+    "crystalview.mesh.printable",
+    "crystalview.exchange.model",
+    "crystalview.about",
+    "crystalview.cli.values",
 ]
 
 

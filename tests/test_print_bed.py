@@ -95,12 +95,12 @@ def _analytic_ball_and_stick(c, scale=SCALE):
     """Balls plus the rod lengths outside them (no rod overlaps outside a
     ball in FCC/BCC): V = sum 4/3 pi R^3 + sum (pi r^2 d - V_in(R_i) - V_in(R_j)),
     V_in(R) = pi r^2 h0 + pi h^2 (3R - h) / 3, h0 = sqrt(R^2 - r^2), h = R - h0."""
-    from crystalview.mesh.printable import BOND_TOLERANCE, ROD_FRACTION, _pairs, _shown_atoms
+    from crystalview.mesh.printable import BOND_TOLERANCE, ROD_FRACTION, contact_pairs, shown_atoms
 
     radii = c.atom_radii()
-    pts, idx = _shown_atoms(c, False, radii)
+    pts, idx = shown_atoms(c, False, radii)
     R = 0.45 * radii[idx] * scale
-    pairs, d = _pairs(pts, radii[idx], BOND_TOLERANCE)
+    pairs, d = contact_pairs(pts, radii[idx], BOND_TOLERANCE)
     V = (4 / 3 * math.pi * R ** 3).sum()
     for (i, j), dd in zip(pairs, d):
         r = max(ROD_FRACTION * min(radii[idx][i], radii[idx][j]) * scale, 1.0)

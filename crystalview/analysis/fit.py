@@ -91,7 +91,7 @@ class FitReport(dict):
 
 
 def _caution():
-    from .. import CAUTION
+    from ..about import CAUTION
 
     return CAUTION
 

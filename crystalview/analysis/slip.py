@@ -489,7 +489,7 @@ def slip_report(crystal, axis, families=None, stress=None, crss=None):
     >>> r["taylor_factor"]["value"], r["independent_slip_systems"]
     (3.06, 5)
     """
-    from .. import CAUTION
+    from ..about import CAUTION
 
     res = schmid_factors(crystal, axis, families=families, stress=stress, crss=crss)
     _t, label = load_axis(crystal, axis)

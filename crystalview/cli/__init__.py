@@ -27,7 +27,7 @@ class _Parser(argparse.ArgumentParser):
 def make_parser():
     p = _Parser(prog="crystalview",
                 description="Supercells, defects, hole sizes, report figures and printable models of metal lattices.")
-    from crystalview import __version__
+    from crystalview.about import __version__
 
     p.add_argument("--version", action="version", version=f"crystalview {__version__}")
     p.add_argument("--debug", action="store_true", help="show the full traceback on errors")

@@ -90,7 +90,7 @@ def _set_crystals(args):
 
 def run(args):
     from ..errors import UserError
-    from ..mesh.printable import print_model
+    from ..exchange.model import print_model
 
     if args.set is not None:
         return _run_set(args)
@@ -116,7 +116,8 @@ def run(args):
 
 
 def _run_set(args):
-    from ..mesh.printset import print_set, set_report_text
+    from ..exchange.model import print_set
+    from ..mesh.printset import set_report_text
 
     crystals = _set_crystals(args)
     rep = print_set(crystals, args.output, style=args.style, scale=args.scale, clip_to_cell=args.clip_to_cell,

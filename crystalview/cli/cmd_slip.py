@@ -50,7 +50,7 @@ def _crss_arg(values):
 
 
 def run(args):
-    from .. import CAUTION
+    from ..about import CAUTION
     from ..analysis.slip import (FAMILIES, first_to_yield, independent_slip_systems, load_axis,
                                  schmid_factors, taylor_factor)
 

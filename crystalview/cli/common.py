@@ -2,17 +2,13 @@
 from __future__ import annotations
 
 import json
-import math
 import sys
 from pathlib import Path
 
 from ..errors import UserError
 
-#: Extra option groups other modules add to every SPEC-taking command, as
-#: (add_arguments(parser), apply(crystal, args) -> crystal).  The defects
-#: module registers its options here, so `info`, `export`, `render` and
-#: `print` all take the same defect options.
-SPEC_EXTENSIONS = []
+from . import defect_args
+from .values import _ints
 
 
 def _positive_float(text):
@@ -53,22 +49,8 @@ def add_spec_arguments(p, defects=True):
     g.add_argument("--block", metavar="NAME", help="data block of a CIF file that holds several structures")
     g.add_argument("--tolerance", type=_positive_float, metavar="A",
                    help="distance tolerance (A) for recognising the lattice of a CIF (default 0.01)")
-    if defects:
-        for add, _apply in SPEC_EXTENSIONS:
-            add(p)
-
-
-def _ints(values, what, example):
-    out = []
-    for v in values:
-        try:
-            f = float(v)
-        except ValueError:
-            raise UserError(f"{what} '{' '.join(values)}' must be whole numbers, e.g. {example}") from None
-        if not math.isfinite(f) or f != int(f):
-            raise UserError(f"{what} '{' '.join(values)}' must be whole numbers, e.g. {example}")
-        out.append(int(f))
-    return out
+    if defects:        # every SPEC command takes the same defect options
+        defect_args.add_arguments(p)
 
 
 def crystal_from_args(args, keep_average=False):
@@ -115,9 +97,7 @@ def crystal_from_args(args, keep_average=False):
             crystal = alloy_crystal(spec, args.alloy, args.alloy_unit or "wt", phase=args.phase, lattice=args.lattice,
                                     a=args.a, c=args.c, seed=getattr(args, "seed", 0) or 0,
                                     site=getattr(args, "site", None), tolerance=args.alloy_tolerance, **kw)
-            for _add, apply in SPEC_EXTENSIONS:
-                crystal = apply(crystal, args)
-            return crystal
+            return defect_args.apply(crystal, args)
         if args.alloy_unit is not None or args.alloy_tolerance is not None:
             raise UserError("--wt, --at and --alloy-tolerance go with --alloy, e.g. --alloy Fe-18Cr-8Ni --wt")
         if low.endswith(".cif"):
@@ -126,9 +106,7 @@ def crystal_from_args(args, keep_average=False):
         elif args.block is not None or args.tolerance is not None:
             raise UserError("--block and --tolerance are for a .cif SPEC; leave them out")
         crystal = build(spec, phase=args.phase, lattice=args.lattice, a=args.a, c=args.c, **kw)
-    for _add, apply in SPEC_EXTENSIONS:
-        crystal = apply(crystal, args)
-    return crystal
+    return defect_args.apply(crystal, args)
 
 
 def print_json(obj):
@@ -158,9 +136,6 @@ def table(rows, headers):
     for r in rows:
         lines.append("  ".join(str(v).ljust(w) for v, w in zip(r, widths)).rstrip())
     return "\n".join(lines)
-
-
-from . import defect_args  # noqa: E402,F401  (registers the defect options on every SPEC command)
 
 
 FORMATS = ("table", "csv", "md", "json")

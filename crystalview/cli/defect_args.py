@@ -95,7 +95,7 @@ def _interstitial(crystal, item, site, seed, max_atoms):
 def _size(args, n):
     if not getattr(args, "defect_size", None):
         return None
-    from .common import _ints
+    from .values import _ints
 
     vals = _ints(args.defect_size, "--defect-size", "--defect-size 12 6 2")
     return tuple(vals[:n])
@@ -183,10 +183,6 @@ def apply(crystal, args):
     return crystal
 
 
-from .common import SPEC_EXTENSIONS  # noqa: E402
-
-if (add_arguments, apply) not in SPEC_EXTENSIONS:
-    SPEC_EXTENSIONS.append((add_arguments, apply))
 
 
 def _cap(value):

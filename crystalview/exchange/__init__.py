@@ -24,8 +24,8 @@ FORMATS = {
     ".gltf": ("gltf", "write_gltf", "glTF 2.0 text with the data embedded"),
     ".cif": ("cif", "write_cif", "IUCr CIF 1.1 crystal structure"),
     ".xyz": ("xyz", "write_xyz", "extended XYZ with the lattice"),
-    ".stl": ("stl", "write", "printable solid (mm), no colour"),
-    ".3mf": ("threemf", "write", "printable solid (mm) with coloured parts"),
+    ".stl": ("model", "write_printable", "printable solid (mm), no colour"),
+    ".3mf": ("model", "write_printable", "printable solid (mm) with coloured parts"),
     ".html": ("html", "write_html", "one self-contained web page: turn, zoom, click atoms; offline"),
 }
 
@@ -63,17 +63,3 @@ def export(crystal, path, *, force=False, **options):
                         f"(options for this format: {ok})")
     kw = {k: v for k, v in options.items() if v is not None}
     return fn(crystal, path, force=force, **kw)
-
-
-def write_model(model, path, force=False):
-    """Write a printable :class:`crystalview.mesh.printable.Model` as STL or 3MF."""
-    suffix = Path(path).suffix.lower()
-    if suffix == ".stl":
-        from .stl import write_model_stl
-
-        return write_model_stl(model, path, force=force)
-    if suffix == ".3mf":
-        from .threemf import write_model_3mf
-
-        return write_model_3mf(model, path, force=force)
-    raise UserError(f"cannot write a printable model to '{path}'; use .stl or .3mf")

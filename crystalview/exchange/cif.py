@@ -141,7 +141,7 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
 
     ``block``: the data block to read; a file with several crystal structures
     needs one.  Hard-sphere radii are chosen by bonding
-    (:func:`crystalview.elements.structure_radii`) and recorded in
+    (:func:`crystalview.radii.structure_radii`) and recorded in
     ``metadata['radii']``.
 
     >>> import crystalview as cv, pathlib, tempfile
@@ -312,7 +312,7 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
 
         crystal.lattice = replace(crystal.lattice, source=f"CIF file {p.name}",
                                   title=crystal.lattice.title)
-    from ..elements import structure_radii
+    from ..radii import structure_radii
 
     radii = structure_radii(crystal)
     crystal.species_radii = {s: r["radius_A"] for s, r in radii.items()}
@@ -756,7 +756,7 @@ def cif_text(crystal, *, symmetry=True):
 
 
 def _cif_text(crystal, *, symmetry=True):
-    from .. import __version__
+    from ..about import __version__
     from ..crystal import ROLES
     from ..lattice import cell_parameters
 

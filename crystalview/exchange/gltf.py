@@ -141,9 +141,9 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
     """(json dict, binary buffer bytes) for the crystal.  One conventional
     cell of hcp or simple hexagonal is written as the hexagonal prism (17 or
     14 atoms and its 18 edges) unless ``cell_shape='primitive'``."""
-    from .. import __version__
+    from ..about import __version__
     from ..crystal import ROLES
-    from ..mesh.printable import _pairs, _shown_atoms
+    from ..mesh.printable import contact_pairs, shown_atoms
     from ..palette import ROLE_COLOURS, atom_colours, hex_to_rgb
 
     if style not in STYLES:
@@ -168,7 +168,7 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
     if prism is not None:
         pts, idx = prism.positions, prism.src
     else:
-        pts, idx = _shown_atoms(crystal, False, radii_all)
+        pts, idx = shown_atoms(crystal, False, radii_all)
     radii = radii_all[idx]
     bonds = np.zeros((0, 2), int)
     if style == "ball-and-stick" and len(pts) * 7 > max_instances:
@@ -176,7 +176,7 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
         raise LimitError(f"the file would hold about {len(pts) * 7:,} atoms and bonds (12 neighbours per atom), over "
                          f"the cap of {max_instances:,}; export fewer cells or use style space-filling")
     if style == "ball-and-stick":
-        bonds, _ = _pairs(pts, radii, 1.05)
+        bonds, _ = contact_pairs(pts, radii, 1.05)
     n_inst = len(pts) + len(bonds)
     if n_inst > max_instances:
         raise LimitError(f"the file would hold {n_inst:,} atoms and bonds, over the cap of {max_instances:,}; "

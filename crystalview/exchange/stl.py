@@ -25,17 +25,3 @@ def write_model_stl(model, path, force=False):
     from ..fileio import atomic_write
 
     return atomic_write(path, stl_bytes([b.mesh for b in model.bodies]), force=force)
-
-
-def write(crystal, path, *, force=False, style=None, scale=None, clip_to_cell=None, base=None, kit=None,
-          min_feature=None, bed=None, material_density=None, clearance=None, max_triangles=None, segments=None,
-          resolution=None, edges=None, cell=None, overhang_angle=None, label=None, label_style=None):
-    """Export a printable solid as STL or 3MF, by the file's extension (the
-    same model as ``print_model``, without the report file)."""
-    from ..mesh.printable import print_model
-
-    kw = dict(style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit, min_feature=min_feature,
-              bed=bed, material_density=material_density, clearance=clearance, max_triangles=max_triangles,
-              segments=segments, resolution=resolution, edges=edges, cell=cell, overhang_angle=overhang_angle,
-              label=label, label_style=label_style)
-    return print_model(crystal, path, force=force, write_report=False, **{k: v for k, v in kw.items() if v is not None})

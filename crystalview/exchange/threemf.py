@@ -97,8 +97,3 @@ def write_model_3mf(model, path, force=False):
     colours = {k: v for k, v in model.colours.items() if k in used} or dict(list(model.colours.items())[:1])
     title = model.bodies[0].name if len(model.bodies) == 1 else "crystalview kit"
     return atomic_write(path, threemf_bytes(bodies, colours, title), force=force)
-
-
-# the same printable model as STL; print_model picks the file format from the extension
-from .stl import write  # noqa: E402,F401
-

@@ -123,10 +123,17 @@ def _check_options(style, scale, min_feature, bed, material_density, clearance, 
 
 
 # ------------------------------------------------------------------ geometry plan (angstrom -> mm)
-def _shown_atoms(crystal, clip, radii_A):
-    """Atom centres (A), index into the crystal and radii (A) of the atoms the
+def shown_atoms(crystal, clip, radii_A):
+    """Atom centres (A) and their index into the crystal, for the atoms a
     model shows: the cell's atoms plus their images on the cell boundary, or,
-    for a clipped model, every image whose sphere reaches into the cell."""
+    for a clipped model (``clip``), every image whose sphere (``radii_A``)
+    reaches into the cell.  Atoms closer than 0.1 A are refused.
+
+    >>> import numpy as np, crystalview as cv
+    >>> pts, idx = shown_atoms(cv.build("Cu"), False, np.array([1.28]))
+    >>> len(pts)                        # 8 corners, 6 face centres
+    14
+    """
     from ..analysis.neighbours import with_images
 
     w = crystal.wrapped()
@@ -151,8 +158,15 @@ def _refuse_overlaps(pts, idx, tol=0.1):
                         f"remove the duplicate")
 
 
-def _pairs(points, radii, factor):
-    """Pairs (i, j, d) with distance <= factor * (r_i + r_j)."""
+def contact_pairs(points, radii, factor):
+    """Pairs of atoms that touch: (pairs (M, 2), distances (M,)) with
+    distance <= factor * (r_i + r_j).
+
+    >>> import numpy as np
+    >>> pr, d = contact_pairs(np.array([[0., 0, 0], [2.5, 0, 0], [9, 0, 0]]), np.array([1.28] * 3), 1.05)
+    >>> pr.tolist(), d.round(2).tolist()
+    ([[0, 1]], [2.5])
+    """
     from scipy.spatial import cKDTree
 
     if len(points) < 2:
@@ -338,7 +352,7 @@ def _plan(crystal, style, scale, clip, min_feature, kit, max_triangles, segments
     if prism is not None:
         pts_A, idx, outline_corners, outline_edges = prism
     else:
-        pts_A, idx = _shown_atoms(crystal, clip, radii_A_all)
+        pts_A, idx = shown_atoms(crystal, clip, radii_A_all)
         outline_corners, outline_edges = _cell_outline(crystal.cell)
     radii_A = radii_A_all[idx]
     colours, cindex, legend = atom_colours(crystal)
@@ -360,7 +374,7 @@ def _plan(crystal, style, scale, clip, min_feature, kit, max_triangles, segments
             need = min_feature / (2 * BALL_FRACTION * radii_A.min())
             raise UserError(f"the smallest balls would be {2 * balls.min():.2f} mm across, below the minimum "
                             f"feature of {min_feature:g} mm; use --scale {math.ceil(need * 10) / 10:g} or larger")
-        pairs, dist = _pairs(pts_A, radii_A, BOND_TOLERANCE)
+        pairs, dist = contact_pairs(pts_A, radii_A, BOND_TOLERANCE)
         extra = _connect(pts_A, pairs)
         if len(extra):
             adjustments.append(f"added {len(extra)} rod(s) to tie loose atoms to their nearest neighbour")
@@ -399,7 +413,7 @@ def _plan(crystal, style, scale, clip, min_feature, kit, max_triangles, segments
                                    f"(the minimum feature)")
     else:
         balls = R_hs.copy()
-        pairs, dist = _pairs(pts_A, radii_A, 1.02)
+        pairs, dist = contact_pairs(pts_A, radii_A, 1.02)
         extra = _connect(pts_A, pairs)
         allp = np.vstack([pairs, extra]) if len(extra) else pairs
         neck_r = min_feature if clip else min_feature / 2    # necks on cut faces lose half or more
@@ -966,74 +980,3 @@ def inspect(model, material_density=PLA_DENSITY):
 def report_path(path):
     p = Path(path)
     return p.with_name(p.stem + ".report.txt")
-
-
-def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_cell=False, base=None, kit=False,
-                min_feature=DEFAULT_MIN_FEATURE, bed=DEFAULT_BED, material_density=PLA_DENSITY,
-                clearance=DEFAULT_CLEARANCE, max_triangles=DEFAULT_MAX_TRIANGLES, segments=None, force=False,
-                write_report=True, resolution=P.DEFAULT_RESOLUTION_MM, edges=None, cell=None,
-                overhang_angle=DEFAULT_OVERHANG_ANGLE, label=None, label_style="emboss", label_stroke=None):
-    """Write a printable model of ``crystal`` to ``path`` (.stl or .3mf) and
-    its print report beside it (MODEL.report.txt); return the report.
-
-    Parameters
-    ----------
-    style : "ball-and-stick" or "space-filling".
-    scale : mm per angstrom (default 10: 1 A -> 1 cm).
-    clip_to_cell : cut the space-filling spheres to the cell faces.
-    base : True adds a base plate, False never; None (default) adds one
-        where the model alone would touch the bed over too small an area.
-    kit : separate balls with bored holes plus loose rods (ball-and-stick).
-    min_feature : thinnest rod or neck in mm (default 2); thinner rods are
-        thickened, balls below it are refused.
-    bed : printer bed X, Y, Z in mm (default 220 x 220 x 250, a common size).
-    material_density : g/cm^3 for the mass estimate (default PLA 1.24).
-    clearance : radial fit clearance of kit holes in mm (default 0.2).
-    max_triangles : refuse models estimated over this many triangles.
-    segments : sphere segments (default: from ``resolution``).
-    resolution : the printer's resolution in mm (default 0.05): spheres and
-        rods are tessellated so no facet strays further from the true surface.
-    edges : cell-edge struts (default: on for ball-and-stick, not kits).
-    cell : "prism" (default for one hcp / simple hexagonal cell: the
-        hexagonal prism) or "primitive" (the stored cell).
-    overhang_angle : degrees from vertical printed without support (45).
-    label : text embossed or engraved on the base; None or "auto" (default)
-        writes the structure, lattice parameters and scale where a base is
-        made, "none" never; an explicit text adds a base to carry it.
-    label_style : "emboss" (raised text, default) or "engrave" (cut in).
-    force : overwrite existing files.
-    """
-    from ..fileio import atomic_write, check_target
-    from .report import report_text
-
-    p = Path(path)
-    check_target(p, force=force, suffixes=set(SUFFIXES))
-    rp = report_path(p)
-    if write_report:
-        check_target(rp, force=force)
-    material_density = _positive("material density", material_density, "density in g/cm^3", "1.24 for PLA")
-    model = build_model(crystal, style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit,
-                        min_feature=min_feature, bed=bed, clearance=clearance, max_triangles=max_triangles,
-                        segments=segments, resolution=resolution, edges=edges, cell=cell,
-                        overhang_angle=overhang_angle, label=label, label_style=label_style,
-                        label_stroke=label_stroke)
-    facts = inspect(model, material_density)
-    if not (facts["watertight"] and facts["is_volume"]):
-        raise RuntimeError("the mesh came out not watertight; rerun with --debug and report it")
-    if not kit and facts["bodies"] != 1:
-        raise UserError(f"the model falls apart into {facts['bodies']} separate pieces; print it with --base or "
-                        f"--kit, or as a smaller piece of the crystal")
-    from .. import CAUTION
-
-    rep = PrintReport(file=str(p), format=p.suffix.lower().lstrip("."), **model.info, **facts,
-                      fits_bed=True, adjustments=model.adjustments, parts=model.parts,
-                      caution=f"{CAUTION} {PRINT_CAUTION}")
-    if clip_to_cell and not model.info.get("base"):
-        rep["volume_fraction_of_cell"] = facts["volume_cm3"] * 1000.0 / model.info["cell_volume_mm3"]
-    rep["report_file"] = str(rp) if write_report else None
-    from ..exchange import write_model
-
-    write_model(model, p, force=force)
-    if write_report:
-        atomic_write(rp, report_text(rep) + "\n", force=force)
-    return rep

@@ -12,11 +12,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
-import numpy as np
-
 from ..errors import UserError
-from .printable import (DEFAULT_BED, DEFAULT_SCALE, PLA_DENSITY, PRINT_CAUTION, PrintReport, _positive, build_model,
-                        inspect, report_path)
 
 GAP_MM = 5.0
 MAX_MODELS = 12
@@ -70,94 +66,6 @@ def layout(sizes, bed, gap=GAP_MM):
     raise UserError(f"the {len(sizes)} models need {need[0]:.0f} x {need[1]:.0f} mm laid side by side "
                     f"({gap:g} mm apart), more than the bed {bx:g} x {by:g} mm; use a smaller --scale, fewer "
                     f"models, --label none, or --bed X Y Z for a bigger printer")
-
-
-def print_set(crystals, path, *, scale=None, bed=DEFAULT_BED, material_density=PLA_DENSITY, force=False,
-              write_report=True, base=None, label=None, label_style="emboss", **options):
-    """Write a set of models (``crystals``: a list of Crystal) at one scale
-    to one 3MF ``path`` (one object per model) and one STL per model beside
-    it (PATH-STEM-<name>.stl), with one combined report; return the report."""
-    from .. import CAUTION
-    from ..exchange.stl import stl_bytes
-    from ..exchange.threemf import threemf_bytes
-    from ..fileio import atomic_write, check_target
-
-    p = Path(path)
-    if p.suffix.lower() != ".3mf":
-        raise UserError(f"a set goes into one .3mf file (one object per model, STLs beside it); "
-                        f"give -o {p.with_suffix('.3mf').name}")
-    crystals = list(crystals)
-    if len(crystals) < 2:
-        raise UserError("a set needs two or more models, e.g. --set fcc,bcc,hcp --element Fe,Fe,Ti")
-    if len(crystals) > MAX_MODELS:
-        raise UserError(f"a set of {len(crystals)} models is more than {MAX_MODELS}; print it in parts")
-    if options.get("kit"):
-        raise UserError("a set lays whole models on one bed; print kits one at a time")
-    if isinstance(label, str) and label.strip().lower() not in ("auto", "none"):
-        raise UserError("each model of a set gets its own label; use --label auto (the default) or none")
-    material_density = _positive("material density", material_density, "density in g/cm^3", "1.24 for PLA")
-    taken = set()
-    slugs = [_slug(c, taken) for c in crystals]
-    stls = [p.with_name(f"{p.stem}-{s}.stl") for s in slugs]
-    rp = report_path(p)
-    check_target(p, force=force, suffixes={".3mf"})
-    for f in stls + ([rp] if write_report else []):
-        check_target(f, force=force)
-    # every model first: nothing is written unless all of them, together, fit
-    models, facts = [], []
-    from .label import auto_text
-
-    none = isinstance(label, str) and label.strip().lower() == "none"
-    for c in crystals:
-        # each model's label: its name and structure (one scale for the whole set: in the report)
-        lab = "none" if none else auto_text(c, scale or DEFAULT_SCALE, short=True)
-        m = build_model(c, scale=scale, bed=bed, base=base, label=lab, label_style=label_style, **options)
-        f = inspect(m, material_density)
-        if not (f["watertight"] and f["is_volume"]):
-            raise RuntimeError("a model of the set came out not watertight; rerun with --debug and report it")
-        if f["bodies"] != 1:
-            raise UserError(f"the {m.bodies[0].name} model falls apart into {f['bodies']} pieces; give it a base "
-                            f"(leave out --no-base)")
-        models.append(m)
-        facts.append(f)
-    bed = tuple(float(b) for b in m.info["bed_mm"])
-    sizes = [tuple(np.ptp(m.bodies[0].mesh.vertices, axis=0)[:2]) for m in models]
-    pos, turned, block = layout(sizes, bed)
-    off = np.array([(bed[0] - block[0]) / 2, (bed[1] - block[1]) / 2])
-    bodies, colours, placed = [], {}, []
-    for m, (x, y), s in zip(models, pos, sizes):
-        mesh = m.bodies[0].mesh.copy()
-        if turned:
-            mesh.vertices = mesh.vertices[:, [1, 0, 2]] * [-1.0, 1.0, 1.0]
-        lo = mesh.vertices.min(axis=0)
-        mesh.vertices = mesh.vertices + [off[0] + x - lo[0], off[1] + y - lo[1], -lo[2]]
-        bodies.append((m.bodies[0].name, mesh, m.bodies[0].groups))
-        colours.update(m.colours)
-        placed.append([float(v) for v in mesh.bounds.reshape(-1)])
-    used = set()
-    for _n, _m, g in bodies:
-        if g is not None:
-            used.update(g.tolist())
-    colours = {k: v for k, v in colours.items() if k in used} or colours
-    reports = []
-    for m, f, stl, box in zip(models, facts, stls, placed):
-        r = PrintReport(file=str(stl), format="stl", **m.info, **f, fits_bed=True, adjustments=m.adjustments,
-                        parts=m.parts, name=m.bodies[0].name, placed_mm=box, caution=None)
-        reports.append(r)
-    rep = PrintReport(
-        set=True, file=str(p), stl_files=[str(s) for s in stls], models=reports, count=len(models),
-        scale_mm_per_A=models[0].info["scale_mm_per_A"], bed_mm=list(bed), block_mm=[float(block[0]), float(block[1])],
-        gap_mm=GAP_MM, turned_90=bool(turned), volume_cm3=float(sum(f["volume_cm3"] for f in facts)),
-        mass_g=float(sum(f["mass_g"] for f in facts)), material_density_g_cm3=material_density,
-        triangles=int(sum(f["triangles"] for f in facts)),
-        watertight=all(f["watertight"] for f in facts), report_file=str(rp) if write_report else None,
-        caution=f"{CAUTION} {PRINT_CAUTION}")
-    atomic_write(p, threemf_bytes(bodies, colours, "crystalview set"), force=force)
-    for m, stl in zip(models, stls):
-        atomic_write(stl, stl_bytes([m.bodies[0].mesh]), force=force)
-    if write_report:
-        atomic_write(rp, set_report_text(rep) + "\n", force=force)
-    return rep
 
 
 def set_report_text(rep):
