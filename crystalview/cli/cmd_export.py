@@ -110,5 +110,7 @@ def run(args):
         images = f" ({shown} spheres with {what})" if shown and shown != info["atoms"] else ""
         if "entries" in info:
             images = f" ({info['entries']} site entries with their occupancies)"
-        print(f"wrote {info['file']}: {info['atoms']:g} atoms{images}, {info['bytes']:,} bytes{extra}")
+        n = info["atoms"]
+        count = f"{int(round(n)):,}" if abs(n - round(n)) < 1e-9 else f"{n:,.4g}"   # average structures: fractional
+        print(f"wrote {info['file']}: {count} atoms{images}, {info['bytes']:,} bytes{extra}")
     return 0
