@@ -7,7 +7,12 @@ class UserError(ValueError):
 
 
 class LimitError(UserError):
-    """A request over a resource cap, refused before any memory is allocated."""
+    """A request over a resource cap, refused before any memory is allocated.
+    ``count`` and ``cap`` (when known) are the numbers compared."""
+
+    def __init__(self, message, count=None, cap=None):
+        super().__init__(message)
+        self.count, self.cap = count, cap
 
 
 def suggest(name, choices, n=3):

@@ -61,5 +61,5 @@ def check_atom_count(n, max_atoms=None, what="this request"):
                                                           f"{size / 1e3:.1f} kB")
         raise LimitError(
             f"{what} would make {n:,} atoms (about {mem} of memory for the atoms alone), "
-            f"over the cap of {cap:,}; make it smaller or raise the cap with --max-atoms {n}"
+            f"over the cap of {cap:,}; make it smaller or raise the cap with --max-atoms {n}", count=n, cap=cap
         )

@@ -26,6 +26,13 @@ MODULES = [
     "crystalview.exchange.model",
     "crystalview.about",
     "crystalview.cli.values",
+    "crystalview.exchange",
+    "crystalview.render.layout",
+    "crystalview.render.draw2d",
+    "crystalview.render.raster3d",
+    "crystalview.render.figure",
+    "crystalview.render.text",
+    "crystalview.render.scene_graph",
 ]
 
 

@@ -154,6 +154,28 @@ def test_just_under_the_atom_cap_finishes_within_memory():
     assert r.returncode == 2 and "over the cap" in r.stderr
 
 
+@pytest.mark.parametrize("name,argv,gb,over", [
+    # (output, arguments just under the format's cap, address-space limit in GB, arguments just over it)
+    ("sf.glb", ["--repeat", "105", "105", "105", "--style", "space-filling"], 4,      # 4,630,500 atoms, ~0.9 GB
+     ["--repeat", "108", "108", "108", "--style", "space-filling"]),
+    ("bs.glb", ["--repeat", "55", "55", "55"], 4, ["--repeat", "57", "57", "57"]),     # 665,500 atoms, ~1.3 GB
+    ("big.xyz", ["--repeat", "100", "100", "100"], 3, None),                             # 4 million atoms, streamed
+    ("page.html", ["--repeat", "22", "22", "22"], 3, ["--repeat", "24", "24", "24"]),  # 42,592 atoms
+])
+def test_each_export_just_under_its_cap_finishes_within_memory(tmp_path, name, argv, gb, over):
+    """Just under each format's cap the export finishes in a child process with a capped address space;
+    just over it, it is refused in one line before the crystal is built; never killed."""
+    target = tmp_path / name
+    r = _limited(["export", "Cu", *argv, "-o", str(target), "--quiet"], gb)
+    assert r.returncode == 0, r.stderr[-800:]
+    assert target.stat().st_size > 0
+    if over:
+        t2 = tmp_path / ("over-" + name)
+        r = _limited(["export", "Cu", *over, "-o", str(t2), "--quiet"], gb)
+        assert r.returncode == 2 and r.stderr.count("\n") == 1 and "the crystal would have" in r.stderr
+        assert not t2.exists()
+
+
 def test_overlapping_atoms_big_files_and_bond_estimates_refused_early(tmp_path, cli):
     import time
 

@@ -81,7 +81,9 @@ def run(args):
 
         raise UserError(f"--style {args.style} is for web pages (.html); for '{args.output}' use ball-and-stick "
                         f"or space-filling")
-    c = crystal_from_args(args, keep_average=suffix == ".cif")
+    from ..exchange import atom_cap
+
+    c = crystal_from_args(args, keep_average=suffix == ".cif", atom_cap=atom_cap(args.output, args.style))
     from ..progress import working
 
     with working(f"{suffix.lstrip('.')} file of {len(c):,} atoms"):
@@ -107,7 +109,7 @@ def run(args):
             extra += f", space group {info['space_group']}"
         shown = info.get("spheres")
         what = "the hexagonal prism" if info.get("cell_drawn") == "hexagonal prism" else "the images on the cell faces"
-        images = f" ({shown} spheres with {what})" if shown and shown != info["atoms"] else ""
+        images = f" ({shown:,} spheres with {what})" if shown and shown != info["atoms"] else ""
         if "entries" in info:
             images = f" ({info['entries']} site entries with their occupancies)"
         n = info["atoms"]

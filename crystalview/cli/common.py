@@ -53,10 +53,31 @@ def add_spec_arguments(p, defects=True):
         defect_args.add_arguments(p)
 
 
-def crystal_from_args(args, keep_average=False):
+def crystal_from_args(args, keep_average=False, atom_cap=None):
     """Build the crystal a command's SPEC arguments describe (defects applied).
     ``keep_average``: a CIF's partly occupied sites stay an average structure
-    unless defects are asked for (which need real atoms)."""
+    unless defects are asked for (which need real atoms).  ``atom_cap``:
+    (cap, reason) of the output the command writes; a crystal over it is
+    refused with that reason before it is built."""
+    from ..errors import LimitError
+
+    user_cap = _cap(args.max_atoms) if getattr(args, "max_atoms", None) is not None else None
+    if atom_cap is None or (user_cap is not None and user_cap <= atom_cap[0]):
+        return _crystal_from_args(args, keep_average, None)
+    from ..limits import max_atoms_default
+
+    limit = user_cap if user_cap is not None else max_atoms_default()
+    try:
+        crystal = _crystal_from_args(args, keep_average, min(limit, atom_cap[0]))
+    except LimitError as e:
+        if e.count is None or e.cap != atom_cap[0] or e.count > limit:
+            raise
+        raise LimitError(f"the crystal would have {e.count:,} atoms; {atom_cap[1]}",
+                         count=e.count, cap=atom_cap[0]) from None
+    return crystal
+
+
+def _crystal_from_args(args, keep_average, max_atoms):
     from ..build import build
     from ..progress import set_quiet
 
@@ -86,7 +107,9 @@ def crystal_from_args(args, keep_average=False):
             kw["supercell"] = [m[0:3], m[3:6], m[6:9]]
         if args.orient:
             kw["orient"] = list(args.orient)
-        if args.max_atoms is not None:
+        if max_atoms is not None:
+            kw["max_atoms"] = max_atoms
+        elif args.max_atoms is not None:
             kw["max_atoms"] = _cap(args.max_atoms)
         if getattr(args, "alloy", None):
             from ..alloy import alloy_crystal

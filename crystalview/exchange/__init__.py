@@ -30,6 +30,36 @@ FORMATS = {
 }
 
 
+def atom_cap(path, style=None):
+    """The most atoms a file of this kind (by extension) and style can hold,
+    with the reason, as (cap, reason), or None where only the atom cap of the
+    build applies.  Commands pass it to the build, so an oversized export is
+    refused before the crystal is made; the writer still checks exactly.
+
+    >>> atom_cap("x.glb")[0], atom_cap("x.glb", "space-filling")[0], atom_cap("x.cif")
+    (714285, 5000000, None)
+    """
+    suffix = Path(path).suffix.lower()
+    if suffix in (".glb", ".gltf"):
+        from .gltf import MAX_INSTANCES
+
+        if style == "space-filling":
+            return MAX_INSTANCES, (f"a glTF file holds at most {MAX_INSTANCES:,} atoms; use a smaller --repeat")
+        return MAX_INSTANCES // 7, (f"a glTF file holds at most {MAX_INSTANCES:,} atoms and bonds, about "
+                                    f"{MAX_INSTANCES // 7:,} atoms in ball-and-stick; use a smaller --repeat or "
+                                    f"--style space-filling")
+    if suffix in (".html", ".htm"):
+        from .html import MAX_PAGE_ATOMS, MAX_PAGE_ATOMS_STICKS
+
+        if style in ("lattice", "space-filling", "cell-cut"):
+            return MAX_PAGE_ATOMS, (f"a web page holds at most {MAX_PAGE_ATOMS:,} atoms; use a smaller --repeat, "
+                                    f"or write a .glb (glTF) file, which holds more")
+        return MAX_PAGE_ATOMS_STICKS, (f"a web page holds at most {MAX_PAGE_ATOMS_STICKS:,} atoms in ball-and-stick "
+                                       f"({MAX_PAGE_ATOMS:,} with --style lattice or space-filling); use a smaller "
+                                       f"--repeat, --style lattice, or write a .glb (glTF) file")
+    return None
+
+
 def writer_for(path):
     """The writer function for a file name, by its extension."""
     suffix = Path(path).suffix.lower()

@@ -155,6 +155,10 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
     if len(crystal) > max_instances:
         raise LimitError(f"{len(crystal):,} atoms is over the glTF cap of {max_instances:,} instances; "
                          f"export fewer cells")
+    if style == "ball-and-stick" and len(crystal) * 7 > max_instances:
+        # before the images and bonds are searched: a close-packed atom has 12 neighbours, 6 bonds each side
+        raise LimitError(f"the file would hold about {len(crystal) * 7:,} atoms and bonds (12 neighbours per atom), "
+                         f"over the cap of {max_instances:,}; export fewer cells or use style space-filling")
     m_per_A = REAL_M_PER_A if real_scale else DEFAULT_M_PER_A
     from ..prism import has_prism
 
