@@ -19,6 +19,7 @@ on shared sites.
 """
 from __future__ import annotations
 
+import math
 import re
 from dataclasses import dataclass
 
@@ -301,3 +302,41 @@ def average_record(crystal):
     return {"composition": comp, "formula": formula(comp),
             "mass_amu": float(sum(atomic_mass(s) * n for s, n in comp.items())),
             "volume_A3": crystal.volume}
+
+
+def realisation_gap(crystal, threshold=0.005):
+    """One line when a realised crystal's composition misses the file's
+    average by more than ``threshold`` (a fraction, per species), else None:
+    a few shared sites cannot hold every composition (4 sites of Fe0.9Ni0.1
+    are drawn as 4 Fe), and a larger repeat comes closer.
+
+    >>> import crystalview as cv
+    >>> import pathlib
+    >>> f = pathlib.Path(cv.__file__).parents[1] / "tests/data/cif/FeNi_fcc_solid_solution_xrayutilities.cif"
+    >>> realisation_gap(cv.build(f))
+    'note: 4 sites cannot hold the average composition (Fe 90.0 %, Ni 10.0 %): drawn Fe 100.0 %, Ni 0.0 %; a larger --repeat comes closer (3 x 3 x 3: 108 atoms)'
+    >>> realisation_gap(cv.build(f, repeat=(5, 5, 5))) is None
+    True
+    """
+    avg = (crystal.metadata.get("average") or {}).get("composition")
+    if not avg or not crystal.metadata.get("realisation") or crystal.metadata.get("defects") or len(crystal) == 0:
+        return None
+    total = sum(avg.values())
+    want = {k: v / total for k, v in avg.items()}
+    syms = list(crystal.symbols)
+    got = {k: syms.count(k) / len(syms) for k in want}
+    if max(abs(got[k] - want[k]) for k in want) <= threshold:
+        return None
+    # the smallest n x n x n repeat whose site count rounds every species within the threshold
+    n_cell = len(syms) / max(1, math.prod(crystal.metadata.get("repeat") or (1, 1, 1)))
+    n = 1
+    while n < 20:
+        n += 1
+        sites = n_cell * n ** 3
+        if all(abs(round(want[k] * sites) / sites - want[k]) <= threshold for k in want):
+            break
+    order = sorted(want)
+    fmt = ", ".join(f"{k} {100 * want[k]:.1f} %" for k in order)
+    drawn = ", ".join(f"{k} {100 * got[k]:.1f} %" for k in order)
+    return (f"note: {len(syms):,} sites cannot hold the average composition ({fmt}): drawn {drawn}; a larger "
+            f"--repeat comes closer ({n} x {n} x {n}: {int(round(n_cell * n ** 3)):,} atoms)")

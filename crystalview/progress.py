@@ -128,3 +128,4 @@ def working(description):
             if state["status"] is not None:
                 state["status"].stop()
                 _console().print(f"{description}: {time.perf_counter() - t0:.1f} s", style="dim", highlight=False)
+        timer.join()       # no thread outlives the step (the hole analysis forks only a single-threaded process)

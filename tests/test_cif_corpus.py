@@ -329,3 +329,16 @@ def test_cif_values_checked_and_text_sanitised(tmp_path, cli):
     assert lines[0] == "4" and len(lines) == 6                  # count, one comment line, four atoms
     rc, out, err = cli("info", p)
     assert "\x1b" not in out and "\x1b" not in err
+
+
+def test_too_few_sites_for_the_average_composition_said_in_one_note(cli):
+    """A 4-site cell of Fe0.9Ni0.1 (xrayutilities' test file) cannot hold 10 % Ni: build and info say so and
+    name a repeat that comes within 0.5 percentage points (3 x 3 x 3: 11 Ni of 108 sites, 10.2 %)."""
+    f = DATA / "FeNi_fcc_solid_solution_xrayutilities.cif"
+    rc, out, _ = cli("build", f)
+    assert rc == 0 and "4 sites cannot hold the average composition (Fe 90.0 %, Ni 10.0 %)" in out
+    assert "3 x 3 x 3: 108 atoms" in out
+    rc, out, _ = cli("info", f)
+    assert rc == 0 and "cannot hold the average composition" in out
+    rc, out, _ = cli("build", f, "--repeat", "3", "3", "3")
+    assert rc == 0 and "Fe 97, Ni 11" in out and "cannot hold" not in out

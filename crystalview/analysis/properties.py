@@ -190,6 +190,11 @@ def summary(crystal: Crystal, part_volume_mm3=None, planes=(), directions=(), an
         out["realisation"] = crystal.metadata["realisation"]
         out["realised_composition"] = {s: int(n) for s, n in
                                        zip(*np.unique(crystal.symbols, return_counts=True))}
+        from ..occupancy import realisation_gap
+
+        note = realisation_gap(crystal)
+        if note:
+            out["realisation_note"] = note
     if lat is not None and lat.site_species:
         out["sublattice_occupation"] = list(lat.site_species)
     if crystal.metadata.get("recognition"):

@@ -38,15 +38,17 @@ def run(args):
             raise UserError(f"build writes structure files (.cif, .xyz); for '{args.output}' use "
                             f"`crystalview export` (glTF, 3MF, STL) or `crystalview print`")
         from ..exchange import export
+        from ..progress import working
 
-        export(c, args.output, force=args.force)
+        with working(f"writing {len(c):,} atoms to {args.output}"):
+            export(c, args.output, force=args.force)
         info["written"] = args.output
     if args.json:
         print_json(info)
         return 0
     name = c.metadata.get("name") or "/".join(c.elements)
     lat = f" {c.lattice.title}" if c.lattice is not None else ""
-    comp = ", ".join(f"{k} {v}" for k, v in info["composition"].items())
+    comp = ", ".join(f"{k} {v:,}" if float(v) == int(v) else f"{k} {v:,.4g}" for k, v in info["composition"].items())
     rep = c.metadata.get("repeat")
     print(f"{name}{',' + lat if lat else ''}: {len(c):,} atoms ({comp}) in a "
           + " x ".join(f"{x:.4f}" for x in info["cell_lengths_A"]) + " A cell"
@@ -58,6 +60,16 @@ def run(args):
 
         for line in report_lines(c.metadata["alloy"]):
             print("  " + line)
+    if c.metadata.get("realisation"):
+        r = c.metadata["realisation"]
+        drawn = ", ".join(f"{k} {v:,}" for k, v in sorted(c.counts().items()))
+        print(f"  realised: {r['shared_sites']:,} shared or partly occupied sites drawn with seed {r['seed']}: "
+              f"{drawn} (--seed N for another draw)")
+        from ..occupancy import realisation_gap
+
+        gap = realisation_gap(c)
+        if gap:
+            print("  " + gap)
     for d in info["defects"]:
         print("  defect: " + ", ".join(f"{k}={v}" for k, v in d.items() if not isinstance(v, (list, dict))))
     if args.output:

@@ -110,6 +110,8 @@ def render_text(s):
         real = ", ".join(f"{k} {v}" for k, v in s["realised_composition"].items())
         rows.append(("realised", f"{r['shared_sites']} shared or partly occupied sites drawn with seed "
                                  f"{r['seed']}: {real} (--seed N for another draw)"))
+        if s.get("realisation_note"):
+            rows.append(("", s["realisation_note"]))
     for d in s["defects"]:
         rows.append(("defect", ", ".join(f"{k}={v}" for k, v in d.items() if not isinstance(v, (list, dict)))))
     if "spglib_space_group" in s:

@@ -60,15 +60,20 @@ def crystal_from_args(args, keep_average=False, atom_cap=None):
     (cap, reason) of the output the command writes; a crystal over it is
     refused with that reason before it is built."""
     from ..errors import LimitError
+    from ..progress import set_quiet, working
 
+    if getattr(args, "quiet", False) or getattr(args, "json", False) or getattr(args, "format", None) == "json":
+        set_quiet(True)
     user_cap = _cap(args.max_atoms) if getattr(args, "max_atoms", None) is not None else None
     if atom_cap is None or (user_cap is not None and user_cap <= atom_cap[0]):
-        return _crystal_from_args(args, keep_average, None)
+        with working(f"building {args.spec}"):        # a spinner only if it takes over a second, on a terminal
+            return _crystal_from_args(args, keep_average, None)
     from ..limits import max_atoms_default
 
     limit = user_cap if user_cap is not None else max_atoms_default()
     try:
-        crystal = _crystal_from_args(args, keep_average, min(limit, atom_cap[0]))
+        with working(f"building {args.spec}"):
+            crystal = _crystal_from_args(args, keep_average, min(limit, atom_cap[0]))
     except LimitError as e:
         if e.count is None or e.cap != atom_cap[0] or e.count > limit:
             raise
@@ -79,10 +84,6 @@ def crystal_from_args(args, keep_average=False, atom_cap=None):
 
 def _crystal_from_args(args, keep_average, max_atoms):
     from ..build import build
-    from ..progress import set_quiet
-
-    if getattr(args, "quiet", False) or getattr(args, "json", False) or getattr(args, "format", None) == "json":
-        set_quiet(True)
 
     spec = args.spec
     low = spec.lower()
