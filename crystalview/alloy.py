@@ -42,7 +42,12 @@ _PART_AFTER = re.compile(r"^\s*(?P<el>[A-Za-z]{1,2})\s*(?P<num>[0-9]*\.?[0-9]+(?
 @dataclass
 class Alloy:
     """A parsed alloy: ``base`` (balance element), ``parts`` {element: amount
-    in percent}, ``unit`` "wt" or "at", and ``text`` as the user wrote it."""
+    in percent}, ``unit`` "wt" or "at", and ``text`` as the user wrote it.
+
+    >>> a = parse_alloy("Ni-20Cr", unit="at")
+    >>> a.base, a.parts, a.unit, a.text
+    ('Ni', {'Cr': 20.0}, 'at', 'Ni-20Cr')
+    """
 
     base: str
     parts: dict
@@ -171,7 +176,13 @@ def counts_for(alloy, n_sites):
 
 
 def made_percent(counts, unit):
-    """{element: percent} of the counts in the alloy's unit (wt or at)."""
+    """{element: percent} of the counts in the alloy's unit (wt or at).
+
+    >>> made_percent({"Ni": 400, "Cr": 100}, "at")
+    {'Ni': 80.0, 'Cr': 20.0}
+    >>> {el: round(p, 2) for el, p in made_percent({"Ni": 400, "Cr": 100}, "wt").items()}
+    {'Ni': 81.87, 'Cr': 18.13}
+    """
     tot = sum(counts.values())
     if tot == 0:
         return {el: 0.0 for el in counts}
@@ -182,7 +193,11 @@ def made_percent(counts, unit):
 
 def tolerance_of(amount, tolerance=None):
     """Allowed deviation (percentage points) of a made amount: the user's, or
-    5 % of the amount, at least 0.02 points."""
+    5 % of the amount, at least 0.02 points.
+
+    >>> tolerance_of(18.0), tolerance_of(0.1), tolerance_of(18.0, tolerance=0.5)
+    (0.9, 0.02, 0.5)
+    """
     if tolerance is not None:
         return float(tolerance)
     return max(0.05 * amount, 0.02)
@@ -190,7 +205,14 @@ def tolerance_of(amount, tolerance=None):
 
 def worst_miss(alloy, counts, tolerance=None):
     """(element, asked, made, allowed) of the amount farthest outside its
-    tolerance, or None when every amount is within it."""
+    tolerance, or None when every amount is within it.
+
+    >>> a = parse_alloy("Ni-20Cr", unit="at")
+    >>> worst_miss(a, {"Ni": 400, "Cr": 100}) is None
+    True
+    >>> worst_miss(a, {"Ni": 45, "Cr": 5})
+    ('Cr', 20.0, 10.0, 1.0)
+    """
     made = made_percent(counts, alloy.unit)
     worst = None
     for el, asked in alloy.parts.items():

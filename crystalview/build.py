@@ -170,7 +170,13 @@ def _validate_params(proto, a, c):
 
 # ------------------------------------------------------------------ geometry helpers
 def centering_vectors(frac, species):
-    """Pure translations (fractional, in [0,1)) that map the basis onto itself."""
+    """Pure translations (fractional, in [0,1)) that map the basis onto itself.
+
+    >>> import crystalview as cv
+    >>> lat = cv.build("Fe").lattice
+    >>> centering_vectors(lat.basis_frac, lat.basis_symbols).tolist()
+    [[0.0, 0.0, 0.0], [0.5, 0.5, 0.5]]
+    """
     frac = np.asarray(frac, float) % 1.0
     out = []
     for j in range(len(frac)):
@@ -190,7 +196,13 @@ def centering_vectors(frac, species):
 
 
 def lattice_period(direction, centerings):
-    """Shortest lattice translation along ``direction`` (conventional frac)."""
+    """Shortest lattice translation along ``direction`` (conventional frac).
+
+    >>> lattice_period((1, 1, 1), [np.zeros(3), np.full(3, 0.5)]).tolist()
+    [0.5, 0.5, 0.5]
+    >>> lattice_period((1, 0, 0), [np.zeros(3), np.full(3, 0.5)]).tolist()
+    [1.0, 0.0, 0.0]
+    """
     d = np.array(_gcd_reduce(direction), dtype=float)
     best = d
     for m in (2, 3, 4, 6):

@@ -18,6 +18,11 @@ ROLES = ("host", "solute", "interstitial")
 
 
 def role_code(name):
+    """The index of a role name in :data:`ROLES` (a UserError for an unknown name).
+
+    >>> role_code("host"), role_code("interstitial")
+    (0, 2)
+    """
     try:
         return ROLES.index(name)
     except ValueError:
@@ -28,7 +33,13 @@ def role_code(name):
 class LatticeInfo:
     """What the crystal was built from: the lattice type and its conventional
     cell expressed in the crystal's own Cartesian frame, so Miller indices
-    relative to the conventional cell map straight to Cartesian vectors."""
+    relative to the conventional cell map straight to Cartesian vectors.
+
+    >>> import crystalview as cv
+    >>> lat = cv.build("Mg").lattice
+    >>> lat.prototype, lat.family, lat.atoms_per_cell, round(lat.c / lat.a, 3)
+    ('hcp', 'hexagonal', 2, 1.624)
+    """
 
     prototype: str                 # key in prototypes.PROTOTYPES, or "cif"
     title: str
@@ -78,6 +89,12 @@ class Crystal:
         is there (a CIF's ``_atom_site_occupancy``).  In an *average* structure
         several entries may share one site (see :mod:`crystalview.occupancy`);
         in a realised one it keeps each atom's occupancy on its shared site.
+
+    >>> c = Crystal(np.eye(3) * 2.8665, [[0, 0, 0], [1.4333] * 3], symbols=["Fe", "Fe"])
+    >>> c
+    <Crystal Fe2 (2 atoms) cell 2.8665 x 2.8665 x 2.8665 A>
+    >>> c.counts(), round(c.volume, 3)
+    ({'Fe': 2}, 23.554)
     """
 
     __slots__ = ("cell", "positions", "numbers", "roles", "pbc", "metadata", "lattice",

@@ -32,6 +32,12 @@ def _source(entry, fieldname):
 
 @dataclass(frozen=True)
 class Phase:
+    """One phase of an element: its lattice type and lattice parameters (A), with their source.
+
+    >>> p = phase("Fe", "gamma")
+    >>> p.lattice, p.a
+    ('fcc', 3.6467)
+    """
     element: str
     name: str
     lattice: str
@@ -44,6 +50,12 @@ class Phase:
 
 @dataclass(frozen=True)
 class Element:
+    """The data for one metal: radius, electronegativity, valence and its phases.
+
+    >>> fe = element("Fe")
+    >>> fe.reference_phase, sorted(fe.phases)
+    ('alpha', ['alpha', 'delta', 'gamma'])
+    """
     symbol: str
     metallic_radius: float | None
     electronegativity: float | None
@@ -63,6 +75,12 @@ class Element:
 
 @dataclass(frozen=True)
 class Interstitial:
+    """A small interstitial-forming atom (H, B, C, N, O) and its radius (A).
+
+    >>> c = interstitial("C")
+    >>> c.symbol, c.radius
+    ('C', 0.77)
+    """
     symbol: str
     radius: float
     source: str
@@ -71,6 +89,12 @@ class Interstitial:
 
 @dataclass(frozen=True)
 class Compound:
+    """An ordered intermetallic compound: its lattice type, elements and lattice parameters.
+
+    >>> ni3al = compound("Ni3Al")
+    >>> ni3al.name, ni3al.lattice, ni3al.elements
+    ('Ni3Al', 'L1_2', ('Ni', 'Al'))
+    """
     name: str
     lattice: str
     elements: tuple
@@ -81,20 +105,39 @@ class Compound:
 
 
 def metal_symbols():
+    """Symbols of every metal in the data file.
+
+    >>> "Cu" in metal_symbols(), len(metal_symbols()) > 20
+    (True, True)
+    """
     return sorted(_data()["elements"])
 
 
 def interstitial_symbols():
+    """Symbols of the interstitial formers in the data file.
+
+    >>> interstitial_symbols()
+    ['B', 'C', 'H', 'N', 'O']
+    """
     return sorted(_data()["interstitials"])
 
 
 def compound_names():
+    """Names of the ordered compounds in the data file.
+
+    >>> compound_names()
+    ['Cu3Au', 'CuAu', 'CuZn', 'FeAl', 'FePt', 'Ni3Al', 'NiAl', 'TiAl']
+    """
     return sorted(_data()["compounds"])
 
 
 @functools.lru_cache(maxsize=None)
 def element(symbol) -> Element:
-    """The data for one metal, by symbol (case as usual: 'Fe')."""
+    """The data for one metal, by symbol (case as usual: 'Fe').
+
+    >>> element("Cu").metallic_radius
+    1.28
+    """
     d = _data()["elements"]
     sym = _canon(symbol)
     if sym not in d:
@@ -141,7 +184,11 @@ def phase_alias(symbol, name):
 
 
 def phase(symbol, name=None) -> Phase:
-    """A named phase of an element, or its reference phase."""
+    """A named phase of an element, or its reference phase.
+
+    >>> phase("Ti").lattice, phase("Ti", "beta").lattice
+    ('hcp', 'bcc')
+    """
     e = element(symbol)
     if name is None:
         return e.phase
@@ -165,6 +212,11 @@ def phase(symbol, name=None) -> Phase:
 
 @functools.lru_cache(maxsize=None)
 def interstitial(symbol) -> Interstitial:
+    """The data for one interstitial former, by symbol ('C', 'N', ...).
+
+    >>> interstitial("N").radius
+    0.72
+    """
     d = _data()["interstitials"]
     sym = _canon(symbol)
     if sym not in d:
@@ -178,6 +230,11 @@ def interstitial(symbol) -> Interstitial:
 
 @functools.lru_cache(maxsize=None)
 def compound(name) -> Compound:
+    """The data for one ordered compound, by name.
+
+    >>> compound("NiAl").lattice
+    'B2'
+    """
     d = _data()["compounds"]
     if name not in d:
         raise UserError(f"unknown compound '{name}'{suggest(name, list(d))}; known: {', '.join(sorted(d))}")
@@ -187,6 +244,11 @@ def compound(name) -> Compound:
 
 
 def is_compound(name):
+    """True when ``name`` is one of the compounds in the data file.
+
+    >>> is_compound("NiAl"), is_compound("Ni")
+    (True, False)
+    """
     return name in _data()["compounds"]
 
 
@@ -197,6 +259,11 @@ def _canon(symbol):
 
 @functools.lru_cache(maxsize=None)
 def atomic_number(symbol) -> int:
+    """Atomic number of an element symbol.
+
+    >>> atomic_number("Fe")
+    26
+    """
     import periodictable
 
     sym = _canon(symbol)
@@ -215,6 +282,11 @@ def _all_symbols():
 
 @functools.lru_cache(maxsize=None)
 def symbol_of(number) -> str:
+    """Element symbol of an atomic number.
+
+    >>> symbol_of(29)
+    'Cu'
+    """
     import periodictable
 
     return periodictable.elements[int(number)].symbol
@@ -222,7 +294,11 @@ def symbol_of(number) -> str:
 
 @functools.lru_cache(maxsize=None)
 def atomic_mass(symbol) -> float:
-    """Standard atomic weight (g/mol), from periodictable."""
+    """Standard atomic weight (g/mol), from periodictable.
+
+    >>> round(atomic_mass("Cu"), 3)
+    63.546
+    """
     import periodictable
 
     return float(periodictable.elements[atomic_number(symbol)].mass)
@@ -230,7 +306,13 @@ def atomic_mass(symbol) -> float:
 
 def solute_radius(symbol):
     """(radius in A, kind, source) for a solute: interstitial radius for the
-    small interstitial formers, CN12 metallic radius for metals."""
+    small interstitial formers, CN12 metallic radius for metals.
+
+    >>> solute_radius("C")[:2]
+    (0.77, 'interstitial')
+    >>> solute_radius("Ni")[:2]
+    (1.24, 'substitutional')
+    """
     sym = _canon(symbol)
     if sym in _data()["interstitials"]:
         i = interstitial(sym)

@@ -24,7 +24,19 @@ MAX_NAME = 200
 
 def check_target(path, force=False, suffixes=None):
     """Raise UserError if ``path`` cannot be written (exists without force,
-    wrong suffix, folder missing or not writable).  Writes nothing."""
+    wrong suffix, folder missing or not writable).  Writes nothing.
+
+    >>> import os, tempfile
+    >>> d = tempfile.mkdtemp()
+    >>> check_target(os.path.join(d, "cu.xyz"), suffixes=(".xyz",)).name
+    'cu.xyz'
+    >>> try:
+    ...     check_target(os.path.join(d, "cu.png"), suffixes=(".xyz",))
+    ... except UserError as e:
+    ...     print("refused")
+    ...
+    refused
+    """
     p = Path(path)
     if suffixes is not None and p.suffix.lower() not in suffixes:
         raise UserError(
@@ -52,6 +64,13 @@ def atomic_write(path, data=None, *, writer=None, force=False, mode="wb"):
     file name work unchanged.
 
     The temporary file is removed on any error.  Returns the final Path.
+
+    >>> import os, tempfile
+    >>> p = os.path.join(tempfile.mkdtemp(), "note.txt")
+    >>> atomic_write(p, "hello\\n", mode="w").name
+    'note.txt'
+    >>> open(p).read(), sorted(os.listdir(os.path.dirname(p)))
+    ('hello\\n', ['note.txt'])
     """
     p = check_target(path, force=force)
     parent = p.parent if str(p.parent) else Path(".")
@@ -136,7 +155,13 @@ def _remove_stale_temps(p):
 
 
 def json_default(o):
-    """JSON form of numpy values, tuples and sets (json.dumps(..., default=json_default))."""
+    """JSON form of numpy values, tuples and sets (json.dumps(..., default=json_default)).
+
+    >>> import json
+    >>> import numpy as np
+    >>> json.dumps({"a": np.float64(3.6149), "v": np.arange(3), "t": (1, 2)}, default=json_default)
+    '{"a": 3.6149, "v": [0, 1, 2], "t": [1, 2]}'
+    """
     import numpy as np
 
     if isinstance(o, np.integer):

@@ -25,6 +25,12 @@ _BRACKETS = {"[": ("]", "direction", False), "<": (">", "direction", True),
 
 @dataclass(frozen=True)
 class Indices:
+    """Parsed Miller (three) or Miller-Bravais (four) indices of a direction or plane.
+
+    >>> ind = parse_indices("[2-1-10]")
+    >>> ind.kind, ind.four, str(ind.three())
+    ('direction', True, '[100]')
+    """
     kind: str          # "direction" | "plane"
     values: tuple      # three or four ints
     family: bool = False
@@ -46,6 +52,13 @@ class Indices:
 
 
 def format_indices(values, kind="direction", family=False):
+    """Index text from whole numbers: '[1-10]', '{111}', commas when an index is over 9.
+
+    >>> format_indices((1, -1, 0)), format_indices((1, 1, 1), "plane", family=True)
+    ('[1-10]', '{111}')
+    >>> format_indices((1, 0, 12), "plane")
+    '(1,0,12)'
+    """
     o, c = {("direction", False): "[]", ("direction", True): "<>",
             ("plane", False): "()", ("plane", True): "{}"}[(kind, family)]
     vals = [int(v) for v in values]
@@ -66,6 +79,11 @@ def parse_indices(text, kind=None, allow_bare=True) -> Indices:
 
     ``kind`` ('direction' or 'plane') is required for bare digits without
     brackets, and checked against the brackets when given.
+
+    >>> parse_indices("(10-12)")
+    Indices(kind='plane', values=(1, 0, -1, 2), family=False)
+    >>> parse_indices("1 -1 0", kind="direction").values
+    (1, -1, 0)
     """
     s = str(text).strip()
     family = False
@@ -119,32 +137,55 @@ def _gcd_reduce(vals):
 
 
 def mb_to_miller_direction(uvtw):
-    """[UVTW] -> [uvw]: u = U - T, v = V - T, w = W (reduced to lowest integers)."""
+    """[UVTW] -> [uvw]: u = U - T, v = V - T, w = W (reduced to lowest integers).
+
+    >>> mb_to_miller_direction((2, -1, -1, 0))
+    (1, 0, 0)
+    """
     U, V, T, W = uvtw
     return _gcd_reduce((U - T, V - T, W))
 
 
 def miller_to_mb_direction(uvw):
     """[uvw] -> [UVTW]: U = (2u - v)/3, V = (2v - u)/3, T = -(u + v)/3, W = w,
-    scaled to the smallest integers."""
+    scaled to the smallest integers.
+
+    >>> miller_to_mb_direction((1, 0, 0))
+    (2, -1, -1, 0)
+    """
     u, v, w = uvw
     vals = (2 * u - v, 2 * v - u, -(u + v), 3 * w)
     return _gcd_reduce(vals)
 
 
 def mb_to_miller_plane(hkil):
+    """(hkil) -> (hkl): drop i = -(h + k).
+
+    >>> mb_to_miller_plane((1, 0, -1, 2))
+    (1, 0, 2)
+    """
     h, k, i, l = hkil
     return (h, k, l)
 
 
 def miller_to_mb_plane(hkl):
+    """(hkl) -> (hkil) with i = -(h + k).
+
+    >>> miller_to_mb_plane((1, 0, 2))
+    (1, 0, -1, 2)
+    """
     h, k, l = hkl
     return (h, k, -(h + k), l)
 
 
 # ------------------------------------------------------------------ metric
 def cell_from_parameters(a, b, c, alpha=90.0, beta=90.0, gamma=90.0):
-    """Cell rows from lengths (A) and angles (degrees); a along x, b in the xy plane."""
+    """Cell rows from lengths (A) and angles (degrees); a along x, b in the xy plane.
+
+    >>> cell = cell_from_parameters(2.9508, 2.9508, 4.6855, gamma=120)
+    >>> cell.round(4).tolist()
+    [[2.9508, 0.0, 0.0], [-1.4754, 2.5555, 0.0], [0.0, 0.0, 4.6855]]
+    """
     al, be, ga = (math.radians(x) for x in (alpha, beta, gamma))
     ax = np.array([a, 0.0, 0.0])
     bx = np.array([b * math.cos(ga), b * math.sin(ga), 0.0])
@@ -155,6 +196,12 @@ def cell_from_parameters(a, b, c, alpha=90.0, beta=90.0, gamma=90.0):
 
 
 def cell_parameters(cell):
+    """(a, b, c, alpha, beta, gamma) of cell rows: lengths in A, angles in degrees.
+
+    >>> cell = cell_from_parameters(3, 4, 5, beta=100)
+    >>> [round(float(x), 4) for x in cell_parameters(cell)]
+    [3.0, 4.0, 5.0, 90.0, 100.0, 90.0]
+    """
     cell = np.asarray(cell, float)
     a, b, c = np.linalg.norm(cell, axis=1)
 
@@ -165,14 +212,24 @@ def cell_parameters(cell):
 
 
 def reciprocal(cell):
-    """Reciprocal cell rows b_i with a_i . b_j = delta_ij (no 2 pi)."""
+    """Reciprocal cell rows b_i with a_i . b_j = delta_ij (no 2 pi).
+
+    >>> reciprocal(np.diag([2.0, 4.0, 5.0])).tolist()
+    [[0.5, 0.0, 0.0], [0.0, 0.25, 0.0], [0.0, 0.0, 0.2]]
+    """
     return np.linalg.inv(np.asarray(cell, float)).T
 
 
 def as_indices(value, kind, what=None) -> Indices:
     """Indices of the given kind from text ('[1-10]', '(111)', bare '110'),
     an Indices, or a sequence of three (four, hexagonal) whole numbers;
-    checked: not all zero, t = -(u + v) / i = -(h + k) for four-index forms."""
+    checked: not all zero, t = -(u + v) / i = -(h + k) for four-index forms.
+
+    >>> as_indices((1, 1, 1), "plane")
+    Indices(kind='plane', values=(1, 1, 1), family=False)
+    >>> as_indices("110", "direction").values
+    (1, 1, 0)
+    """
     what = what or kind
     if isinstance(value, Indices):
         ind = value
@@ -198,23 +255,39 @@ def _ind3(ind, kind):
 
 
 def direction_vector(cell, uvw):
-    """Cartesian vector of the direction [uvw] in the given (conventional) cell."""
+    """Cartesian vector of the direction [uvw] in the given (conventional) cell.
+
+    >>> direction_vector(np.eye(3) * 3.6149, "[110]").round(4).tolist()
+    [3.6149, 3.6149, 0.0]
+    """
     return _ind3(uvw, "direction") @ np.asarray(cell, float)
 
 
 def plane_normal(cell, hkl):
-    """Cartesian normal of (hkl) (the reciprocal vector, not normalised)."""
+    """Cartesian normal of (hkl) (the reciprocal vector, not normalised).
+
+    >>> plane_normal(np.eye(3) * 4.0, "(111)").tolist()
+    [0.25, 0.25, 0.25]
+    """
     return _ind3(hkl, "plane") @ reciprocal(cell)
 
 
 def d_spacing(cell, hkl):
     """Interplanar spacing d_hkl = 1 / |h b1 + k b2 + l b3| (A).  The indices
-    are used as given: d_200 is half of d_100."""
+    are used as given: d_200 is half of d_100.
+
+    >>> round(d_spacing(np.eye(3) * 3.6149, "(111)"), 4)
+    2.0871
+    """
     return float(1.0 / np.linalg.norm(plane_normal(cell, hkl)))
 
 
 def angle_between(cell, d1, d2):
-    """Angle (degrees) between two directions."""
+    """Angle (degrees) between two directions.
+
+    >>> round(angle_between(np.eye(3), "[100]", "[111]"), 2)
+    54.74
+    """
     v1, v2 = direction_vector(cell, d1), direction_vector(cell, d2)
     cosang = np.dot(v1, v2) / np.linalg.norm(v1) / np.linalg.norm(v2)
     return float(math.degrees(math.acos(np.clip(cosang, -1.0, 1.0))))
@@ -231,6 +304,11 @@ def planar_density(cell, basis_frac, hkl):
     reduced to lowest terms) number n per cell; these planes are spaced d apart,
     so the density per area is n d / V.  (Common-practice counting of atom
     centres on the plane, as in textbook planar densities.)
+
+    >>> import crystalview as cv
+    >>> cu = cv.build("Cu").lattice
+    >>> round(float(planar_density(cu.cell, cu.basis_frac, "(111)")), 4)
+    0.1767
     """
     hkl = np.array(_gcd_reduce(_ind3(hkl, "plane").astype(int)), dtype=float)
     basis = np.asarray(basis_frac, float)
@@ -243,7 +321,13 @@ def planar_density(cell, basis_frac, hkl):
 
 
 def linear_density(cell, basis_frac, uvw):
-    """Atoms per A along the line [uvw] through an atom at the origin."""
+    """Atoms per A along the line [uvw] through an atom at the origin.
+
+    >>> import crystalview as cv
+    >>> cu = cv.build("Cu").lattice
+    >>> round(float(linear_density(cu.cell, cu.basis_frac, "[110]")), 4)
+    0.3912
+    """
     uvw = np.array(_gcd_reduce(_ind3(uvw, "direction").astype(int)), dtype=float)
     basis = np.asarray(basis_frac, float)
     basis = basis - basis[0]          # the line passes through an atom
@@ -269,6 +353,11 @@ def atomic_layer_spacings(cell, basis_frac, hkl):
     d_100 = a).  Atoms are grouped by their height along the plane normal
     within one period of the reduced plane family; returns the sorted
     distinct gaps (one value when the layers are evenly spaced).
+
+    >>> import crystalview as cv
+    >>> cu = cv.build("Cu").lattice
+    >>> [round(d, 4) for d in atomic_layer_spacings(cu.cell, cu.basis_frac, "(100)")]
+    [1.8075]
     """
     hkl = np.array(_gcd_reduce(_ind3(hkl, "plane").astype(int)), dtype=float)
     basis = np.asarray(basis_frac, float)

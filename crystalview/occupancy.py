@@ -42,6 +42,11 @@ class SiteGroups:
     site_of : (N,) site index of each entry.
     site_type : (S,) class index of each site (same occupancy signature).
     signatures : class index -> signature text ("Fe", "Fe0.5Ni0.5", "O0.9").
+
+    >>> import crystalview as cv
+    >>> g = site_groups(cv.build("NiAl"))
+    >>> g.n_sites, g.site_type.tolist(), g.signatures
+    (2, [1, 0], ['Al', 'Ni'])
     """
 
     first: np.ndarray

@@ -31,16 +31,30 @@ ELEMENT_SERIES = ["#7d8fa3", "#d9822b", "#2f6fb5", "#b8457a", "#54a37f", "#5c4b8
 
 
 def hex_to_rgb(h):
+    """'#rrggbb' as an (r, g, b) tuple of floats in [0, 1].
+
+    >>> tuple(round(x, 3) for x in hex_to_rgb("#ff8000"))
+    (1.0, 0.502, 0.0)
+    """
     h = h.lstrip("#")
     return tuple(int(h[i:i + 2], 16) / 255.0 for i in (0, 2, 4))
 
 
 def role_colour(role):
+    """The hex colour of an atom role ("host", "solute", ...); unknown roles get the host colour.
+
+    >>> role_colour("host") == role_colour("no such role")
+    True
+    """
     return ROLE_COLOURS.get(role, ROLE_COLOURS["host"])
 
 
 def element_colours(symbols_in_order):
-    """{symbol: hex} for the species of one role, in a stable order."""
+    """{symbol: hex} for the species of one role, in a stable order.
+
+    >>> element_colours(["Ni", "Al"])
+    {'Ni': '#7d8fa3', 'Al': '#d9822b'}
+    """
     return {s: ELEMENT_SERIES[i % len(ELEMENT_SERIES)] for i, s in enumerate(symbols_in_order)}
 
 
@@ -48,7 +62,13 @@ def atom_colours(crystal):
     """Per-atom hex colour index: (list of hex colours, (N,) int index array,
     legend list of (label, hex)).  Host atoms of one element get the host
     colour; several host elements get the element series; solutes and
-    interstitials get their role colour (by element when several)."""
+    interstitials get their role colour (by element when several).
+
+    >>> import crystalview as cv
+    >>> colours, index, legend = atom_colours(cv.build("NiAl"))
+    >>> len(colours), index.tolist(), [label for label, _ in legend]
+    (2, [1, 0], ['Al (host)', 'Ni (host)'])
+    """
     import numpy as np
 
     from .crystal import ROLES

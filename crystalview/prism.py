@@ -33,6 +33,11 @@ class HexagonalPrism:
     edges : (18, 2) index pairs into ``corners``.
     volume : prism volume, A^3 (3 primitive cells).
     atoms_in_prism : atoms' worth inside the prism (6 for hcp, 3 for simple hexagonal).
+
+    >>> import crystalview as cv
+    >>> p = hexagonal_prism(cv.build("Mg"))
+    >>> p.corners.shape, p.edges.shape, p.layer.count("B")
+    ((12, 3), (18, 2), 3)
     """
 
     positions: np.ndarray

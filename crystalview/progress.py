@@ -30,7 +30,11 @@ def set_quiet(flag=True):
 
 
 def enabled():
-    """True when a bar may be shown: a terminal on stderr and nobody asked for quiet."""
+    """True when a bar may be shown: a terminal on stderr and nobody asked for quiet.
+
+    >>> isinstance(enabled(), bool)
+    True
+    """
     if _quiet or os.environ.get("CRYSTALVIEW_QUIET"):
         return False
     try:

@@ -19,6 +19,14 @@ IDEAL_C_OVER_A = math.sqrt(8.0 / 3.0)
 
 @dataclass(frozen=True)
 class Prototype:
+    """A lattice type: its conventional-cell basis (fractional), space group and Wyckoff positions.
+
+    >>> p = prototype("bcc")
+    >>> p.title, p.space_group_symbol, len(p.basis)
+    ('body-centred cubic', 'Im-3m', 2)
+    >>> p.cell(2.8665)[0].tolist()
+    [2.8665, 0.0, 0.0]
+    """
     name: str
     title: str
     family: str            # "cubic" | "hexagonal" | "tetragonal"
@@ -92,10 +100,20 @@ _ALIASES = {
 
 
 def lattice_names():
+    """The lattice type names crystalview builds ("fcc", "bcc", "hcp", ...).
+
+    >>> lattice_names()
+    ['sc', 'bcc', 'fcc', 'hcp', 'hex', 'diamond', 'bct', 'B2', 'L1_2', 'L1_0']
+    """
     return list(PROTOTYPES)
 
 
 def is_lattice(name):
+    """True when ``name`` (or one of its aliases) is a lattice type.
+
+    >>> is_lattice("face-centred-cubic"), is_lattice("Cu")
+    (True, False)
+    """
     return _key(name) is not None
 
 
@@ -110,6 +128,11 @@ def _key(name):
 
 
 def prototype(name) -> Prototype:
+    """The :class:`Prototype` of a lattice type name or alias (a UserError otherwise).
+
+    >>> prototype("hcp").wyckoff, prototype("dc").name
+    ('2c', 'diamond')
+    """
     k = _key(name)
     if k is None:
         raise UserError(

@@ -58,6 +58,11 @@ class Recognition:
     deviation : largest distance (A) of an atom from its ideal position.
     tolerance : the tolerance used (A).
     reason : why the crystal is "other" (empty when recognised).
+
+    >>> import crystalview as cv
+    >>> r = recognise(cv.build("Fe", repeat=(2, 2, 2)))
+    >>> r.lattice, r.space_group, r.recognised
+    ('bcc', 229, True)
     """
 
     lattice: str
@@ -435,5 +440,11 @@ def _majority(signature):
 
 
 def with_origin(lattice, origin):
-    """A copy of a LatticeInfo with another origin (conventional fractions)."""
+    """A copy of a LatticeInfo with another origin (conventional fractions).
+
+    >>> import crystalview as cv
+    >>> lat = with_origin(cv.build("Cu").lattice, [0.5, 0.5, 0.5])
+    >>> lat.origin_frac.tolist(), lat.prototype
+    ([0.5, 0.5, 0.5], 'fcc')
+    """
     return replace(lattice, origin=np.asarray(origin, float))

@@ -175,6 +175,18 @@ def _explain(err):
 
 
 def validate(data, path="scene"):
+    """``data`` checked against the scene schema: returned as it is, or a one-line UserError.
+
+    >>> data = {"scene": {"name": "cu"}, "structure": {"element": "Cu"}}
+    >>> validate(data) is data
+    True
+    >>> try:
+    ...     validate({"scene": {"name": "cu"}, "structure": {"repeat": [2, 2]}})
+    ... except UserError as e:
+    ...     print("refused")
+    ...
+    refused
+    """
     import jsonschema
 
     validator = jsonschema.Draft202012Validator(SCHEMA)
@@ -189,7 +201,14 @@ def validate(data, path="scene"):
 
 
 def load(path):
-    """Read and validate a scene file; returns the dict."""
+    """Read and validate a scene file; returns the dict.
+
+    >>> import os, tempfile
+    >>> p = os.path.join(tempfile.mkdtemp(), "cu.toml")
+    >>> _ = open(p, "w").write('[scene]\\nname = "cu"\\n[structure]\\nelement = "Cu"\\n')
+    >>> load(p)
+    {'scene': {'name': 'cu'}, 'structure': {'element': 'Cu'}}
+    """
     p = Path(path)
     if not p.is_file():
         raise UserError(f"scene file '{p}' not found")
@@ -227,7 +246,14 @@ def load(path):
 
 
 def crystal_from_scene(data, base_dir="."):
-    """Build the scene's crystal and apply its defects in order."""
+    """Build the scene's crystal and apply its defects in order.
+
+    >>> data = {"scene": {"name": "cu"}, "structure": {"element": "Cu", "repeat": [2, 2, 2]},
+    ...         "defects": [{"kind": "vacancies", "count": 1}]}
+    >>> c = crystal_from_scene(data)
+    >>> len(c), c.metadata["scene"]
+    (31, 'cu')
+    """
     from .build import build
 
     s = data["structure"]
@@ -261,6 +287,13 @@ def _element_of(structure):
 
 
 def apply_defect(crystal, d, structure):
+    """The crystal with one [[defects]] entry ``d`` of a scene applied to it.
+
+    >>> import crystalview as cv
+    >>> d = {"kind": "substitute", "element": "Ni", "count": 2}
+    >>> apply_defect(cv.build("Cu", repeat=(2, 2, 2)), d, {"element": "Cu"}).counts()
+    {'Ni': 2, 'Cu': 30}
+    """
     import crystalview as cv
 
     kind = d["kind"]
@@ -291,7 +324,14 @@ def apply_defect(crystal, d, structure):
 
 
 def load_crystal(path):
-    """The crystal a scene file describes (structure + defects)."""
+    """The crystal a scene file describes (structure + defects).
+
+    >>> import os, tempfile
+    >>> p = os.path.join(tempfile.mkdtemp(), "fe.toml")
+    >>> _ = open(p, "w").write('[scene]\\nname = "fe"\\n[structure]\\nelement = "Fe"\\nrepeat = [2, 2, 2]\\n')
+    >>> len(load_crystal(p))
+    16
+    """
     data = load(path)
     return crystal_from_scene(data, Path(path).parent)
 
@@ -359,7 +399,13 @@ def _inside(out, name, section):
 def plan_outputs(data, out_dir):
     """The files a scene will write (checked before any work starts): every
     name inside the output folder, none twice (case-insensitive, the print
-    reports written beside models included)."""
+    reports written beside models included).
+
+    >>> data = {"scene": {"name": "cu"}, "structure": {"element": "Cu"},
+    ...         "analysis": {"fit": ["C"]}}
+    >>> [f.as_posix() for f in plan_outputs(data, "out")]
+    ['out/info.json', 'out/fit-C.json', 'out/manifest.json']
+    """
     out = Path(out_dir)
     files = []
     a = data.get("analysis", {})
@@ -387,7 +433,14 @@ def plan_outputs(data, out_dir):
 
 
 def make_folder(path):
-    """Create an output folder, or a one-line UserError saying why not."""
+    """Create an output folder, or a one-line UserError saying why not.
+
+    >>> import os, tempfile
+    >>> d = os.path.join(tempfile.mkdtemp(), "exports", "cu")
+    >>> make_folder(d)
+    >>> os.path.isdir(d)
+    True
+    """
     try:
         Path(path).mkdir(parents=True, exist_ok=True)
     except OSError as exc:
@@ -398,7 +451,15 @@ def make_folder(path):
 
 
 def existing_outputs(paths, out=None):
-    """Files that running these scenes would overwrite (for an up-front check)."""
+    """Files that running these scenes would overwrite (for an up-front check).
+
+    >>> import os, tempfile
+    >>> d = tempfile.mkdtemp()
+    >>> p = os.path.join(d, "cu.toml")
+    >>> _ = open(p, "w").write('[scene]\\nname = "cu"\\n[structure]\\nelement = "Cu"\\n')
+    >>> existing_outputs([p], out=d)
+    []
+    """
     found = []
     for path in paths:
         data = load(path)
@@ -409,7 +470,16 @@ def existing_outputs(paths, out=None):
 
 
 def run_scene(path, out=None, force=False, log=print):
-    """Do everything a scene file asks; returns the manifest dict."""
+    """Do everything a scene file asks; returns the manifest dict.
+
+    >>> import os, tempfile
+    >>> d = tempfile.mkdtemp()
+    >>> p = os.path.join(d, "cu.toml")
+    >>> _ = open(p, "w").write('[scene]\\nname = "cu"\\n[structure]\\nelement = "Cu"\\n')
+    >>> manifest = run_scene(p, out=os.path.join(d, "out"), log=lambda *a: None)
+    >>> sorted(os.listdir(os.path.join(d, "out")))
+    ['info.json', 'manifest.json']
+    """
     t0 = time.perf_counter()
     path = Path(path)
     data = load(path)

@@ -81,7 +81,12 @@ KNOWN_SOURCE = "ASM Handbook Vol. 3, Alloy Phase Diagrams; Callister & Rethwisch
 
 
 class FitReport(dict):
-    """A dict with attribute access (report.verdict, report.sites, ...)."""
+    """A dict with attribute access (report.verdict, report.sites, ...).
+
+    >>> r = FitReport(verdict="fits", sites=[])
+    >>> r.verdict, r["verdict"]
+    ('fits', 'fits')
+    """
 
     def __getattr__(self, name):
         try:
@@ -103,7 +108,15 @@ def fit(solute, crystal, phase=None, max_atoms=None):
     ``max_atoms``: cap of the hole-by-hole analysis a defected or unknown
     structure needs (default 300,000 atoms; see
     :func:`crystalview.analysis.sites.interstitial_sites`); over it a
-    LimitError gives the estimated memory and time."""
+    LimitError gives the estimated memory and time.
+
+    >>> r = fit("C", "Fe")
+    >>> r.mode, r.preferred_site, r.largest_hole
+    ('interstitial', 'octahedral', 'tetrahedral')
+    >>> s = r.sites[0]
+    >>> s["kind"], round(s["hole_radius_A"], 3), round(s["linear_strain"], 3)
+    ('octahedral', 0.192, 0.403)
+    """
     if isinstance(crystal, str):
         from ..build import build
 

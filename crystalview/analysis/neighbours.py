@@ -15,7 +15,11 @@ from ..errors import LimitError
 
 
 def cell_heights(cell):
-    """Distances between opposite faces of the cell (A)."""
+    """Distances between opposite faces of the cell (A).
+
+    >>> cell_heights(np.diag([2.0, 3.0, 4.0])).round(6).tolist()
+    [2.0, 3.0, 4.0]
+    """
     cell = np.asarray(cell, float)
     vol = abs(np.linalg.det(cell))
     return np.array([vol / np.linalg.norm(np.cross(cell[(k + 1) % 3], cell[(k + 2) % 3])) for k in range(3)])
@@ -23,7 +27,12 @@ def cell_heights(cell):
 
 def with_images(positions, cell, pbc, cutoff):
     """(points, index) : the atoms plus every periodic image within ``cutoff``
-    of the cell; ``index`` maps each point back to its atom."""
+    of the cell; ``index`` maps each point back to its atom.
+
+    >>> points, index = with_images([[0.5, 0.5, 0.5]], np.eye(3) * 3.0, (True, True, False), 1.0)
+    >>> points.tolist(), index.tolist()
+    ([[0.5, 0.5, 0.5], [0.5, 3.5, 0.5], [3.5, 0.5, 0.5], [3.5, 3.5, 0.5]], [0, 0, 0, 0])
+    """
     positions = np.asarray(positions, float)
     cell = np.asarray(cell, float)
     frac = np.linalg.solve(cell.T, positions.T).T
@@ -51,6 +60,11 @@ def neighbour_pairs(crystal, cutoff, max_pairs=200_000_000):
 
     Returns (i, j, vectors, distances): each unordered pair appears twice
     (i->j and j->i); an atom may neighbour several images of another atom.
+
+    >>> import crystalview as cv
+    >>> i, j, vectors, distances = neighbour_pairs(cv.build("Cu"), 2.6)
+    >>> len(i), sorted(set(distances.round(4).tolist()))
+    (48, [2.5561])
     """
     n = len(crystal)
     if n == 0:
@@ -76,7 +90,12 @@ def neighbour_pairs(crystal, cutoff, max_pairs=200_000_000):
 
 
 def nearest_neighbour_distance(crystal):
-    """Shortest interatomic distance (A), periodic images included."""
+    """Shortest interatomic distance (A), periodic images included.
+
+    >>> import crystalview as cv
+    >>> round(nearest_neighbour_distance(cv.build("Fe")), 4)
+    2.4825
+    """
     n = len(crystal)
     if n == 0:
         return float("nan")
@@ -99,7 +118,14 @@ def nearest_neighbour_distance(crystal):
 
 def coordination_numbers(crystal, tolerance=0.05, shell=None):
     """Per-atom coordination number: neighbours within (1 + tolerance) x the
-    nearest-neighbour distance (or within ``shell`` A)."""
+    nearest-neighbour distance (or within ``shell`` A).
+
+    >>> import crystalview as cv
+    >>> coordination_numbers(cv.build("Fe")).tolist()
+    [8, 8]
+    >>> coordination_numbers(cv.build("Fe"), shell=2.9).tolist()
+    [14, 14]
+    """
     if shell is None:
         shell = nearest_neighbour_distance(crystal) * (1.0 + tolerance)
     i, _, _, _ = neighbour_pairs(crystal, shell)

@@ -23,7 +23,12 @@ SHELL_MERGE = 0.12
 
 def conventional(crystal: Crystal) -> Crystal:
     """The conventional cell the crystal was built from (or the crystal itself,
-    realised, for a structure of no known lattice type)."""
+    realised, for a structure of no known lattice type).
+
+    >>> import crystalview as cv
+    >>> conventional(cv.build("Cu", repeat=(3, 3, 3)))
+    <Crystal fcc Cu4 (4 atoms) cell 3.6149 x 3.6149 x 3.6149 A>
+    """
     lat = crystal.lattice
     if lat is None or lat.prototype == "cif":
         from ..occupancy import realise
@@ -36,7 +41,12 @@ def conventional(crystal: Crystal) -> Crystal:
 
 
 def neighbour_shells(crystal: Crystal, nshells=3, sample=2000):
-    """[(distance, mean count)] of the first coordination shells."""
+    """[(distance, mean count)] of the first coordination shells.
+
+    >>> import crystalview as cv
+    >>> [(round(d, 4), float(n)) for d, n in neighbour_shells(cv.build("Cu"))]
+    [(2.5561, 12.0), (3.6149, 6.0), (4.4273, 24.0)]
+    """
     n = len(crystal)
     if n == 0:
         return []
@@ -66,7 +76,13 @@ def neighbour_shells(crystal: Crystal, nshells=3, sample=2000):
 
 
 def coordination(crystal: Crystal):
-    """(coordination number, [(distance, count), ...]) with the shell merge rule."""
+    """(coordination number, [(distance, count), ...]) with the shell merge rule.
+
+    >>> import crystalview as cv
+    >>> cn, shells = coordination(cv.build("Fe"))
+    >>> float(cn), [(round(d, 4), float(n)) for d, n in shells]
+    (8.0, [(2.4825, 8.0)])
+    """
     shells = neighbour_shells(crystal, nshells=4)
     if not shells:
         return 0, []
@@ -116,10 +132,23 @@ def density(crystal: Crystal):
 
 
 def atoms_per_mm3(crystal: Crystal):
+    """Number of atoms per mm^3 of the crystal.
+
+    >>> import crystalview as cv
+    >>> f"{atoms_per_mm3(cv.build('Cu')):.4g}"
+    '8.468e+19'
+    """
     return len(crystal) / crystal.volume * 1e21
 
 
 def plane_numbers(crystal: Crystal, hkl):
+    """d-spacing, atom layer spacings and planar density of the plane (hkl) of the lattice.
+
+    >>> import crystalview as cv
+    >>> p = plane_numbers(cv.build("Cu"), "(111)")
+    >>> p["plane"], round(p["d_spacing_A"], 4), round(float(p["planar_density_per_nm2"]), 2)
+    ('(111)', 2.0871, 17.67)
+    """
     lat = crystal.lattice
     if lat is None:
         raise UserError("planes need a crystal with a known lattice")
@@ -134,6 +163,13 @@ def plane_numbers(crystal: Crystal, hkl):
 
 
 def direction_numbers(crystal: Crystal, uvw):
+    """Repeat length and linear density of the direction [uvw] of the crystal's lattice.
+
+    >>> import crystalview as cv
+    >>> d = direction_numbers(cv.build("Cu"), "[110]")
+    >>> d["direction"], round(d["repeat_length_A"], 4), round(float(d["linear_density_per_nm"]), 3)
+    ('[110]', 2.5561, 3.912)
+    """
     lat = crystal.lattice
     if lat is None:
         raise UserError("directions need a crystal with a known lattice")
@@ -150,7 +186,13 @@ def direction_numbers(crystal: Crystal, uvw):
 
 
 def summary(crystal: Crystal, part_volume_mm3=None, planes=(), directions=(), angles=()):
-    """Everything `crystalview info` prints, as a plain dict (JSON-ready)."""
+    """Everything `crystalview info` prints, as a plain dict (JSON-ready).
+
+    >>> import crystalview as cv
+    >>> s = summary(cv.build("Cu"))
+    >>> s["lattice_type"], s["space_group"], s["atoms"], round(s["packing_factor"], 4)
+    ('fcc', 225, 4, 0.7405)
+    """
     conv = conventional(crystal)
     lat = crystal.lattice
     cn, shells = coordination(conv)
@@ -229,7 +271,12 @@ def summary(crystal: Crystal, part_volume_mm3=None, planes=(), directions=(), an
 
 
 def symmetry(crystal: Crystal, symprec=1e-3):
-    """(international symbol, number) from spglib."""
+    """(international symbol, number) from spglib.
+
+    >>> import crystalview as cv
+    >>> symmetry(cv.build("Mg"))
+    ('P6_3/mmc', 194)
+    """
     import spglib
 
     cell = (crystal.cell, crystal.frac, crystal.numbers.astype(int))

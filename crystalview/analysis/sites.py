@@ -107,6 +107,11 @@ class Site:
     ratio : radius / mean hard-sphere radius of the bounding atoms (r/R).
     frac : fractional position in the conventional cell (None for voids).
     note : anything worth knowing (e.g. a saddle point).
+
+    >>> import crystalview as cv
+    >>> s = interstitial_sites(cv.build("Cu"), kinds="octahedral")[0]
+    >>> s.kind, round(s.radius, 4), len(s.neighbours), s.label
+    ('octahedral', 0.5294, 6, 'octahedral')
     """
 
     kind: str
@@ -134,7 +139,14 @@ class Site:
 
 @dataclass
 class SiteKind:
-    """A kind of site of a lattice type, worked out in the conventional cell."""
+    """A kind of site of a lattice type, worked out in the conventional cell.
+
+    >>> import crystalview as cv
+    >>> fe = cv.build("Fe")
+    >>> k = site_kinds(fe.lattice, fe.species_radii)[0]
+    >>> k.kind, k.coordination, round(k.radius, 4), round(k.ratio, 3)
+    ('octahedral', 6, 0.192, 0.155)
+    """
 
     kind: str
     label: str
@@ -175,7 +187,13 @@ def _formula(symbols, single_species=False):
 
 def site_kinds(lattice, species_radii):
     """The site kinds of a lattice type, worked out in its conventional cell
-    (list of :class:`SiteKind`), using the hard-sphere radii given."""
+    (list of :class:`SiteKind`), using the hard-sphere radii given.
+
+    >>> import crystalview as cv
+    >>> cu = cv.build("Cu")
+    >>> [(k.kind, k.coordination) for k in site_kinds(cu.lattice, cu.species_radii)]
+    [('octahedral', 6), ('tetrahedral', 4)]
+    """
     from .voids import tangent_sphere
 
     proto = lattice.prototype
@@ -238,7 +256,13 @@ def _expected_counts(crystal):
 
 def is_perfect(crystal):
     """True when the crystal is its perfect lattice: no recorded defects,
-    only host atoms, and the species counts of the perfect cell."""
+    only host atoms, and the species counts of the perfect cell.
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Cu", repeat=(2, 2, 2))
+    >>> is_perfect(c), is_perfect(cv.add_vacancies(c, count=1))
+    (True, False)
+    """
     lat = crystal.lattice
     if lat is None or lat.prototype not in TEMPLATES:
         return False
@@ -348,6 +372,11 @@ def interstitial_sites(crystal, kinds=None, max_atoms=None):
     and of the void analysis (default 300,000); over it a LimitError gives the
     estimated memory and time before anything is allocated.  Perfect crystals
     are worked out analytically and are not capped here.
+
+    >>> import crystalview as cv
+    >>> sites = interstitial_sites(cv.build("Cu"))
+    >>> sorted({s.kind for s in sites}), len(sites)
+    (['octahedral', 'tetrahedral'], 12)
     """
     want = None if kinds is None else ({kinds} if isinstance(kinds, str) else set(kinds))
     lat = crystal.lattice
@@ -446,7 +475,15 @@ def _lattice_sites(crystal, max_atoms=None):
 # ---------------------------------------------------------------------- summary
 def site_table(crystal, max_atoms=None):
     """One row per site kind: radius (or spread for a defected crystal), r/R,
-    count per conventional cell and in this crystal, coordinates, bounding atoms."""
+    count per conventional cell and in this crystal, coordinates, bounding atoms.
+
+    >>> import crystalview as cv
+    >>> for r in site_table(cv.build("Cu")):
+    ...     print(r["kind"], round(r["radius_A"], 4), r["per_cell"], r["bounded_by"])
+    ...
+    octahedral 0.5294 4 6 Cu at 1.8075 A
+    tetrahedral 0.2872 8 4 Cu at 1.5653 A
+    """
     lat = crystal.lattice
     perfect = is_perfect(crystal)
     rows = []
@@ -488,7 +525,13 @@ def site_table(crystal, max_atoms=None):
 def sites_report(crystal, max_atoms=None):
     """The JSON-ready report `crystalview sites --json` prints (``max_atoms``:
     cap of the hole-by-hole analysis of a defected crystal, see
-    :func:`interstitial_sites`)."""
+    :func:`interstitial_sites`).
+
+    >>> import crystalview as cv
+    >>> rep = sites_report(cv.build("Cu"))
+    >>> rep["perfect"], [s["kind"] for s in rep["sites"]]
+    (True, ['octahedral', 'tetrahedral'])
+    """
     lat = crystal.lattice
     return {
         "name": crystal.metadata.get("name") or "/".join(crystal.elements),

@@ -36,6 +36,12 @@ _TOL = 1e-9
 # ------------------------------------------------------------------ families
 @dataclass(frozen=True)
 class SlipFamily:
+    """A family of slip systems: its plane and direction family, expected count and aliases.
+
+    >>> f = FAMILIES["{111}<110>"]
+    >>> f.plane, f.direction, f.expected, f.aliases
+    ((1, 1, 1), (1, -1, 0), 12, ('octahedral', '111'))
+    """
     name: str            # what the trade calls it: "basal", "{110}<111>", ...
     plane: tuple         # representative plane (3 or 4 indices)
     direction: tuple     # representative direction in that plane (same index count)
@@ -116,7 +122,12 @@ def _norm_name(s):
 
 
 def family_names(crystal):
-    """Every slip family the crystal's lattice has (first the default ones)."""
+    """Every slip family the crystal's lattice has (first the default ones).
+
+    >>> import crystalview as cv
+    >>> family_names(cv.build("Mg"))
+    ['basal', 'prismatic', 'pyramidal <a>', 'pyramidal <c+a>', 'pyramidal <c+a> 1st order']
+    """
     return list(LATTICE_FAMILIES[_lattice_key(crystal)][0])
 
 
@@ -213,7 +224,13 @@ class SlipSystem:
     for hexagonal lattices); ``unit_normal`` / ``unit_direction`` are Cartesian
     unit vectors in the crystal frame; ``burgers_vector`` is the shortest lattice
     translation along the slip direction (a superlattice translation in an
-    ordered lattice) and ``burgers_length_A`` its length."""
+    ordered lattice) and ``burgers_length_A`` its length.
+
+    >>> import crystalview as cv
+    >>> s = slip_systems(cv.build("Cu"))[0]
+    >>> s.family, s.plane, s.direction, s.burgers_vector, round(s.burgers_length_A, 4)
+    ('{111}<110>', '(111)', '[10-1]', '1/2[10-1]', 2.5561)
+    """
 
     family: str
     plane: str
@@ -290,6 +307,10 @@ def slip_systems(crystal, families=None):
     ``"prismatic"``, ``"pyramidal <a>"``, ``"pyramidal <c+a>"``,
     ``"pyramidal <c+a> 1st order"`` (a plane family alone, ``"{112}"``, works
     where it is unambiguous).  Returns a list of :class:`SlipSystem`.
+
+    >>> import crystalview as cv
+    >>> len(slip_systems(cv.build("Cu"))), len(slip_systems(cv.build("Fe"), "{112}<111>"))
+    (12, 12)
     """
     names = _resolve_families(crystal, families)
     lat = crystal.lattice
@@ -314,7 +335,13 @@ def slip_systems(crystal, families=None):
 def load_axis(crystal, axis, cartesian=False):
     """(unit Cartesian vector, label) for a loading axis given as indices
     ('[001]', '001', '[2-1-13]', (0, 0, 1)) or, with cartesian=True, a
-    Cartesian vector in the crystal frame."""
+    Cartesian vector in the crystal frame.
+
+    >>> import crystalview as cv
+    >>> v, label = load_axis(cv.build("Cu"), "[110]")
+    >>> v.round(4).tolist(), label
+    ([0.7071, 0.7071, 0.0], '[110]')
+    """
     lat = crystal.lattice
     if cartesian:
         v = np.asarray(axis, dtype=float).reshape(-1)
@@ -334,6 +361,13 @@ def load_axis(crystal, axis, cartesian=False):
 # ------------------------------------------------------------------ Schmid factors
 @dataclass
 class SchmidResult:
+    """Schmid factor (and, with a stress or CRSS, resolved shear and yield stress) of one slip system.
+
+    >>> import crystalview as cv
+    >>> r = schmid_factors(cv.build("Cu"), "[001]", stress=100, crss=1.0)[0]
+    >>> r.plane, r.direction, round(r.schmid_factor, 4), round(r.resolved_shear_stress_MPa)
+    ('(111)', '[10-1]', 0.4082, 41)
+    """
     family: str
     plane: str
     direction: str
@@ -396,6 +430,11 @@ def schmid_factors(crystal, axis, families=None, stress=None, crss=None, cartesi
     m*|stress|; ``crss`` (MPa; a number, or a dict family -> MPa) adds the
     yield stress CRSS/m that Schmid's law predicts for each system.  Every
     system sharing the highest Schmid factor is marked ``most_favoured``.
+
+    >>> import crystalview as cv
+    >>> res = schmid_factors(cv.build("Cu"), "[123]")
+    >>> len(res), res[0].plane, res[0].direction, round(res[0].schmid_factor, 4)
+    (12, '(1-1-1)', '[101]', 0.4666)
     """
     key = _lattice_key(crystal)
     t, _label = load_axis(crystal, axis, cartesian=cartesian)
@@ -430,7 +469,15 @@ def schmid_factors(crystal, axis, families=None, stress=None, crss=None, cartesi
 
 
 def first_to_yield(results):
-    """The result with the lowest predicted yield stress (Schmid's law), or None."""
+    """The result with the lowest predicted yield stress (Schmid's law), or None.
+
+    >>> import crystalview as cv
+    >>> r = first_to_yield(schmid_factors(cv.build("Cu"), "[123]", crss=1.0))
+    >>> r.plane, r.direction, round(r.yield_stress_MPa, 3)
+    ('(1-1-1)', '[101]', 2.143)
+    >>> first_to_yield(schmid_factors(cv.build("Cu"), "[123]")) is None
+    True
+    """
     ok = [r for r in results if r.yield_stress_MPa is not None]
     return min(ok, key=lambda r: r.yield_stress_MPa) if ok else None
 
@@ -440,7 +487,14 @@ def independent_slip_systems(crystal, families=None):
     """Number of independent slip systems: the rank of the systems' symmetric
     shear tensors (d n^T + n d^T)/2 in the 5-dimensional space of volume-
     preserving strains.  Five are needed for a grain to take any shape change
-    (von Mises criterion)."""
+    (von Mises criterion).
+
+    >>> import crystalview as cv
+    >>> independent_slip_systems(cv.build("Cu"))
+    5
+    >>> independent_slip_systems(cv.build("Mg"), "basal")
+    2
+    """
     systems = slip_systems(crystal, families)
     if not systems:
         return 0
@@ -454,7 +508,13 @@ def independent_slip_systems(crystal, families=None):
 def taylor_factor(crystal, families=None):
     """Taylor factor M of a random polycrystal (sigma_y ~ M * CRSS), as a
     reported constant with its source, or value None where no single number
-    applies.  Returns dict(value, basis, source, independent_systems)."""
+    applies.  Returns dict(value, basis, source, independent_systems).
+
+    >>> import crystalview as cv
+    >>> t = taylor_factor(cv.build("Cu"))
+    >>> t["value"], t["independent_systems"]
+    (3.06, 5)
+    """
     key = _lattice_key(crystal)
     names = _resolve_families(crystal, families)
     nind = independent_slip_systems(crystal, names)
@@ -522,7 +582,13 @@ def slip_overlay(crystal, axis, families=None, cartesian=False):
     """What a figure needs to draw the most favoured slip system for a load
     along ``axis``: {"planes": [plane], "directions": [direction],
     "load_axis": axis string, "label": "(111)[01-1]  m = 0.408",
-    "schmid_factor": m, "ties": how many systems share it}."""
+    "schmid_factor": m, "ties": how many systems share it}.
+
+    >>> import crystalview as cv
+    >>> o = slip_overlay(cv.build("Cu"), "[001]")
+    >>> o["label"], o["ties"]
+    ('(111)[10-1]  m = 0.408', 8)
+    """
     res = schmid_factors(crystal, axis, families=families, cartesian=cartesian)
     _t, label = load_axis(crystal, axis, cartesian=cartesian)
     if not res:

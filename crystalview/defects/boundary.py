@@ -52,7 +52,11 @@ def _cubic_rotations():
 
 
 def sigma_of(M, max_sigma=999):
-    """Smallest N with N * M integral (M a rational rotation matrix in cubic axes)."""
+    """Smallest N with N * M integral (M a rational rotation matrix in cubic axes).
+
+    >>> sigma_of(mirror_rotation((3, 1, 0))), sigma_of(np.eye(3))
+    (5, 1)
+    """
     M = np.asarray(M, float)
     for n in range(1, max_sigma + 1):
         X = n * M
@@ -95,7 +99,12 @@ def tilt_angle(axis, plane):
 def misorientation(M, axis=None):
     """(smallest misorientation angle in degrees over the cubic symmetry,
     its axis in cubic axes).  With ``axis`` given, the smallest angle whose
-    rotation axis is parallel to it."""
+    rotation axis is parallel to it.
+
+    >>> angle, axis = misorientation(mirror_rotation((3, 1, 0)))
+    >>> round(angle, 2), np.abs(axis).round(4).tolist()
+    (36.87, [0.0, 0.0, 1.0])
+    """
     best = None
     for S in _cubic_rotations():
         R = M @ S
@@ -121,7 +130,11 @@ def mirror_rotation(plane):
     """The misorientation of the two grains in cubic axes: grain 2 is grain 1
     mirrored in the boundary plane, i.e. (the lattice being centrosymmetric)
     rotated 180 degrees about the plane normal n: R = 2 n n^T - I (for a
-    cubic lattice the normal of (hkl) is [hkl])."""
+    cubic lattice the normal of (hkl) is [hkl]).
+
+    >>> (mirror_rotation((1, 1, 1)) * 3).round(6).tolist()
+    [[-1.0, 2.0, 2.0], [2.0, -1.0, 2.0], [2.0, 2.0, -1.0]]
+    """
     n = np.asarray(plane, float)
     n = n / np.linalg.norm(n)
     return 2.0 * np.outer(n, n) - np.eye(3)
@@ -129,13 +142,23 @@ def mirror_rotation(plane):
 
 def mirror_sigma(plane):
     """Sigma of the symmetric tilt boundary on ``plane`` (hkl); 1 when the
-    plane is a mirror plane of the cube ({100}, {110}), i.e. no boundary."""
+    plane is a mirror plane of the cube ({100}, {110}), i.e. no boundary.
+
+    >>> mirror_sigma((3, 1, 0)), mirror_sigma((1, 1, 1)), mirror_sigma((1, 1, 0))
+    (5, 3, 1)
+    """
     return sigma_of(mirror_rotation(plane))
 
 
 def boundary_planes(axis, count=3, span=5):
     """Up to ``count`` low-index planes (hkl) containing ``axis`` [uvw] that
-    give a real boundary (Sigma > 1), lowest Sigma first, then lowest indices."""
+    give a real boundary (Sigma > 1), lowest Sigma first, then lowest indices.
+
+    >>> boundary_planes((0, 0, 1))
+    ['(210)', '(310)', '(320)']
+    >>> boundary_planes((1, -1, 0), count=2)
+    ['(111)', '(112)']
+    """
     t = np.asarray(axis, int)
     found = {}
     r = range(-span, span + 1)
@@ -170,6 +193,10 @@ def tilt_boundary(element, axis="[001]", plane="(310)", size=None, overlap=0.6, 
     overlap : remove the grain-2 atom of pairs closer than this fraction of
         the nearest-neighbour distance.
     periodic : periodic along y (two boundaries) or free surfaces (one).
+
+    >>> c = tilt_boundary("Cu", axis="[001]", plane="(310)")
+    >>> len(c), c.metadata["defects"][0]["kind"], c.metadata["defects"][0]["sigma"]
+    (468, 'tilt_boundary', 5)
     """
 
     from ..analysis.neighbours import nearest_neighbour_distance, neighbour_pairs

@@ -16,6 +16,11 @@ def fill_sites(crystal, element, kind="octahedral", fraction=None, seed=0, max_a
     file (or its metallic radius for a metal).  A defect record is added to
     ``metadata['defects']``.  ``max_atoms`` raises the cap on the hole
     analysis of large defected crystals.
+
+    >>> import crystalview as cv
+    >>> c = fill_sites(cv.build("Fe", phase="gamma", repeat=(2, 2, 2)), "C", fraction=0.25)
+    >>> c.counts(), c.role_counts()
+    ({'C': 8, 'Fe': 32}, {'host': 32, 'interstitial': 8})
     """
     from .. import elements as E
     from ..analysis.sites import interstitial_sites

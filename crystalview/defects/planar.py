@@ -57,7 +57,19 @@ _OFFSETS = {"A": (0.0, 0.0), "B": (1.0 / 3.0, 2.0 / 3.0), "C": (2.0 / 3.0, 1.0 /
 
 
 def check_sequence(sequence):
-    """The sequence as upper-case letters, or UserError."""
+    """The sequence as upper-case letters, or UserError.
+
+    >>> check_sequence("abcab")
+    ('ABCAB', None)
+    >>> check_sequence("dhcp")
+    ('ABAC', 'dhcp')
+    >>> try:
+    ...     check_sequence("AAB")
+    ... except UserError:
+    ...     print("refused")
+    ...
+    refused
+    """
     if not isinstance(sequence, str):
         raise UserError("a stacking sequence is a string of the letters A, B and C, e.g. 'ABC' (FCC) or 'AB' (HCP)")
     if not sequence.strip():
@@ -88,7 +100,11 @@ def check_sequence(sequence):
 
 def hc_notation(sequence):
     """h/c notation of a periodic sequence: 'h' where the two neighbouring
-    layers are alike, 'c' where they differ (Hirth & Lothe)."""
+    layers are alike, 'c' where they differ (Hirth & Lothe).
+
+    >>> hc_notation("ABC"), hc_notation("AB"), hc_notation("ABCACB")
+    ('ccc', 'hh', 'hcchcc')
+    """
     n = len(sequence)
     return "".join("h" if sequence[i - 1] == sequence[(i + 1) % n] else "c" for i in range(n))
 
@@ -168,6 +184,10 @@ def stack(element, sequence, a=None, repeat=(1, 1), spacing=None, phase=None, ma
         whole sequence along the normal.
     spacing : layer spacing (A); default ideal sqrt(2/3) d for FCC metals,
         c/2 of the element for HCP metals.
+
+    >>> c = stack("Cu", "ABCABABC")
+    >>> len(c), c.metadata["defects"][0]["kind"]
+    (8, 'stacking')
     """
     from ..limits import check_atom_count
 
@@ -256,6 +276,12 @@ def stacking_sequence(crystal: Crystal, details=False, sample=400):
     returned (a cubic FCC cell gives 'ABC'); otherwise every layer from bottom
     to top.  ``details=True`` returns a dict with the normal, the layer
     heights and the per-layer agreement too.
+
+    >>> import crystalview as cv
+    >>> stacking_sequence(stack("Cu", "ABCABABC"))
+    'ABCABABC'
+    >>> stacking_sequence(cv.build("Mg"))
+    'AB'
     """
     from scipy.spatial import cKDTree
 

@@ -26,7 +26,17 @@ from ..errors import UserError
 
 
 def fraction_value(fraction, what="of the sites", example="0.01"):
-    """A fraction in [0, 1] from user input, or a one-line UserError."""
+    """A fraction in [0, 1] from user input, or a one-line UserError.
+
+    >>> fraction_value("0.25")
+    0.25
+    >>> try:
+    ...     fraction_value(1.5)
+    ... except UserError:
+    ...     print("refused")
+    ...
+    refused
+    """
     try:
         f = float(fraction)
     except (TypeError, ValueError):
@@ -84,6 +94,13 @@ def add_vacancies(crystal: Crystal, count=None, fraction=None, indices=None, see
 
     ``element`` limits the random choice to one species (e.g. the Al sites of
     NiAl).  Recorded as ``{'kind': 'vacancy', 'count', 'positions', 'seed', ...}``.
+
+    >>> import crystalview as cv
+    >>> c = add_vacancies(cv.build("Cu", repeat=(2, 2, 2)), count=3)
+    >>> len(c), c.metadata["defects"][0]["kind"], c.metadata["defects"][0]["count"]
+    (29, 'vacancy', 3)
+    >>> add_vacancies(cv.build("NiAl", repeat=(2, 2, 2)), count=2, element="Al").counts()
+    {'Al': 6, 'Ni': 8}
     """
     if not isinstance(crystal, Crystal):
         raise UserError("add_vacancies needs a Crystal, e.g. add_vacancies(build('Cu', repeat=(4, 4, 4)), count=3)")
@@ -230,6 +247,11 @@ def frenkel_pairs(crystal: Crystal, count, seed=0) -> Crystal:
     The moved atom keeps its element and gets the role 'interstitial'.
     Recorded as ``{'kind': 'frenkel_pair', 'count', 'positions' (emptied
     sites), 'interstitial_positions', 'seed'}``.
+
+    >>> import crystalview as cv
+    >>> c = frenkel_pairs(cv.build("Cu", repeat=(2, 2, 2)), 1)
+    >>> len(c), c.metadata["defects"][-1]["kind"]
+    (32, 'frenkel_pair')
     """
     from ..analysis.neighbours import nearest_neighbour_distance, with_images
 
@@ -319,6 +341,12 @@ def parent_crystal(source, phase=None, a=None, what="this defect") -> Crystal:
     A string is built with :func:`crystalview.build` (``phase``/``a`` passed
     on); a Crystal gives its lattice (the conventional cell it was built from),
     not its atoms, so supercells and defects already in it are not carried.
+
+    >>> import crystalview as cv
+    >>> parent_crystal(cv.build("Cu", repeat=(3, 3, 3)))
+    <Crystal fcc Cu4 (4 atoms) cell 3.6149 x 3.6149 x 3.6149 A>
+    >>> parent_crystal("Fe", phase="gamma")
+    <Crystal fcc Fe4 (4 atoms) cell 3.6467 x 3.6467 x 3.6467 A>
     """
     if isinstance(source, Crystal):
         lat = source.lattice
@@ -338,14 +366,30 @@ def parent_crystal(source, phase=None, a=None, what="this defect") -> Crystal:
 
 
 def oriented(parent: Crystal, orient, repeat=None, max_atoms=None) -> Crystal:
-    """The parent's lattice as an oriented (and repeated) supercell."""
+    """The parent's lattice as an oriented (and repeated) supercell.
+
+    >>> import crystalview as cv
+    >>> c = oriented(cv.build("Cu"), ["[1-10]", "[11-2]", "[111]"])
+    >>> len(c), np.linalg.norm(c.cell, axis=1).round(4).tolist()
+    (6, [2.5561, 4.4273, 6.2612])
+    """
     from ..build import _supercell_of
 
     return _supercell_of(parent, repeat=repeat, orient=orient, max_atoms=max_atoms)
 
 
 def repeats(values, n, what, example):
-    """n whole numbers >= 1."""
+    """n whole numbers >= 1.
+
+    >>> repeats([2, 2, 1], 3, "repeat", "[2, 2, 2]")
+    (2, 2, 1)
+    >>> try:
+    ...     repeats([2, 0], 2, "repeat", "[1, 1]")
+    ... except UserError:
+    ...     print("refused")
+    ...
+    refused
+    """
     try:
         vals = tuple(int(v) for v in values)
         if any(float(v) != int(v) for v in values):
@@ -361,7 +405,12 @@ def repeats(values, n, what, example):
 
 def rotation_to_frame(x_axis, z_axis):
     """3x3 matrix Rm with v_new = v_old @ Rm, taking z_axis to +z and the part
-    of x_axis normal to it to +x."""
+    of x_axis normal to it to +x.
+
+    >>> Rm = rotation_to_frame([1, -1, 0], [1, 1, 1])
+    >>> (np.array([1, 1, 1]) @ Rm).round(4).tolist()
+    [0.0, 0.0, 1.7321]
+    """
     z = np.asarray(z_axis, float)
     z = z / np.linalg.norm(z)
     x = np.asarray(x_axis, float)
@@ -372,7 +421,13 @@ def rotation_to_frame(x_axis, z_axis):
 
 
 def indices_text(frac_vec, tol=1e-6):
-    """'a/2[1-10]'-style text for a vector given in conventional fractional units."""
+    """'a/2[1-10]'-style text for a vector given in conventional fractional units.
+
+    >>> indices_text([0.5, -0.5, 0]), indices_text([1 / 6, 1 / 6, -1 / 3])
+    ('a/2[1-10]', 'a/6[11-2]')
+    >>> indices_text([1, 0, 0])
+    'a[100]'
+    """
     from fractions import Fraction
     from math import gcd
 

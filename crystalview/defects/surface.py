@@ -88,7 +88,13 @@ def plane_spacings(heights, period, tol=1e-4):
     the bulk, from the atom heights along the normal in one period of the
     stack (``period`` = height of the out-of-plane cell vector).  One value
     when the planes are evenly spaced (Cu (111)), several when they are not
-    (Mg (10-10): a/(2 sqrt 3) and a/sqrt 3 alternate)."""
+    (Mg (10-10): a/(2 sqrt 3) and a/sqrt 3 alternate).
+
+    >>> plane_spacings([0.0, 2.0871, 4.1741], 6.2612)
+    [2.087]
+    >>> plane_spacings([0.0, 0.5, 2.0], 3.0)
+    [0.5, 1.0, 1.5]
+    """
     h = np.sort(np.mod(np.asarray(heights, float), period))
     levels = [h[0]]
     for x in h[1:]:
@@ -122,6 +128,12 @@ def slab(crystal_or_element, hkl, layers=None, thickness=None, vacuum=10.0, repe
         of the bottom plane.
     vacuum : total vacuum gap (A) along z, half below and half above.
     repeat : (nx, ny) copies in the plane.
+
+    >>> c = slab("Cu", "(111)", layers=4)
+    >>> len(c), c.pbc
+    (4, (True, True, False))
+    >>> c.metadata["defects"][0]["kind"]
+    'surface'
     """
     from ..build import _fill, check_atom_count
 

@@ -61,7 +61,11 @@ def atom_cap(path, style=None):
 
 
 def writer_for(path):
-    """The writer function for a file name, by its extension."""
+    """The writer function for a file name, by its extension.
+
+    >>> writer_for("cu.xyz").__name__, writer_for("cu.CIF").__name__
+    ('write_xyz', 'write_cif')
+    """
     suffix = Path(path).suffix.lower()
     entry = FORMATS.get(suffix)
     if entry is None:
@@ -82,6 +86,11 @@ def export(crystal, path, *, force=False, **options):
     (``style``, ``view``, ``up``, ``sites``, ``polyhedra``, ``planes``,
     ``directions``, ``layers``, ``slip_axis``, ``cell_shape``, ``title``);
     CIF and XYZ take none.
+
+    >>> import crystalview as cv, os, tempfile
+    >>> out = export(cv.build("Cu"), os.path.join(tempfile.mkdtemp(), "cu.xyz"))
+    >>> out["format"], out["atoms"]
+    ('xyz', 4)
     """
     fn = writer_for(path)
     sig = inspect.signature(fn)

@@ -61,7 +61,11 @@ MAX_CIF_BYTES = 50_000_000
 def symprec_for(cell):
     """spglib's distance tolerance (A) for a cell: 1e-4 A, growing as
     1e-5 x the longest cell edge for cells over 10 A (coordinates are written
-    with 8 decimals, so an exactly built crystal sits far inside it)."""
+    with 8 decimals, so an exactly built crystal sits far inside it).
+
+    >>> symprec_for(np.eye(3) * 3.6149), round(symprec_for(np.eye(3) * 36.149), 7)
+    (0.0001, 0.0003615)
+    """
     lengths = np.linalg.norm(np.asarray(cell, float), axis=1)
     return float(max(1e-4, 1e-5 * lengths.max()))
 
@@ -72,7 +76,11 @@ _SYSTEMS = ((2, "triclinic"), (15, "monoclinic"), (74, "orthorhombic"), (142, "t
 
 
 def crystal_system(number):
-    """Crystal system of a space-group number (International Tables Vol. A)."""
+    """Crystal system of a space-group number (International Tables Vol. A).
+
+    >>> crystal_system(225), crystal_system(194), crystal_system(139)
+    ('cubic', 'hexagonal', 'tetragonal')
+    """
     for top, name in _SYSTEMS:
         if number <= top:
             return name
@@ -321,6 +329,13 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
 
 
 def replace_lattice(lat, **kw):
+    """A copy of a LatticeInfo with the given fields replaced.
+
+    >>> import crystalview as cv
+    >>> lat = replace_lattice(cv.build("Cu").lattice, source="my.cif")
+    >>> lat.prototype, lat.source
+    ('fcc', 'my.cif')
+    """
     from dataclasses import replace
 
     return replace(lat, **kw)
@@ -620,7 +635,13 @@ def symmetry_of(crystal, types=None):
     (gemmi Ops in the crystal's own cell), ``number``/``hm``/``hall`` of the
     group those operations form, ``sites`` (indices of one atom per
     asymmetric-unit site) and ``frac`` (their symmetrised fractional
-    coordinates)."""
+    coordinates).
+
+    >>> import crystalview as cv
+    >>> s = symmetry_of(cv.build("Mg"))
+    >>> s["mode"], s["spglib_number"], s["hm"], len(s["sites"])
+    ('symmetry', 194, 'P 63/m m c', 1)
+    """
     from ..crystal import ROLES
 
     n = len(crystal)
@@ -882,7 +903,16 @@ def _atom_rows(crystal, idx, frac, average, with_roles):
 def write_cif(crystal, path, *, force=False, symmetry=True):
     """Write ``crystal`` as an IUCr CIF 1.1 file: its space group and the
     asymmetric unit in the crystal's own cell, or every atom in P 1 (see the
-    module docstring for when); returns a summary dict."""
+    module docstring for when); returns a summary dict.
+
+    >>> import crystalview as cv, os, tempfile
+    >>> p = os.path.join(tempfile.mkdtemp(), "cu.cif")
+    >>> out = write_cif(cv.build("Cu", repeat=(2, 2, 2)), p)
+    >>> out["format"], out["atoms"]
+    ('cif', 32)
+    >>> read_cif(p)
+    <Crystal fcc Cu32 (32 atoms) cell 7.2298 x 7.2298 x 7.2298 A>
+    """
     from ..fileio import atomic_write
 
     if crystal.pbc != (True, True, True):

@@ -48,12 +48,22 @@ ARRAY_BUFFER, ELEMENT_ARRAY_BUFFER = 34962, 34963
 
 
 def srgb_to_linear(c):
+    """sRGB colour components (0..1) to linear light, as glTF base colours need.
+
+    >>> srgb_to_linear([0.0, 0.5, 1.0]).round(4).tolist()
+    [0.0, 0.214, 1.0]
+    """
     c = np.asarray(c, float)
     return np.where(c <= 0.04045, c / 12.92, ((c + 0.055) / 1.055) ** 2.4)
 
 
 def unit_sphere(n_lat=16, n_lon=24):
-    """(positions, normals, indices) of a UV sphere of radius 1, outward CCW."""
+    """(positions, normals, indices) of a UV sphere of radius 1, outward CCW.
+
+    >>> pos, nrm, idx = unit_sphere(4, 6)
+    >>> pos.shape, idx.shape, np.allclose(np.linalg.norm(pos, axis=1), 1, atol=1e-6)
+    ((35, 3), (108,), True)
+    """
     th = np.linspace(0, math.pi, n_lat + 1)
     ph = np.linspace(0, 2 * math.pi, n_lon + 1)
     T, Ph = np.meshgrid(th, ph, indexing="ij")
@@ -72,7 +82,12 @@ def unit_sphere(n_lat=16, n_lon=24):
 
 
 def unit_rod(n=16):
-    """(positions, normals, indices) of an open cylinder of radius 1 from y=0 to y=1."""
+    """(positions, normals, indices) of an open cylinder of radius 1 from y=0 to y=1.
+
+    >>> pos, nrm, idx = unit_rod(8)
+    >>> pos.shape, idx.shape, sorted(set(pos[:, 1].round(6).tolist()))
+    ((18, 3), (48,), [0.0, 1.0])
+    """
     ph = np.linspace(0, 2 * math.pi, n + 1)
     ring = np.column_stack([np.cos(ph), np.zeros_like(ph), -np.sin(ph)])
     pos = np.vstack([ring, ring + [0, 1, 0]]).astype(np.float32)
@@ -140,7 +155,13 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
                   cell_shape=None):
     """(json dict, binary buffer bytes) for the crystal.  One conventional
     cell of hcp or simple hexagonal is written as the hexagonal prism (17 or
-    14 atoms and its 18 edges) unless ``cell_shape='primitive'``."""
+    14 atoms and its 18 edges) unless ``cell_shape='primitive'``.
+
+    >>> import crystalview as cv
+    >>> doc, blob = gltf_document(cv.build("Cu"))
+    >>> doc["asset"]["version"], len(doc["nodes"]) > 0, len(blob) % 4
+    ('2.0', True, 0)
+    """
     from ..about import __version__
     from ..crystal import ROLES
     from ..mesh.printable import contact_pairs, shown_atoms
@@ -317,6 +338,13 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
 
 
 def glb_bytes(doc, blob):
+    """The binary glTF (.glb) container of a glTF JSON document and its binary buffer.
+
+    >>> import crystalview as cv
+    >>> data = glb_bytes(*gltf_document(cv.build("Cu")))
+    >>> data[:4], len(data) % 4
+    (b'glTF', 0)
+    """
     js = json.dumps(doc, separators=(",", ":")).encode("utf-8")
     js += b" " * ((-len(js)) % 4)
     blob = blob + b"\x00" * ((-len(blob)) % 4)
@@ -336,7 +364,13 @@ def _summary(path, doc, size):
 
 def write_glb(crystal, path, *, force=False, style="ball-and-stick", real_scale=False, instancing="auto",
               cell_shape=None):
-    """Write a .glb file; returns a summary dict."""
+    """Write a .glb file; returns a summary dict.
+
+    >>> import crystalview as cv, os, tempfile
+    >>> out = write_glb(cv.build("Cu"), os.path.join(tempfile.mkdtemp(), "cu.glb"))
+    >>> out["format"], out["atoms"]
+    ('glb', 4)
+    """
     from ..fileio import atomic_write, check_target
 
     check_target(path, force=force)
@@ -349,7 +383,13 @@ def write_glb(crystal, path, *, force=False, style="ball-and-stick", real_scale=
 
 def write_gltf(crystal, path, *, force=False, style="ball-and-stick", real_scale=False, instancing="auto",
               cell_shape=None):
-    """Write a .gltf file with its buffer embedded as a data URI; returns a summary dict."""
+    """Write a .gltf file with its buffer embedded as a data URI; returns a summary dict.
+
+    >>> import crystalview as cv, os, tempfile
+    >>> out = write_gltf(cv.build("Fe"), os.path.join(tempfile.mkdtemp(), "fe.gltf"))
+    >>> out["format"], out["atoms"]
+    ('gltf', 2)
+    """
     from ..fileio import atomic_write, check_target
 
     check_target(path, force=force)

@@ -65,12 +65,27 @@ GROUPS = {
 
 
 def page_limit(style):
+    """Most atoms a web page of this style holds.
+
+    >>> page_limit("ball-and-stick") < page_limit("space-filling")
+    True
+    """
     return MAX_PAGE_ATOMS_STICKS if style == "ball-and-stick" else MAX_PAGE_ATOMS
 
 
 def check_page_size(n_atoms, style, what="crystal has"):
     """LimitError (one line, with the limit and what to do) when a page would
-    hold more atoms than a browser handles comfortably."""
+    hold more atoms than a browser handles comfortably.
+
+    >>> check_page_size(100, "ball-and-stick") is None
+    True
+    >>> try:
+    ...     check_page_size(10 ** 9, "space-filling")
+    ... except LimitError:
+    ...     print("refused")
+    ...
+    refused
+    """
     cap = page_limit(style)
     if n_atoms > cap:
         sticks = (f" (ball-and-stick; --style lattice or space-filling holds {MAX_PAGE_ATOMS:,})"
@@ -243,7 +258,14 @@ def coordination_table(crystal, tolerance=0.05):
     """Per-atom coordination (uint8) and, for several elements, per-element
     neighbour counts (N, E) uint8: neighbours closer than (1 + tolerance) x
     the nearest-neighbour distance, periodic images included (the rule the
-    interactive window uses), counted in one vectorised pass."""
+    interactive window uses), counted in one vectorised pass.
+
+    >>> import crystalview as cv
+    >>> c = cv.build("NiAl")
+    >>> cn, per_element, elements = coordination_table(c)
+    >>> c.symbols.tolist(), cn.tolist(), elements, per_element.tolist()
+    (['Ni', 'Al'], [8, 8], ['Al', 'Ni'], [[8, 0], [0, 8]])
+    """
     from scipy.spatial import cKDTree
 
     from ..analysis.neighbours import nearest_neighbour_distance, with_images
@@ -302,7 +324,13 @@ def write_html(crystal, path, *, force=False, style="ball-and-stick", view=None,
     they ask for is on when the page opens, and every part the crystal has
     can be switched on and off in the page.  ``caption``: True, False or
     your own text; ``title``: the browser tab's title (default the caption's
-    first line)."""
+    first line).
+
+    >>> import crystalview as cv, os, tempfile
+    >>> out = write_html(cv.build("Cu"), os.path.join(tempfile.mkdtemp(), "cu.html"))
+    >>> out["format"], out["atoms"], out["style"]
+    ('html', 4, 'ball-and-stick')
+    """
     from .. import palette
     from ..crystal import ROLES
     from ..render import style as S

@@ -620,7 +620,15 @@ def _script_json(obj):
 
 
 def page(meta, packed):
-    """The whole page as text."""
+    """The whole page as text.
+
+    >>> cell = [[3.6149, 0, 0], [0, 3.6149, 0], [0, 0, 3.6149]]
+    >>> meta = dict(title="Cu fcc", caption=["a = 3.6149 A"], legend=[], facts={"cell": cell},
+    ...             style={"background": "#ffffff", "text": "#222222"})
+    >>> text = page(meta, "")
+    >>> text.startswith("<!DOCTYPE html>"), "<title>Cu fcc</title>" in text
+    (True, True)
+    """
     import numpy as np
 
     meta = dict(meta)

@@ -6,7 +6,13 @@ import numpy as np
 
 
 def stl_bytes(meshes):
-    """Binary STL of one or more trimesh meshes (normals from the winding)."""
+    """Binary STL of one or more trimesh meshes (normals from the winding).
+
+    >>> import trimesh
+    >>> data = stl_bytes([trimesh.creation.box((10, 10, 10))])
+    >>> len(data), int.from_bytes(data[80:84], "little")
+    (684, 12)
+    """
     import struct
 
     tris = [np.asarray(m.vertices, np.float64)[np.asarray(m.faces)] for m in meshes if len(m.faces)]
@@ -22,6 +28,16 @@ def stl_bytes(meshes):
 
 
 def write_model_stl(model, path, force=False):
+    """Write a printable :class:`~crystalview.mesh.printable.Model` as one binary STL file.
+
+    >>> import os, tempfile, trimesh
+    >>> from crystalview.mesh.printable import Body, Model
+    >>> cube = trimesh.creation.box((10, 10, 10))
+    >>> model = Model([Body("cube", cube, None)], {"host": "#b87333"})
+    >>> p = os.path.join(tempfile.mkdtemp(), "cube.stl")
+    >>> write_model_stl(model, p).name, os.path.getsize(p)
+    ('cube.stl', 684)
+    """
     from ..fileio import atomic_write
 
     return atomic_write(path, stl_bytes([b.mesh for b in model.bodies]), force=force)

@@ -38,7 +38,14 @@ def _fmt_rows(arr, template):
 
 def model_xml(bodies, colours, title="crystalview model"):
     """The 3D/3dmodel.model XML text.  ``bodies``: list of (name, trimesh,
-    per-face group labels or None); ``colours``: group label -> '#rrggbb'."""
+    per-face group labels or None); ``colours``: group label -> '#rrggbb'.
+
+    >>> import trimesh
+    >>> box = trimesh.creation.box((10, 10, 10))
+    >>> xml = model_xml([("cube", box, None)], {"host": "#b87333"})
+    >>> xml.count("<triangle "), xml.count("<vertex ")
+    (12, 8)
+    """
     labels = list(colours)
     index = {lab: k for k, lab in enumerate(labels)}
     out = [
@@ -78,6 +85,14 @@ def _esc(s):
 
 
 def threemf_bytes(bodies, colours, title="crystalview model"):
+    """The .3mf file (a zip holding the model XML) as bytes; arguments as :func:`model_xml`.
+
+    >>> import io, zipfile, trimesh
+    >>> cube = trimesh.creation.box((10, 10, 10))
+    >>> data = threemf_bytes([("cube", cube, None)], {"host": "#b87333"})
+    >>> sorted(zipfile.ZipFile(io.BytesIO(data)).namelist())
+    ['3D/3dmodel.model', '[Content_Types].xml', '_rels/.rels']
+    """
     buf = io.BytesIO()
     with zipfile.ZipFile(buf, "w", compression=zipfile.ZIP_DEFLATED) as z:
         z.writestr("[Content_Types].xml", CONTENT_TYPES)
@@ -87,6 +102,15 @@ def threemf_bytes(bodies, colours, title="crystalview model"):
 
 
 def write_model_3mf(model, path, force=False):
+    """Write a printable :class:`~crystalview.mesh.printable.Model` as a coloured .3mf file.
+
+    >>> import os, tempfile, trimesh
+    >>> from crystalview.mesh.printable import Body, Model
+    >>> cube = trimesh.creation.box((10, 10, 10))
+    >>> model = Model([Body("cube", cube, None)], {"host": "#b87333"})
+    >>> write_model_3mf(model, os.path.join(tempfile.mkdtemp(), "cube.3mf")).name
+    'cube.3mf'
+    """
     from ..fileio import atomic_write
 
     bodies = [(b.name, b.mesh, b.groups) for b in model.bodies]

@@ -27,6 +27,13 @@ BED_TOL = 0.01                  # mm
 
 
 def mesh_arrays(mesh):
+    """(vertices, faces, unit face normals, face areas) of a trimesh mesh, as numpy arrays.
+
+    >>> import trimesh
+    >>> V, F, N, A = mesh_arrays(trimesh.creation.box((10, 20, 5)))
+    >>> V.shape, F.shape, round(float(A.sum()), 6)
+    ((8, 3), (12, 3), 700.0)
+    """
     V = np.asarray(mesh.vertices, float)
     F = np.asarray(mesh.faces, np.int64)
     tri = V[F]
@@ -37,7 +44,13 @@ def mesh_arrays(mesh):
 
 
 def contact_overhang(V, F, N, A, R=None, angle=DEFAULT_OVERHANG_ANGLE):
-    """(contact mm^2, overhang mm^2) of a mesh turned by rotation R (3x3)."""
+    """(contact mm^2, overhang mm^2) of a mesh turned by rotation R (3x3).
+
+    >>> import trimesh
+    >>> box = trimesh.creation.box((10, 20, 5))
+    >>> contact_overhang(*mesh_arrays(box))
+    (200.0, 0.0)
+    """
     if R is not None:
         N = N @ np.asarray(R).T
         z = V @ np.asarray(R)[2]
@@ -51,7 +64,13 @@ def contact_overhang(V, F, N, A, R=None, angle=DEFAULT_OVERHANG_ANGLE):
 
 def candidate_faces(points, limit=8):
     """Outward unit normals and areas of the largest distinct faces of the
-    points' convex hull (the faces a model can stand on), largest first."""
+    points' convex hull (the faces a model can stand on), largest first.
+
+    >>> import trimesh
+    >>> faces = candidate_faces(trimesh.creation.box((10, 20, 5)).vertices, limit=2)
+    >>> [((n.round(6) + 0.0).tolist(), round(a, 6)) for n, a in faces]
+    [([0.0, 0.0, -1.0], 200.0), ([0.0, 0.0, 1.0], 200.0)]
+    """
     from scipy.spatial import ConvexHull, QhullError
 
     pts = np.asarray(points, float)
@@ -79,7 +98,14 @@ def choose_orientation(mesh, hull_points, angle=DEFAULT_OVERHANG_ANGLE, limit=8)
     lists every candidate (normal, hull face area, contact, overhang) and the
     chosen one first.  Chosen: among candidates that stand on their own (or
     all, if none does), the least overhang; within 2 % of it, the largest
-    face (the steadiest)."""
+    face (the steadiest).
+
+    >>> import trimesh
+    >>> box = trimesh.creation.box((10, 20, 5))
+    >>> R, table = choose_orientation(box, box.vertices)
+    >>> len(table), round(table[0]["hull_area"], 6), round(table[0]["contact"], 6)
+    (6, 200.0, 200.0)
+    """
     V, F, N, A = mesh_arrays(mesh)
     rows = []
     for n, area in candidate_faces(hull_points, limit):
@@ -96,7 +122,11 @@ def choose_orientation(mesh, hull_points, angle=DEFAULT_OVERHANG_ANGLE, limit=8)
 
 def miller_name(normal, lattice_cell):
     """'(hkl)' for a plane with this Cartesian normal in a lattice whose
-    conventional cell rows are ``lattice_cell`` (small integers), or None."""
+    conventional cell rows are ``lattice_cell`` (small integers), or None.
+
+    >>> miller_name([1, 1, 1], np.eye(3) * 3.6149), miller_name([0, 0, -1], np.eye(3))
+    ('(111)', '(00-1)')
+    """
     h = np.asarray(lattice_cell, float) @ np.asarray(normal, float)
     h = np.where(np.abs(h) < 1e-6 * np.abs(h).max(), 0.0, h)
     nz = np.abs(h[np.abs(h) > 0])
@@ -114,7 +144,13 @@ def miller_name(normal, lattice_cell):
 
 def spans(centres, balls, rods, angle=DEFAULT_OVERHANG_ANGLE):
     """Longest unsupported span (mm) and what it is, for balls at ``centres``
-    (already turned to the print orientation) joined by ``rods`` (i, j, r, g)."""
+    (already turned to the print orientation) joined by ``rods`` (i, j, r, g).
+
+    >>> centres = np.array([[0.0, 0.0, 5.0], [20.0, 0.0, 5.0]])
+    >>> best, what = spans(centres, np.array([3.0, 3.0]), [(0, 1, 1.0, "bond")])
+    >>> round(float(best), 3), what
+    (14.0, 'a rod bridging between two balls')
+    """
     s = math.sin(math.radians(angle))
     best, what = 0.0, "none"
     for i, j, r, _g in rods:

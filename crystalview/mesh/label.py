@@ -46,6 +46,12 @@ _STROKE_CACHE = {}
 
 
 def font_path():
+    """Path of the label font (DejaVu Sans Bold, shipped inside matplotlib).
+
+    >>> import os
+    >>> os.path.basename(font_path()), os.path.isfile(font_path())
+    ('DejaVuSans-Bold.ttf', True)
+    """
     import matplotlib
 
     return os.path.join(matplotlib.get_data_path(), "fonts", "ttf", FONT_FILE)
@@ -59,7 +65,12 @@ def _font():
 
 def auto_text(crystal, scale, short=False):
     """'Cu fcc a=3.615 A 10 mm/A' from the crystal's name, lattice and scale
-    (``short``: 'Cu fcc', the name and structure only)."""
+    (``short``: 'Cu fcc', the name and structure only).
+
+    >>> import crystalview as cv
+    >>> auto_text(cv.build("Fe"), 10), auto_text(cv.build("Mg"), 5, short=True)
+    ('Fe bcc a=2.866 A 10 mm/A', 'Mg hcp')
+    """
     md = crystal.metadata or {}
     name = md.get("name") or "".join(crystal.elements)
     lat = crystal.lattice
@@ -79,7 +90,17 @@ def auto_text(crystal, scale, short=False):
 
 
 def check_text(text):
-    """The label text, checked: printable, the font has every glyph, short."""
+    """The label text, checked: printable, the font has every glyph, short.
+
+    >>> check_text("Cu fcc")
+    'Cu fcc'
+    >>> try:
+    ...     check_text("x" * 200)
+    ... except UserError:
+    ...     print("refused")
+    ...
+    refused
+    """
     if not isinstance(text, str):
         raise UserError("the label must be a text, 'auto' or 'none'")
     t = " ".join(text.split())
@@ -145,7 +166,12 @@ def _flatten(path, tol):
 def text_polygons(lines, size, tol=0.01):
     """Closed outline polygons (mm, even-odd fill) of the lines of text at
     font ``size`` (em), each line centred on x = 0, the first line on top,
-    the block's lower-left at y = 0.  Returns (polygons, width, height)."""
+    the block's lower-left at y = 0.  Returns (polygons, width, height).
+
+    >>> polys, width, height = text_polygons(["Cu"], 10.0)
+    >>> len(polys), round(width, 2), round(height, 2)
+    (2, 13.12, 7.56)
+    """
     from matplotlib.textpath import TextPath
 
     fp = _font()
@@ -171,6 +197,13 @@ def text_polygons(lines, size, tol=0.01):
 
 
 def cross_section(polys):
+    """The manifold3d CrossSection (even-odd fill) of closed outline polygons.
+
+    >>> square = [[0, 0], [10, 0], [10, 10], [0, 10]]
+    >>> hole = [[4, 4], [6, 4], [6, 6], [4, 6]]
+    >>> round(cross_section([square, hole]).area(), 6)
+    96.0
+    """
     import manifold3d as m3
 
     return m3.CrossSection([np.asarray(p, float) for p in polys], m3.FillRule.EvenOdd)
@@ -184,7 +217,12 @@ def _opening(cs, r):
 
 def thin_area(cs, w):
     """Area of the text lying farther than FAR x w from its opening by a disc
-    of diameter w (mm^2): zero when every stroke is at least w wide."""
+    of diameter w (mm^2): zero when every stroke is at least w wide.
+
+    >>> cs = cross_section([[[0, 0], [20, 0], [20, 2], [0, 2]]])
+    >>> thin_area(cs, 1.0), round(thin_area(cs, 4.0), 1)
+    (0.0, 40.0)
+    """
     import manifold3d as m3
 
     if w <= 0:
@@ -195,7 +233,12 @@ def thin_area(cs, w):
 
 def stroke_width(cs, lo=None, hi=None, rel=2e-3):
     """The smallest stroke width (mm) of a text outline: the largest w whose
-    opening leaves no thin area (see the module notes), by bisection."""
+    opening leaves no thin area (see the module notes), by bisection.
+
+    >>> cs = cross_section([[[0, 0], [20, 0], [20, 2], [0, 2]]])
+    >>> round(stroke_width(cs), 1)
+    2.0
+    """
     b = cs.bounds()
     size = max(b[2] - b[0], b[3] - b[1], 1e-9)
     lo = 0.0 if lo is None else lo
@@ -211,7 +254,11 @@ def stroke_width(cs, lo=None, hi=None, rel=2e-3):
 
 
 def stroke_per_em(text):
-    """Smallest stroke width of ``text`` per unit font size (measured at REF_SIZE)."""
+    """Smallest stroke width of ``text`` per unit font size (measured at REF_SIZE).
+
+    >>> round(stroke_per_em("Cu fcc"), 3)
+    0.12
+    """
     got = _STROKE_CACHE.get(text)
     if got is None:
         polys, _, _ = text_polygons([text], REF_SIZE, tol=0.002)
@@ -224,7 +271,11 @@ UNITS = {"A", "mm/A", "mm", "nm", "pm", "g/cm3", "K", "%"}
 
 def phrases(text):
     """Words of the label, a unit kept on the line of its number
-    ('a=2.866 A', '10 mm/A')."""
+    ('a=2.866 A', '10 mm/A').
+
+    >>> phrases("Fe bcc a=2.866 A 10 mm/A")
+    ['Fe', 'bcc', 'a=2.866 A', '10 mm/A']
+    """
     out = []
     for w in text.split(" "):
         if out and w in UNITS:
@@ -245,6 +296,12 @@ def _splits(words, n):
 
 @dataclass
 class LabelPlan:
+    """Where and how big the label is set: its lines, font size, stroke, outline and style.
+
+    >>> plan = plan_label("Cu fcc", 0.8, "emboss", 60.0, 2.0)
+    >>> plan.lines, round(plan.size, 2), plan.style
+    (['Cu fcc'], 6.69, 'emboss')
+    """
     text: str
     lines: list
     size: float              # font size (em) in mm
@@ -261,7 +318,12 @@ def plan_label(text, min_feature, style, avail_width, strip_margin, resolution=0
                depth=0.0):
     """Font size for strokes of at least ``min_feature``, and the line
     arrangement adding the least area to a base ``avail_width`` wide (among
-    those for which ``fits(base width, strip depth)`` holds, where any does)."""
+    those for which ``fits(base width, strip depth)`` holds, where any does).
+
+    >>> plan = plan_label("Cu fcc a=3.615 A 10 mm/A", 0.8, "emboss", 30.0, 2.0)
+    >>> plan.lines, plan.stroke >= 0.8
+    (['Cu fcc a=3.615 A 10 mm/A'], True)
+    """
     from matplotlib.textpath import TextPath
 
     per_em = stroke_per_em(text)
@@ -298,7 +360,14 @@ def label_solid(plan, x0, y0, z_top, depth_limit):
     """The text as a solid: for emboss, from ``z_top`` - 0.5 mm (inside the
     plate) up to ``z_top`` + relief; for engrave, the cutter from ``z_top`` -
     depth to above the plate.  The text block's lower-left corner at (x0, y0),
-    lines centred on x0 + width / 2."""
+    lines centred on x0 + width / 2.
+
+    >>> plan = plan_label("Cu", 0.8, "emboss", 60.0, 2.0)
+    >>> solid = label_solid(plan, 0.0, 0.0, 3.0, 2.0)
+    >>> box = solid.bounding_box()
+    >>> round(box[2], 3), round(box[5], 3)
+    (2.5, 4.0)
+    """
     import manifold3d as m3
 
     cs = cross_section(plan.polygons)
@@ -313,4 +382,10 @@ def label_solid(plan, x0, y0, z_top, depth_limit):
 
 
 def text_area(plan):
+    """Area (mm^2) of the planned label's text outline.
+
+    >>> plan = plan_label("Cu", 0.8, "emboss", 60.0, 2.0)
+    >>> round(text_area(plan), 1)
+    15.9
+    """
     return float(cross_section(plan.polygons).area())

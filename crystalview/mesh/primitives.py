@@ -37,7 +37,11 @@ def _manifold():
 def segments_for(radius_mm, tolerance_mm=CHORD_TOLERANCE_MM, lo=MIN_SEGMENTS, hi=MAX_SEGMENTS):
     """Segments around a circle of this radius so the polygon's chord error
     stays under ``tolerance_mm``; rounded up to a multiple of 4 and clamped to
-    [lo, hi].  (The old sizing rule, kept for the benchmark's baseline.)"""
+    [lo, hi].  (The old sizing rule, kept for the benchmark's baseline.)
+
+    >>> segments_for(1.0), segments_for(5.0), segments_for(50.0)
+    (24, 24, 72)
+    """
     r = max(float(radius_mm), 1e-9)
     x = max(-1.0, min(1.0, 1.0 - tolerance_mm / r))
     ang = math.acos(x)
@@ -62,7 +66,12 @@ def sphere_shape(segments):
     stand (k - 1) r outside the true sphere and the flattest faces
     (1 - k * plane distance) r inside; k balances the two, but never lets the
     volume fall more than ``VOLUME_BUDGET`` short of the true sphere's (nor
-    rise above it).  The chord error is the larger gap."""
+    rise above it).  The chord error is the larger gap.
+
+    >>> k, err = sphere_shape(32)
+    >>> round(k, 5), round(err, 5)
+    (1.00661, 0.00661)
+    """
     n = int(segments)
     got = _SPHERE_ERR.get(n)
     if got is None:
@@ -85,7 +94,11 @@ def sphere_shape(segments):
 
 def sphere_segments(radius_mm, chord_mm=DEFAULT_RESOLUTION_MM):
     """Fewest geodesic-sphere segments whose chord error (measured, with the
-    volume-preserving scale) stays within ``chord_mm`` for this radius."""
+    volume-preserving scale) stays within ``chord_mm`` for this radius.
+
+    >>> sphere_segments(1.0), sphere_segments(5.0), sphere_segments(5.0, chord_mm=0.2)
+    (16, 28, 16)
+    """
     r = max(float(radius_mm), 1e-9)
     for n in SPHERE_SEGMENTS:
         if sphere_shape(n)[1] * r <= chord_mm:
@@ -95,7 +108,11 @@ def sphere_segments(radius_mm, chord_mm=DEFAULT_RESOLUTION_MM):
 
 def rod_sides(radius_mm, chord_mm=DEFAULT_RESOLUTION_MM, lo=8, hi=96):
     """Fewest sides (even) of a rod's polygon circumscribing the nominal
-    circle so its corners stand at most ``chord_mm`` outside it."""
+    circle so its corners stand at most ``chord_mm`` outside it.
+
+    >>> rod_sides(0.5), rod_sides(2.0), rod_sides(2.0, chord_mm=0.2)
+    (8, 16, 8)
+    """
     r = max(float(radius_mm), 1e-9)
     c = r / (r + chord_mm)
     n = int(math.ceil(math.pi / math.acos(c)))
@@ -104,32 +121,54 @@ def rod_sides(radius_mm, chord_mm=DEFAULT_RESOLUTION_MM, lo=8, hi=96):
 
 
 def rod_chord_error(radius_mm, sides):
-    """Corner height of the circumscribed polygon over the nominal circle (mm)."""
+    """Corner height of the circumscribed polygon over the nominal circle (mm).
+
+    >>> round(rod_chord_error(2.0, 16), 4)
+    0.0392
+    """
     return float(radius_mm) * (1.0 / math.cos(math.pi / int(sides)) - 1.0)
 
 
 def sphere_triangles(segments):
     """Triangles of a manifold3d geodesic sphere with this many segments
-    (refined octahedron: segments^2 / 2)."""
+    (refined octahedron: segments^2 / 2).
+
+    >>> sphere_triangles(32)
+    512
+    """
     s = int(4 * math.ceil(segments / 4))
     return s * s // 2
 
 
 def rod_triangles(segments):
-    """Triangles of a closed cylinder with this many sides (4 n - 4)."""
+    """Triangles of a closed cylinder with this many sides (4 n - 4).
+
+    >>> rod_triangles(16)
+    60
+    """
     return 4 * int(segments) - 4
 
 
 def estimate_triangles(n_spheres, sphere_segments, n_rods=0, rod_segments=16):
     """Upper bound of the triangle count of the union before it is made (the
-    union only removes buried triangles and adds a few along seams)."""
+    union only removes buried triangles and adds a few along seams).
+
+    >>> estimate_triangles(14, 32, n_rods=24, rod_segments=16)
+    8608
+    """
     return int(n_spheres) * sphere_triangles(sphere_segments) + int(n_rods) * rod_triangles(rod_segments)
 
 
 class Templates:
     """Template solids: one sphere per (colour group, radius, segments), one
     unit-height cylinder per (radius, segments).  Copies made by transforms
-    keep the template's original id, so triangles can be traced back."""
+    keep the template's original id, so triangles can be traced back.
+
+    >>> t = Templates()
+    >>> s = t.sphere("host", 5.0, 32)
+    >>> s is t.sphere("host", 5.0, 32), t.group_of_id[s.original_id()]
+    (True, 'host')
+    """
 
     def __init__(self):
         self._spheres = {}
@@ -164,7 +203,11 @@ class Templates:
 
 
 def rotation_z_to(d):
-    """3x3 rotation matrix taking +z to the unit vector ``d``."""
+    """3x3 rotation matrix taking +z to the unit vector ``d``.
+
+    >>> (rotation_z_to(np.array([1.0, 0.0, 0.0])) @ [0.0, 0.0, 1.0]).round(6).tolist()
+    [1.0, 0.0, 0.0]
+    """
     d = np.asarray(d, float)
     d = d / np.linalg.norm(d)
     z = np.array([0.0, 0.0, 1.0])
@@ -180,18 +223,36 @@ def rotation_z_to(d):
 
 
 def rotation_to(a, b):
-    """3x3 rotation taking unit vector a to unit vector b."""
+    """3x3 rotation taking unit vector a to unit vector b.
+
+    >>> R = rotation_to(np.array([0.0, 0.0, 1.0]), np.array([0.0, 1.0, 0.0]))
+    >>> (R @ np.array([0.0, 0.0, 1.0])).round(6).tolist()
+    [0.0, 1.0, 0.0]
+    """
     ra = rotation_z_to(a)
     rb = rotation_z_to(b)
     return rb @ ra.T
 
 
 def place_sphere(template, centre):
+    """The template sphere moved to ``centre`` (mm).
+
+    >>> t = Templates()
+    >>> ball = place_sphere(t.sphere("host", 2.0, 16), (10.0, 0.0, 0.0))
+    >>> [round(x, 3) for x in ball.bounding_box()]
+    [7.943, -2.057, -2.057, 12.057, 2.057, 2.057]
+    """
     return template.translate(tuple(float(x) for x in centre))
 
 
 def place_rod(template, p0, p1):
-    """The unit-height template cylinder stretched from p0 to p1."""
+    """The unit-height template cylinder stretched from p0 to p1.
+
+    >>> t = Templates()
+    >>> rod = place_rod(t.rod("bond", 1.0, 8), (0.0, 0.0, 0.0), (0.0, 0.0, 10.0))
+    >>> round(rod.bounding_box()[5], 6)
+    10.0
+    """
     p0 = np.asarray(p0, float)
     p1 = np.asarray(p1, float)
     d = p1 - p0
@@ -204,7 +265,14 @@ def place_rod(template, p0, p1):
 
 
 def union(solids):
-    """Batch union of many solids (one manifold3d call)."""
+    """Batch union of many solids (one manifold3d call).
+
+    >>> t = Templates()
+    >>> balls = [place_sphere(t.sphere("host", 2.0, 16), (x, 0.0, 0.0)) for x in (0.0, 3.0)]
+    >>> solid = union(balls)
+    >>> len(solid.decompose()), solid.volume() < 2 * balls[0].volume()
+    (1, True)
+    """
     m = _manifold()
     if not solids:
         return m.Manifold()
@@ -212,7 +280,11 @@ def union(solids):
 
 
 def box_from_cell(cell_mm):
-    """The parallelepiped spanned by the three cell rows (mm), as a solid."""
+    """The parallelepiped spanned by the three cell rows (mm), as a solid.
+
+    >>> round(box_from_cell(np.eye(3) * 10.0).volume(), 6)
+    1000.0
+    """
     m = _manifold()
     import itertools
 
@@ -223,7 +295,14 @@ def box_from_cell(cell_mm):
 def to_trimesh(solid, templates=None, face_labels=None):
     """(trimesh.Trimesh, per-face group labels or None) from a manifold solid.
     ``face_labels``: {original id: labels} for solids made from a mesh whose
-    face_id indexes ``labels`` (the stitched ball-and-stick solid)."""
+    face_id indexes ``labels`` (the stitched ball-and-stick solid).
+
+    >>> t = Templates()
+    >>> ball = place_sphere(t.sphere("host", 2.0, 16), (0, 0, 0))
+    >>> mesh, groups = to_trimesh(ball, templates=t)
+    >>> mesh.is_watertight, len(mesh.faces), sorted(set(groups.tolist()))
+    (True, 128, ['host'])
+    """
     import trimesh
 
     mesh = solid.to_mesh()

@@ -48,7 +48,13 @@ SUFFIXES = (".stl", ".3mf")
 
 @dataclass
 class Body:
-    """One printable solid: a trimesh mesh (mm) and, per face, a colour-group label."""
+    """One printable solid: a trimesh mesh (mm) and, per face, a colour-group label.
+
+    >>> import trimesh
+    >>> b = Body("cube", trimesh.creation.box((10, 10, 10)), None)
+    >>> b.name, b.mesh.is_watertight
+    ('cube', True)
+    """
     name: str
     mesh: object
     groups: object = None
@@ -56,6 +62,14 @@ class Body:
 
 @dataclass
 class Model:
+    """A printable model: its bodies (mm), the colour of each face group, and how it was made.
+
+    >>> import trimesh
+    >>> cube = trimesh.creation.box((10, 10, 10))
+    >>> m = Model([Body("cube", cube, None)], {"host": "#7d8fa3"})
+    >>> len(m.bodies), m.info, m.adjustments
+    (1, {}, [])
+    """
     bodies: list
     colours: dict                          # group label -> hex colour
     info: dict = field(default_factory=dict)
@@ -64,7 +78,12 @@ class Model:
 
 
 class PrintReport(dict):
-    """The print report: a dict (JSON-ready) with attribute access and text()."""
+    """The print report: a dict (JSON-ready) with attribute access and text().
+
+    >>> r = PrintReport(file="cu.stl", watertight=True)
+    >>> r.file, r["watertight"]
+    ('cu.stl', True)
+    """
 
     def __getattr__(self, name):
         try:
@@ -487,7 +506,13 @@ def build_model(crystal, *, style="ball-and-stick", scale=None, clip_to_cell=Fal
 
     ``tessellation="legacy"`` rebuilds the model the old way (sphere segments
     from a 2-D chord rule, rods from centre to centre, one batch union, laid
-    on the largest face); the benchmark uses it as its baseline."""
+    on the largest face); the benchmark uses it as its baseline.
+
+    >>> import crystalview as cv
+    >>> model = build_model(cv.build("Fe"))
+    >>> len(model.bodies), model.info["style"], model.info["atoms_shown"]
+    (1, 'ball-and-stick', 9)
+    """
     scale, min_feature, bed, _, clearance = _check_options(style, scale, min_feature, bed, 1.0, clearance,
                                                            clip_to_cell, kit)
     resolution = _positive("resolution", resolution, "length in mm", "--resolution 0.05")
@@ -958,7 +983,14 @@ def _fibonacci(n):
 
 # ------------------------------------------------------------------ checks and the report
 def inspect(model, material_density=PLA_DENSITY):
-    """Measured facts about a model: watertight, bodies, volume, mass, box, triangles."""
+    """Measured facts about a model: watertight, bodies, volume, mass, box, triangles.
+
+    >>> import trimesh
+    >>> cube = Model([Body("cube", trimesh.creation.box((10, 10, 10)), None)], {"host": "#777"})
+    >>> facts = inspect(cube)
+    >>> facts["watertight"], round(facts["volume_cm3"], 3), round(facts["mass_g"], 2)
+    (True, 1.0, 1.24)
+    """
     meshes = [b.mesh for b in model.bodies]
     watertight = all(m.is_watertight for m in meshes)
     is_volume = all(m.is_volume for m in meshes)
@@ -978,5 +1010,10 @@ def inspect(model, material_density=PLA_DENSITY):
 
 
 def report_path(path):
+    """The print report's path beside a model file: MODEL.report.txt.
+
+    >>> report_path("models/cu.stl").as_posix()
+    'models/cu.report.txt'
+    """
     p = Path(path)
     return p.with_name(p.stem + ".report.txt")

@@ -53,7 +53,12 @@ def _shelf(sizes, bx, by, gap):
 
 def layout(sizes, bed, gap=GAP_MM):
     """(positions of lower-left corners, turned 90 deg?, block size) for
-    footprints ``sizes`` on the bed, or raise UserError when they do not fit."""
+    footprints ``sizes`` on the bed, or raise UserError when they do not fit.
+
+    >>> positions, turned, block = layout([(50, 40), (30, 30)], (220, 220, 250))
+    >>> positions, turned, block
+    ([(0.0, 0.0), (55.0, 0.0)], False, (85.0, 40.0))
+    """
     bx, by = bed[0], bed[1]
     pos, block = _shelf(sizes, bx, by, gap)
     if pos is not None:
@@ -69,6 +74,15 @@ def layout(sizes, bed, gap=GAP_MM):
 
 
 def set_report_text(rep):
+    """Plain-text report of a print set (see :func:`crystalview.exchange.model.print_set`).
+
+    >>> cu = dict(name="Cu fcc", file="set-cu-fcc.stl", placed_mm=[0, 0, 0, 52, 79, 48], volume_cm3=26.4)
+    >>> rep = dict(file="set.3mf", count=1, scale_mm_per_A=10, bed_mm=[220, 220, 250], block_mm=[52, 79],
+    ...            gap_mm=5, watertight=True, volume_cm3=26.4, mass_g=32.8, material_density_g_cm3=1.24,
+    ...            triangles=14094, models=[cu], caution="(caution)")
+    >>> print(set_report_text(rep).splitlines()[9])
+        1. Cu fcc: set-cu-fcc.stl, 52.0 x 79.0 x 48.0 mm at x 0.0-52.0, y 0.0-79.0 mm, 26.400 cm^3, no label
+    """
     from .report import report_text
 
     bed = rep["bed_mm"]

@@ -8,7 +8,18 @@ def _yes(b):
 
 def report_text(rep):
     """Plain-text print report: what a person checks before sending a file to
-    the printer."""
+    the printer.
+
+    >>> rep = {"file": "cu.stl", "style": "ball-and-stick", "scale_mm_per_A": 10, "watertight": True}
+    >>> for line in report_text(rep).splitlines()[:5]:
+    ...     print(line)
+    ...
+    print report
+      file             cu.stl
+      model            ball-and-stick
+      scale            10 mm per angstrom
+      watertight       yes
+    """
     box = rep.get("bounding_box_mm") or [0, 0, 0]
     bed = rep.get("bed_mm") or [0, 0, 0]
     what = rep.get("style", "")

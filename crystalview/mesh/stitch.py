@@ -31,12 +31,22 @@ CLEAR = 0.02          # mm: parts of different nodes must stay this far apart
 
 def rod_start(R_in, r_out):
     """Distance from a ball's centre where a rod may start so its end disc is
-    hidden inside the ball (inner radius ``R_in``)."""
+    hidden inside the ball (inner radius ``R_in``).
+
+    >>> round(rod_start(3.0, 1.0), 4), rod_start(1.0, 2.0)
+    (2.7328, 0.0)
+    """
     return math.sqrt(max((0.97 * R_in) ** 2 - r_out ** 2, 0.0))
 
 
 def canonical(u):
-    """The rod direction with a fixed sign (first clear nonzero component positive)."""
+    """The rod direction with a fixed sign (first clear nonzero component positive).
+
+    >>> canonical(np.array([0.0, -1.0, 0.5])).tolist()
+    [-0.0, 1.0, -0.5]
+    >>> canonical(np.array([0.0, 1.0, 0.0])).tolist()
+    [0.0, 1.0, 0.0]
+    """
     for x in u:
         if abs(x) > 1e-9:
             return u if x > 0 else -u
@@ -71,7 +81,14 @@ def layout(centres, balls, rods, sphere_seg, rod_seg):
     """Per-rod geometry: (unit direction u (canonical), tail node, head node,
     start param at tail, cut param from tail, start param at head, length,
     outer radius, sides).  Params are distances along u from the tail centre
-    (start, cut) and back from the head centre (head start)."""
+    (start, cut) and back from the head centre (head start).
+
+    >>> centres = np.array([[0.0, 0.0, 0.0], [10.0, 0.0, 0.0]])
+    >>> geo = layout(centres, [3.0, 3.0], [(0, 1, 1.0, "bond")], lambda r: 32, lambda r: 16)
+    >>> g = geo[0]
+    >>> g["u"].tolist(), g["tail"], g["head"], round(g["cut"], 3), g["sides"]
+    ([1.0, 0.0, 0.0], 0, 1, 5.0, 16)
+    """
     out = []
     for i, j, r, g in rods:
         d = centres[j] - centres[i]
@@ -141,7 +158,15 @@ def stitch(centres, balls, groups, rods, templates, sphere_seg, rod_seg):
     """(solid, labels): the ball-and-stick solid as one manifold3d Manifold
     whose face_id is an index into ``labels`` (kept through later booleans,
     see primitives.to_trimesh), or None where the fast path does not
-    apply.  ``sphere_seg(radius)`` and ``rod_seg(radius)`` give tessellations."""
+    apply.  ``sphere_seg(radius)`` and ``rod_seg(radius)`` give tessellations.
+
+    >>> t = P.Templates()
+    >>> centres = np.array([[0.0, 0.0, 0.0], [10.0, 0.0, 0.0]])
+    >>> solid, labels = stitch(centres, [3.0, 3.0], ["host", "host"], [(0, 1, 1.0, "bond")], t,
+    ...                        lambda r: 32, lambda r: 16)
+    >>> len(solid.decompose()), sorted(labels)
+    (1, ['bond', 'host'])
+    """
     m3 = P._manifold()
     centres = np.asarray(centres, float)
     if not len(rods):
