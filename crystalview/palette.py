@@ -92,5 +92,5 @@ def atom_colours(crystal):
             k = len(colours)
             colours.append(col)
             index[mask & (syms == s)] = k
-            legend.append((f"{s} ({role})" if role != "host" or len(ROLES) else s, col))
+            legend.append((f"{s} ({role})", col))
     return colours, index, legend

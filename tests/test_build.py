@@ -219,3 +219,17 @@ def test_bad_input(kw, match):
     spec = kw.pop("spec")
     with pytest.raises(UserError, match=match):
         cv.build(spec, **kw)
+
+
+def test_neighbour_at_exactly_the_cutoff_found_both_ways():
+    """Simple cubic, a = 3 A: 6 neighbours at exactly 3 A each (common practice), so 6 directed pairs for one
+    atom with the cut-off at 3 A, not 3 (the images stopped just short of the cut-off)."""
+    import numpy as np
+
+    from crystalview.analysis.neighbours import neighbour_pairs
+
+    c = cv.Crystal(np.eye(3) * 3.0, [[0, 0, 0]], symbols=["Cu"])
+    i, j, vec, d = neighbour_pairs(c, 3.0)
+    assert len(i) == 6 and np.allclose(d, 3.0)
+    assert sorted(map(tuple, np.round(vec / 3).astype(int).tolist())) == sorted(
+        [(1, 0, 0), (-1, 0, 0), (0, 1, 0), (0, -1, 0), (0, 0, 1), (0, 0, -1)])

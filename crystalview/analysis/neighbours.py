@@ -76,7 +76,8 @@ def neighbour_pairs(crystal, cutoff, max_pairs=200_000_000):
                          f"use a smaller cut-off or a smaller crystal")
     from scipy.spatial import cKDTree
 
-    pts, idx = with_images(crystal.positions, crystal.cell, crystal.pbc, cutoff)
+    # images padded a hair beyond the cut-off, so a neighbour at exactly the cut-off is found both ways
+    pts, idx = with_images(crystal.positions, crystal.cell, crystal.pbc, cutoff * (1 + 1e-9) + 1e-9)
     t_all = cKDTree(pts)
     t_own = cKDTree(crystal.positions)
     m = t_own.sparse_distance_matrix(t_all, cutoff, output_type="ndarray")

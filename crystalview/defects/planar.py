@@ -57,7 +57,7 @@ _OFFSETS = {"A": (0.0, 0.0), "B": (1.0 / 3.0, 2.0 / 3.0), "C": (2.0 / 3.0, 1.0 /
 
 
 def check_sequence(sequence):
-    """The sequence as upper-case letters, or UserError.
+    """(the sequence as upper-case letters, the name it was given by or None), or UserError.
 
     >>> check_sequence("abcab")
     ('ABCAB', None)

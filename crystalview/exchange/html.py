@@ -255,8 +255,9 @@ class _Collector:
 
 # ---------------------------------------------------------------- facts for picking
 def coordination_table(crystal, tolerance=0.05):
-    """Per-atom coordination (uint8) and, for several elements, per-element
-    neighbour counts (N, E) uint8: neighbours closer than (1 + tolerance) x
+    """(per-atom coordination (uint8); for several elements, per-element
+    neighbour counts (N, E) uint8, else None; the elements in column order):
+    neighbours closer than (1 + tolerance) x
     the nearest-neighbour distance, periodic images included (the rule the
     interactive window uses), counted in one vectorised pass.
 

@@ -78,9 +78,9 @@ def _seg_seg_dist(p1, q1, p2, q2):
 
 
 def layout(centres, balls, rods, sphere_seg, rod_seg):
-    """Per-rod geometry: (unit direction u (canonical), tail node, head node,
-    start param at tail, cut param from tail, start param at head, length,
-    outer radius, sides).  Params are distances along u from the tail centre
+    """Per-rod geometry, one dict per rod: the unit direction u (canonical),
+    tail node, head node, start param at tail, cut param from tail, start
+    param at head, length, outer radius, sides.  Params are distances along u from the tail centre
     (start, cut) and back from the head centre (head start).
 
     >>> centres = np.array([[0.0, 0.0, 0.0], [10.0, 0.0, 0.0]])
