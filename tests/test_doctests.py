@@ -57,6 +57,10 @@ MODULES = [
     "crystalview.palette",
     "crystalview.prototypes",
     "crystalview.scene",
+    "crystalview.render.style",
+    "crystalview.render.cells",
+    "crystalview.render.turntable",
+    "crystalview.render.viewer",
 ]
 
 

@@ -168,3 +168,34 @@ def test_hcp_prism_layers():
     letters = [{palette.LAYER_COLOURS[k]: k for k in "ABC"}[sc.colours[i]] for i in sc.atom_colour]
     for p, L in zip(sc.atom_place, letters):
         assert L == ("B" if p == "inside" else "A")
+
+
+def test_small_cubic_cells_drawn_obliquely_with_c_up(tmp_path):
+    """One or two cells of a cubic metal are drawn from a little above, c up, off the mirror planes (the
+    usual oblique picture of a unit cell; common practice), and the view drawn is the one reported; a
+    3 x 3 x 3 crystal is seen down [001] as before."""
+    import math
+    import re
+
+    from crystalview.render.cells import oblique_cell_view
+    from crystalview.render.figure import render
+
+    for spec, kw in (("Cu", {}), ("Fe", {}), ("Cu", {"repeat": (2, 2, 2)}), ("NiAl", {})):
+        c = cv.build(spec, **kw)
+        view, up = oblique_cell_view(c)
+        assert up == "[001]"
+        u, v, w = (int(x) for x in re.findall(r"-?\d", view))        # one digit each: indices up to 5
+        elevation = math.degrees(math.asin(w / math.sqrt(u * u + v * v + w * w)))
+        azimuth = math.degrees(math.atan2(v, u)) % 45.0
+        assert 12 <= elevation <= 28 and min(azimuth, 45 - azimuth) >= 8, (spec, view)
+        info = render(c, tmp_path / f"{spec}{len(c)}.svg", caption=True)
+        assert info["view"] == view and info["up"] == "[001]"
+    assert render(cv.build("Cu", repeat=(3, 3, 3)), tmp_path / "big.svg")["view"] == "[001]"
+    assert render(cv.build("Cu"), tmp_path / "asked.svg", view="[001]")["view"] == "[001]"
+    # every atom drawn in the default view of one Cu cell stands apart on the page
+    from crystalview.render.scene_graph import build_scene
+
+    sc = build_scene(cv.build("Cu"))
+    q = sc.atom_pos @ np.stack([sc.view.right, sc.view.up], axis=1)
+    d = np.linalg.norm(q[:, None] - q[None], axis=2) + np.eye(len(q)) * 1e9
+    assert len(q) == 14 and d.min() > 0.6 * cv.build("Cu").atom_radii().min()

@@ -2,11 +2,9 @@
 SVG and PDF pages of the real size, tight height."""
 from __future__ import annotations
 
-import re
 import subprocess
 import sys
 import xml.etree.ElementTree as ET
-import zlib
 
 import numpy as np
 import pytest
@@ -22,12 +20,23 @@ PT_PER_IN = 72.0          # source: ISO 32000-1 (PDF 1.7) 8.3.2.3, default user 
 
 
 def _pdf(path):
-    data = path.read_bytes()
-    box = [float(x) for x in re.search(rb"/MediaBox \[([^\]]*)\]", data).group(1).split()]
-    stream = re.search(rb"stream\n(.*?)\nendstream", data, re.S).group(1)
-    content = zlib.decompress(stream)
-    sizes = {float(x) for x in re.findall(rb"/F1 ([\d.]+) Tf", content)}
-    return box, sizes, content
+    """(page box in points, the set of text sizes in points as set on the page, the fonts used), read by
+    pypdf (a PDF library independent of the writer, cairo): each text run's size is its Tf size times the
+    scale of its text matrix and of the current transformation matrix."""
+    pypdf = pytest.importorskip("pypdf", reason="pypdf (pip install pypdf; in the test extras) reads the PDF back")
+    page = pypdf.PdfReader(str(path)).pages[0]
+    box = [float(x) for x in page.mediabox]
+    sizes, fonts = set(), set()
+
+    def visit(text, cm, tm, font, size):
+        if not text.strip():
+            return
+        m = np.array([[tm[0], tm[1]], [tm[2], tm[3]]]) @ np.array([[cm[0], cm[1]], [cm[2], cm[3]]])
+        sizes.add(round(float(size) * abs(np.linalg.det(m)) ** 0.5, 3))
+        fonts.add(str(font.get("/BaseFont")) if font else None)
+
+    page.extract_text(visitor_text=visit)
+    return box, sizes, fonts
 
 
 @pytest.mark.parametrize("width, mm", [("85mm", 85.0), ("180mm", 180.0), ("3.5in", 3.5 * MM_PER_IN)])
@@ -35,11 +44,12 @@ def test_pdf_page_is_the_requested_width_and_fonts_are_points(tmp_path, width, m
     for dpi in (150, 600):
         out = tmp_path / f"f{dpi}.pdf"
         info = cv.render(cv.build("Cu"), out, width=width, dpi=dpi)
-        box, sizes, content = _pdf(out)
+        box, sizes, fonts = _pdf(out)
         assert box[0] == 0 and box[1] == 0
         assert abs(box[2] - mm / MM_PER_IN * PT_PER_IN) < 0.01
         assert abs(box[3] / PT_PER_IN * MM_PER_IN - info["height_mm"]) < 0.01
         assert sizes == {8.0, 7.0}                     # legend 8 pt, caption 7 pt, at any dpi
+        assert fonts and all("DejaVuSans" in f or "LiberationSans" in f for f in fonts)   # the embedded face
     out = tmp_path / "big.pdf"
     cv.render(cv.build("Cu"), out, width=width, font_size=10)
     assert _pdf(out)[1] == {10.0, 8.75}
@@ -48,13 +58,16 @@ def test_pdf_page_is_the_requested_width_and_fonts_are_points(tmp_path, width, m
 def test_svg_page_in_mm_and_png_pixels(tmp_path):
     svg = tmp_path / "a.svg"
     info = cv.render(cv.build("Cu"), svg, width="85mm", dpi=300)
-    root = ET.parse(svg).getroot()
-    assert root.get("width") == "85.000mm"
-    assert abs(float(root.get("height")[:-2]) - info["height_mm"]) < 0.01
+    root = ET.parse(svg).getroot()          # the SVG parses (xml.etree) and its page is in mm
+    assert root.get("width").endswith("mm") and abs(float(root.get("width")[:-2]) - 85.0) < 1e-6
+    assert root.get("height").endswith("mm") and abs(float(root.get("height")[:-2]) - info["height_mm"]) < 0.01
     vb = [float(x) for x in root.get("viewBox").split()]
+    assert abs(vb[2] - 85.0) < 1e-6                  # user units are mm
     png = tmp_path / "a.png"
-    info = cv.render(cv.build("Cu"), png, width="85mm", dpi=300)
-    assert info["size"][0] == round(85 / MM_PER_IN * 300) == vb[2]
+    info_png = cv.render(cv.build("Cu"), png, width="85mm", dpi=300)
+    assert info_png["size"][0] == round(85 / MM_PER_IN * 300)
+    # one layout: the PNG's pixel aspect is the SVG page's
+    assert abs(vb[3] / vb[2] - info_png["size"][1] / info_png["size"][0]) < 1e-6
     assert abs(F.png_dpi(png) - 300) < 0.1
     # text keeps its size in points at any dpi: the legend text is 8 pt = 8/72 in
     sc = F.build_scene(cv.build("Cu"), "ball-and-stick")
@@ -82,8 +95,10 @@ def test_tight_height_follows_the_content():
 def test_compact_legend_rows_fit_the_width():
     sc = F.build_scene(cv.build("Cu"), "ball-and-stick", sites=True, layers=True)
     lay = F.make_layout(sc, (600, None), dpi=300)
-    for lab, col, shape, x, y in lay.legend:
-        assert x + lay.legend_font + F._text_width(lab, lay.legend_font) <= lay.W - lay.margin + 1
+    for (lab, col, shape, x, y), lines in zip(lay.legend, lay.legend_lines):
+        assert " ".join(lines) == lab
+        for t in lines:
+            assert x + lay.legend_font + F._text_width(t, lay.legend_font) <= lay.W - lay.margin + 1
     for t, x, y in lay.caption:
         assert x + F._text_width(t, lay.caption_font) <= lay.W - lay.margin + 1
         assert y <= lay.H

@@ -20,7 +20,11 @@ PLACE_SHARES = {"corner": 1.0 / 6.0, "face centre": 0.5, "inside": 1.0}
 
 
 def check_cell_shape(shape):
-    """None, 'prism' or 'primitive', or a one-line UserError."""
+    """None, 'prism' or 'primitive', or a one-line UserError.
+
+    >>> check_cell_shape("Prism"), check_cell_shape(None)
+    ('prism', None)
+    """
     if shape is None:
         return None
     key = str(shape).strip().lower().replace("_", "-")
@@ -35,7 +39,12 @@ def check_cell_shape(shape):
 
 def is_one_conventional_cell(crystal):
     """True when the crystal is exactly one conventional cell of its lattice:
-    same cell, same atoms on the lattice's sites, no defects, no repeat."""
+    same cell, same atoms on the lattice's sites, no defects, no repeat.
+
+    >>> import crystalview as cv
+    >>> is_one_conventional_cell(cv.build("Mg")), is_one_conventional_cell(cv.build("Mg", repeat=(2, 2, 1)))
+    (True, False)
+    """
     lat = getattr(crystal, "lattice", None)
     if lat is None or len(crystal) != len(lat.basis_frac) or not all(bool(x) for x in crystal.pbc):
         return False
@@ -58,7 +67,12 @@ def is_one_conventional_cell(crystal):
 def prism_applies(crystal, shape=None):
     """Whether to draw the hexagonal prism.  ``shape`` None: wherever it
     applies (one conventional hcp / simple hexagonal cell); 'primitive':
-    never; 'prism': where it applies, else a UserError saying why not."""
+    never; 'prism': where it applies, else a UserError saying why not.
+
+    >>> import crystalview as cv
+    >>> prism_applies(cv.build("Mg")), prism_applies(cv.build("Mg"), "primitive"), prism_applies(cv.build("Cu"))
+    (True, False, False)
+    """
     from ..prism import has_prism
 
     shape = check_cell_shape(shape)
@@ -83,7 +97,13 @@ def _not_hex(crystal, shape):
 
 
 class PrismAtoms:
-    """The prism's atoms as a figure draws them."""
+    """The prism's atoms as a figure draws them.
+
+    >>> import crystalview as cv
+    >>> p = PrismAtoms(cv.build("Mg"))
+    >>> len(p.positions), float(p.shares.sum())
+    (17, 6.0)
+    """
 
     def __init__(self, crystal):
         from ..prism import hexagonal_prism
@@ -125,7 +145,13 @@ class PrismAtoms:
 
 
 def source_atoms(crystal, points):
-    """Index of the crystal atom each point is a periodic image of."""
+    """Index of the crystal atom each point is a periodic image of.
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Cu")
+    >>> source_atoms(c, c.positions + c.cell[0]).tolist()           # images one cell along a
+    [0, 1, 2, 3]
+    """
     f = np.linalg.solve(crystal.cell.T, np.asarray(points, float).T).T
     g = crystal.frac
     d = (f[:, None, :] - g[None, :, :] + 0.5) % 1.0 - 0.5
@@ -137,7 +163,14 @@ def source_atoms(crystal, points):
 
 
 def prism_candidates(crystal, planes, radii):
-    """Atoms and images whose spheres reach into the prism: (points, atom index)."""
+    """Atoms and images whose spheres reach into the prism: (points, atom index).
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Mg")
+    >>> pts, src = prism_candidates(c, PrismAtoms(c).planes(), c.atom_radii())
+    >>> len(pts) == len(src) >= 17
+    True
+    """
     rmax = float(np.max(radii))
     pts, idx = [], []
     for s in itertools.product(range(-2, 3), range(-2, 3), range(-1, 3)):
@@ -153,7 +186,12 @@ def prism_candidates(crystal, planes, radii):
 def best_prism_view(crystal, max_index=5, elevation=(15.0, 30.0), apart=0.76):
     """A low-index view of the prism with the c axis up that looks a little
     down on it, off its mirror planes, with all its atoms apart on the page
-    (centres at least ``apart`` x the atom radius apart): (view text, up text)."""
+    (centres at least ``apart`` x the atom radius apart): (view text, up text).
+
+    >>> import crystalview as cv
+    >>> best_prism_view(cv.build("Mg"))
+    ('[7-813]', '[0001]')
+    """
     from ..lattice import format_indices, miller_to_mb_direction
 
     pa = PrismAtoms(crystal)
@@ -188,3 +226,80 @@ def best_prism_view(crystal, max_index=5, elevation=(15.0, 30.0), apart=0.76):
     if best is None:          # pragma: no cover - the search space always has one
         return "[2-1-10]", "[0001]"
     return best[1], "[0001]"
+
+
+#: Small cubic and tetragonal crystals (at most this many conventional cells
+#: each way) are drawn obliquely by default; larger ones along [001], where a
+#: projection down the columns is the clearer picture.
+OBLIQUE_MAX_REPEAT = 2
+
+
+def oblique_cell_view(crystal, max_index=5, elevation=(12.0, 28.0), apart=0.6):
+    """The default view of a small cubic or tetragonal crystal (up to
+    2 x 2 x 2 conventional cells, not re-oriented): a low-index direction
+    with the c axis up that looks a little down on the cell (``elevation``
+    degrees), turned off the cell's mirror planes so no face is seen edge-on,
+    and with every drawn atom apart on the page (centres at least ``apart``
+    x the atom radius apart) where that is possible; among those the
+    shortest indices.  (view text, up text), or None where the crystal is
+    not such a cell (then the figure looks along [001]).
+
+    >>> import crystalview as cv
+    >>> oblique_cell_view(cv.build("Cu"))
+    ('[3-11]', '[001]')
+    >>> oblique_cell_view(cv.build("Cu", repeat=(3, 3, 3))) is None
+    True
+    """
+    from ..lattice import format_indices
+    from .scene_graph import boundary_images
+
+    lat = getattr(crystal, "lattice", None)
+    md = crystal.metadata or {}
+    if (lat is None or lat.family not in ("cubic", "tetragonal") or not all(bool(x) for x in crystal.pbc)
+            or md.get("orient") or md.get("orientation") or len(crystal) == 0):
+        return None
+    L = np.asarray(lat.cell, float)
+    try:
+        rep = np.linalg.solve(L.T, np.asarray(crystal.cell, float).T).T
+    except np.linalg.LinAlgError:
+        return None
+    n = np.rint(rep)
+    if not np.allclose(rep, n, atol=1e-6) or not np.allclose(n, np.diag(np.diag(n))):
+        return None
+    if np.any(np.diag(n) < 1) or np.any(np.diag(n) > OBLIQUE_MAX_REPEAT):
+        return None
+    frac = crystal.frac
+    idx, shifts = boundary_images(frac, crystal.pbc)
+    pts = np.vstack([crystal.positions, (frac[idx] + shifts) @ np.asarray(crystal.cell, float)]) \
+        if len(idx) else np.asarray(crystal.positions, float)
+    R = float(np.min(crystal.atom_radii()))
+    cz = L[2] / np.linalg.norm(L[2])
+    ax = L[0] / np.linalg.norm(L[0])
+    best = None
+    rng = range(-max_index, max_index + 1)
+    for uvw in itertools.product(rng, rng, rng):
+        if uvw == (0, 0, 0) or np.gcd.reduce(np.abs(uvw)) != 1 or uvw[2] <= 0:
+            continue
+        t = np.array(uvw, float) @ L
+        t /= np.linalg.norm(t)
+        el = np.degrees(np.arcsin(np.clip(t @ cz, -1, 1)))
+        if not (elevation[0] <= el <= elevation[1]):
+            continue
+        flat = t - (t @ cz) * cz
+        az = np.degrees(np.arctan2(np.cross(ax, flat) @ cz, ax @ flat)) % 45.0
+        if min(az, 45.0 - az) < 8.0:
+            continue                              # along a mirror: faces edge-on, back atoms behind front ones
+        up = cz - (t @ cz) * t
+        up /= np.linalg.norm(up)
+        right = np.cross(up, t)
+        q = np.stack([pts @ right, pts @ up], axis=1)
+        d = np.linalg.norm(q[:, None] - q[None], axis=2) + np.eye(len(q)) * 1e9
+        sep = float(d.min()) / R
+        lab = format_indices(uvw)
+        # looking from the front right: +x toward the viewer's right, y receding
+        score = (sep >= apart, -sum(abs(x) for x in uvw), round(sep, 2), uvw[0] > 0 > uvw[1], uvw)
+        if best is None or score > best[0]:
+            best = (score, lab)
+    if best is None:
+        return None
+    return best[1], "[001]"

@@ -24,7 +24,13 @@ from . import style as S
 class View:
     """Orthonormal camera axes: ``toward`` points from the crystal to the
     viewer (the zone axis [uvw] points out of the picture), ``up`` is up on
-    the page and ``right`` completes a right-handed set."""
+    the page and ``right`` completes a right-handed set.
+
+    >>> import crystalview as cv
+    >>> v = make_view(cv.build("Cu"), "[001]")
+    >>> v.label, v.up_label, [int(round(x)) for x in v.toward]
+    ('[001]', '[010]', [0, 0, 1])
+    """
 
     toward: np.ndarray
     up: np.ndarray
@@ -43,7 +49,13 @@ def _ref_cell(crystal):
 
 
 def direction(crystal, text, what="view"):
-    """Cartesian unit vector and tidy label of a direction '[uvw]' / '[uvtw]'."""
+    """Cartesian unit vector and tidy label of a direction '[uvw]' / '[uvtw]'.
+
+    >>> import crystalview as cv
+    >>> vec, label = direction(cv.build("Cu"), "[110]")
+    >>> label, [round(float(x), 4) for x in vec]
+    ('[110]', [0.7071, 0.7071, 0.0])
+    """
     from ..lattice import direction_vector, parse_indices
 
     if isinstance(text, (list, tuple, np.ndarray)) and len(text) in (3, 4) and not isinstance(text, str):
@@ -60,6 +72,13 @@ def direction(crystal, text, what="view"):
 
 
 def make_view(crystal, view="[001]", up=None):
+    """The :class:`View` along ``view`` with ``up`` (default: a cell axis, or the c axis of a hexagonal cell, as near the page's vertical as the view allows).
+
+    >>> import crystalview as cv
+    >>> v = make_view(cv.build("Cu"), "[111]", up="[001]")
+    >>> v.label, v.up_label, round(float(v.up @ v.toward), 12)
+    ('[111]', '[001]', 0.0)
+    """
     t, label = direction(crystal, view, "view")
     ref = _ref_cell(crystal)
     if up is None:
@@ -95,7 +114,12 @@ def auto_view(crystal, slip=None):
     dislocation line (glide-plane normal up) for a dislocation crystal, along
     the tilt axis (boundary normal up) for a tilt boundary, an
     oblique view of the slip system (loading axis up) when ``slip`` (the
-    slip analysis' dict) is given, else [001] with the default up."""
+    slip analysis' dict) is given, else [001] with the default up.
+
+    >>> import crystalview as cv
+    >>> auto_view(cv.build("Cu"))
+    ('[001]', None)
+    """
     if slip:
         try:
             return slip_view(crystal, slip)
@@ -123,7 +147,13 @@ def plane_view(crystal, plane, max_index=3, tilt_deg=30.0):
     """A low-index oblique view that shows a plane as an area and the cell as
     a box: the plane's normal about ``tilt_deg`` from the line of sight, and
     no cell axis seen end-on or across (each at least about 10 degrees out of
-    the picture).  Returns (view text, None: the default up)."""
+    the picture).  Returns (view text, None: the default up).
+
+    >>> import crystalview as cv
+    >>> view, up = plane_view(cv.build("Cu"), "(111)")
+    >>> view != "[111]"
+    True
+    """
     from ..lattice import format_indices, parse_indices, plane_normal
 
     ind = parse_indices(str(plane), kind="plane")
@@ -157,7 +187,14 @@ def slip_view(crystal, slip, max_index=3, tilt_deg=25.0):
     """A low-index view of a slip system: across the loading axis and the
     slip direction (both then show near full length), with the slip plane
     tilted about ``tilt_deg`` out of the line of sight so it reads as a
-    plane, not an edge.  Returns (view text, up text = the loading axis)."""
+    plane, not an edge.  Returns (view text, up text = the loading axis).
+
+    >>> import crystalview as cv
+    >>> from crystalview.analysis.slip import slip_overlay
+    >>> view, up = slip_view(cv.build("Cu"), slip_overlay(cv.build("Cu"), "[001]"))
+    >>> isinstance(view, str) and view.startswith("[")
+    True
+    """
     from ..lattice import format_indices, parse_indices, plane_normal
 
     axis_txt = slip.get("load_axis")
@@ -192,6 +229,13 @@ def slip_view(crystal, slip, max_index=3, tilt_deg=25.0):
 # ---------------------------------------------------------------- the scene
 @dataclass
 class Scene:
+    """Everything a figure draws, from :func:`build_scene`.
+
+    >>> import crystalview as cv
+    >>> sc = build_scene(cv.build("Cu"), "ball-and-stick", "[001]")
+    >>> sc.n_atoms, len(sc.cell_edges), sc.legend[0][0]
+    (14, 12, 'Cu (host)')
+    """
     colours: list = field(default_factory=list)          # hex colours used by atoms
     atom_pos: np.ndarray = None
     atom_radius: np.ndarray = None
@@ -230,6 +274,58 @@ class Scene:
                 g.add(item["group"])
         return sorted(g)
 
+    def _extent_groups(self):
+        """(points, radii) groups whose silhouettes must fit the frame, uncopied."""
+        out = []
+        if self.n_atoms and not self.cut_meshes:
+            out.append((self.atom_pos, self.atom_radius))
+        if self.cell_edges is not None:
+            out.append((self.cell_edges.reshape(-1, 3), np.zeros(len(self.cell_edges) * 2)))
+        for s in self.overlay_spheres:
+            out.append((s["pos"], np.broadcast_to(s["radius"], (len(s["pos"]),))))
+        for m in self.meshes + self.cut_meshes:
+            out.append((m["points"], np.zeros(len(m["points"]))))
+        for a in self.arrows:
+            out.append((np.array([a["start"], a["start"] + a["vector"]]), np.full(2, a.get("radius", 0.1) * 2.5)))
+        for mk in self.markers:
+            out.append((mk["pos"], np.full(len(mk["pos"]), mk["radius"])))
+        for ln in self.lines:
+            out.append((np.asarray(ln["segments"], float).reshape(-1, 3), np.zeros(2 * len(ln["segments"]))))
+        return [(np.asarray(p, float).reshape(-1, 3), np.asarray(r, float).reshape(-1)) for p, r in out if len(p)]
+
+    def projected_extent(self, view=None, centre=None, chunk=1_000_000):
+        """Bounds of the picture along ``view`` (default the scene's), computed
+        in chunks (no copy of the atoms): ``lo``, ``hi`` (right/up extent of
+        the silhouettes), ``zlo``, ``zhi`` (depth of the centres), ``front``
+        (nearest surface) and, with ``centre``, ``reach`` (farthest surface
+        from it).
+
+        >>> import crystalview as cv
+        >>> sc = build_scene(cv.build("Cu"), "space-filling", "[001]")
+        >>> e = sc.projected_extent()
+        >>> bool(e["hi"][0] - e["lo"][0] > cv.build("Cu").lattice.a)
+        True
+        """
+        v = view or self.view
+        lo, hi = np.full(2, np.inf), np.full(2, -np.inf)
+        zlo, zhi, front, reach = np.inf, -np.inf, -np.inf, 0.0
+        c = None if centre is None else np.asarray(centre, float).reshape(3)
+        groups = self._extent_groups() or [(np.zeros((1, 3)), np.zeros(1))]
+        for pts, rad in groups:
+            for a in range(0, len(pts), chunk):
+                p, r = pts[a:a + chunk], rad[a:a + chunk]
+                q = v.project(p)
+                lo = np.minimum(lo, (q[:, :2] - r[:, None]).min(axis=0))
+                hi = np.maximum(hi, (q[:, :2] + r[:, None]).max(axis=0))
+                zlo, zhi = min(zlo, float(q[:, 2].min())), max(zhi, float(q[:, 2].max()))
+                front = max(front, float((q[:, 2] + r).max()))
+                if c is not None:
+                    reach = max(reach, float((np.linalg.norm(p - c, axis=1) + r).max()))
+        out = dict(lo=lo, hi=hi, zlo=zlo, zhi=zhi, front=front)
+        if c is not None:
+            out["reach"] = reach
+        return out
+
     def extent_points(self):
         """Points and radii whose silhouettes must fit the frame."""
         pts, rad = [], []
@@ -263,7 +359,12 @@ class Scene:
 def boundary_images(frac, pbc, tol=1e-4):
     """Indices and fractional shifts of the periodic images of atoms lying on
     the cell faces, edges and corners (an atom at x = 0 also drawn at x = 1),
-    so a cell shows all its 8 corners and 6 faces the way figures do."""
+    so a cell shows all its 8 corners and 6 faces the way figures do.
+
+    >>> idx, shifts = boundary_images(np.array([[0.0, 0.5, 0.5]]), (True, True, True))
+    >>> idx.tolist(), shifts.tolist()
+    ([0], [[1.0, 0.0, 0.0]])
+    """
     idx, shifts = [], []
     opts = []
     for k in range(3):
@@ -291,6 +392,11 @@ def boundary_images(frac, pbc, tol=1e-4):
 
 
 def cell_edges(cell, origin=None):
+    """The 12 edges (each a pair of 3D points) of the parallelepiped spanned by ``cell`` (rows) from ``origin``.
+
+    >>> len(cell_edges(np.eye(3)))
+    12
+    """
     o = np.zeros(3) if origin is None else origin
     corners = {c: o + np.array(c, float) @ cell for c in itertools.product((0, 1), repeat=3)}
     edges = []
@@ -305,7 +411,11 @@ def cell_edges(cell, origin=None):
 
 def plane_polygon(cell, normal, offset):
     """Corners (ordered) of the polygon where the plane normal . r = offset
-    cuts the parallelepiped spanned by ``cell`` (rows)."""
+    cuts the parallelepiped spanned by ``cell`` (rows).
+
+    >>> len(plane_polygon(np.eye(3), np.array([1.0, 1.0, 1.0]), 1.0))      # the (111) triangle of a unit cube
+    3
+    """
     edges = cell_edges(cell)
     pts = []
     for a, b in edges:
@@ -334,10 +444,21 @@ def plane_polygon(cell, normal, offset):
 
 
 def fan_faces(n, start=0):
+    """Triangles fanning a convex polygon of ``n`` corners numbered from ``start``.
+
+    >>> fan_faces(4).tolist()
+    [[0, 1, 2], [0, 2, 3]]
+    """
     return np.array([[start, start + i, start + i + 1] for i in range(1, n - 1)], dtype=np.int64)
 
 
 def hull_mesh(points):
+    """(points, faces) of the convex hull of ``points`` (outward triangles), or None when they span no volume.
+
+    >>> pts, faces = hull_mesh(np.array([[0, 0, 0], [1, 0, 0], [0, 1, 0], [0, 0, 1.0]]))
+    >>> len(pts), len(faces)
+    (4, 4)
+    """
     from scipy.spatial import ConvexHull
 
     pts = np.asarray(points, float)
@@ -375,7 +496,12 @@ def _nn_distance(crystal):
 
 
 def lattice_nn_distance(crystal):
-    """Nearest-neighbour distance of the perfect lattice the crystal was made from, or None."""
+    """Nearest-neighbour distance of the perfect lattice the crystal was made from, or None.
+
+    >>> import crystalview as cv
+    >>> round(lattice_nn_distance(cv.build("Cu")), 4)                  # a / sqrt(2)
+    2.5561
+    """
     v = (crystal.metadata or {}).get("nearest_neighbour_distance")
     try:
         v = float(v)
@@ -397,7 +523,12 @@ def lattice_nn_distance(crystal):
 
 def median_nn_distance(crystal, sample=20000):
     """Median over the atoms (a sample of up to ``sample``) of each atom's
-    nearest-neighbour distance, periodic images included."""
+    nearest-neighbour distance, periodic images included.
+
+    >>> import crystalview as cv
+    >>> round(median_nn_distance(cv.build("Fe")), 4)                   # a sqrt(3) / 2 in bcc
+    2.4825
+    """
     from ..analysis.neighbours import with_images
 
     n = len(crystal)
@@ -481,7 +612,13 @@ def classify_layers(crystal, normal_text=None, points=None):
     own place: an image on a cell face can sit in another layer than its atom).
 
     Returns (positions (N,) int, normal label).  Raises UserError for
-    crystals that are not close-packed along that normal."""
+    crystals that are not close-packed along that normal.
+
+    >>> import crystalview as cv
+    >>> cls, plane = classify_layers(cv.build("Mg", repeat=(2, 2, 2)))
+    >>> sorted(set(cls.tolist())), plane
+    ([0, 1], '(0001)')
+    """
     from ..lattice import parse_indices, plane_normal
 
     lat = crystal.lattice
@@ -553,8 +690,14 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
     'coordination', 'sites' or 'both'.  ``layers`` is None, True (the
     close-packed planes of the lattice) or a plane '(111)'.  ``cell_shape``:
     None (the hexagonal prism for one conventional hcp / simple hexagonal
-    cell, else the crystal's cell), 'prism' or 'primitive'."""
-    from .cells import PrismAtoms, best_prism_view, prism_applies, prism_candidates
+    cell, else the crystal's cell), 'prism' or 'primitive'.
+
+    >>> import crystalview as cv
+    >>> sc = build_scene(cv.build("Mg"))                      # the hexagonal prism, seen obliquely
+    >>> sc.n_atoms, sc.info["cell"]
+    (17, 'hexagonal prism')
+    """
+    from .cells import PrismAtoms, best_prism_view, oblique_cell_view, prism_applies, prism_candidates
 
     st = S.get_style(style) if isinstance(style, str) else style
     use_prism = prism_applies(crystal, cell_shape)
@@ -569,6 +712,8 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
             view, auto_up = "[013]", "[001]"     # along a cube axis the sites hide behind atoms and bonds
         elif planes and view == "[001]" and auto_up is None and not slip_info:
             view, auto_up = plane_view(crystal, planes[0])
+        elif view == "[001]" and auto_up is None and not use_prism:
+            view, auto_up = oblique_cell_view(crystal) or (view, auto_up)   # small cells: seen a little from above
         if up is None:
             up = auto_up
     v = make_view(crystal, view, up)
@@ -604,13 +749,15 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
     elif prism is not None:
         pts, src = prism.positions, prism.src
     else:
+        # the atoms themselves, then the images on the cell faces: no (N, 3) shift array for the
+        # atoms that stay where they are (a 50-million-atom figure keeps its memory for the atoms)
         src = np.arange(n)
-        shifts = np.zeros((n, 3))
+        pts = np.asarray(crystal.positions, float)
         if complete_cell:
             bi, bs = boundary_images(frac, crystal.pbc)
-            src = np.concatenate([src, bi])
-            shifts = np.vstack([shifts, bs])
-        pts = crystal.positions[src] + shifts @ cell_mat
+            if len(bi):
+                src = np.concatenate([src, bi])
+                pts = np.concatenate([pts, pts[bi] + bs @ cell_mat])
     col = cidx[src].copy()
 
     # stacking layers recolour the host atoms: each drawn point by its own
@@ -823,7 +970,14 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
 def plane_trace(points, view, normal, origin, pad=0.06):
     """The segment a plane (normal, through origin) shows as when seen
     edge-on, across the extent of ``points``: (2, 3) array, or None when the
-    plane faces the viewer."""
+    plane faces the viewer.
+
+    >>> import crystalview as cv
+    >>> v = make_view(cv.build("Cu"), "[100]")
+    >>> seg = plane_trace(np.eye(3) * 3.6, v, np.array([0, 0, 1.0]), np.zeros(3))
+    >>> seg.shape
+    (2, 3)
+    """
     n = np.asarray(normal, float)
     n = n / np.linalg.norm(n)
     d = np.cross(view.toward, n)
@@ -838,7 +992,11 @@ def plane_trace(points, view, normal, origin, pad=0.06):
 
 
 def dashes(seg, n=24):
-    """Each segment (2, 3) split into ``n`` dashes with gaps: (K, 2, 3)."""
+    """Each segment (2, 3) split into ``n`` dashes with gaps: (K, 2, 3).
+
+    >>> dashes(np.array([[0, 0, 0], [1, 0, 0.0]]), n=4).shape
+    (4, 2, 3)
+    """
     out = []
     for a, b in np.asarray(seg, float).reshape(-1, 2, 3):
         t = np.linspace(0, 1, 2 * n)
@@ -922,7 +1080,12 @@ def _shared_site_marks(sc, crystal, radii, st):
 
 def vacancy_positions(crystal):
     """Empty lattice sites the defect records name: vacancies and the sites
-    Frenkel pairs left behind (their interstitials are atoms, drawn as such)."""
+    Frenkel pairs left behind (their interstitials are atoms, drawn as such).
+
+    >>> import crystalview as cv
+    >>> len(vacancy_positions(cv.add_vacancies(cv.build("Cu", repeat=(2, 2, 2)), count=3, seed=1)))
+    3
+    """
     vac = []
     for d in (crystal.metadata or {}).get("defects", []) or []:
         if d.get("kind") in ("vacancy", "frenkel_pair") and d.get("positions") is not None:
@@ -935,7 +1098,12 @@ def outline_edges(crystal):
     a dislocation's cross-section) the cell box means nothing: the outline
     keeps only the edges running along periodic axes, placed at the atoms'
     extent across the free ones; with fewer than two periodic axes there is
-    no outline (None)."""
+    no outline (None).
+
+    >>> import crystalview as cv
+    >>> len(outline_edges(cv.build("Cu")))
+    12
+    """
     pbc = [bool(x) for x in crystal.pbc]
     if all(pbc):
         return cell_edges(crystal.cell)
@@ -1009,7 +1177,11 @@ def _slip(crystal, axis):
 
 
 def cell_planes(cell):
-    """Inward unit normals n and offsets d of a parallelepiped's six faces (inside: n . x >= d)."""
+    """Inward unit normals n and offsets d of a parallelepiped's six faces (inside: n . x >= d).
+
+    >>> [(n.tolist(), float(d)) for n, d in cell_planes(np.eye(3) * 2.0)][:2]     # x >= 0 and -x >= -2
+    [([1.0, 0.0, 0.0], 0.0), ([-1.0, -0.0, -0.0], -2.0)]
+    """
     recip = np.linalg.inv(cell).T
     norms = np.linalg.norm(recip, axis=1)
     out = []
@@ -1057,7 +1229,11 @@ def _clip_spheres(pts, r, planes, col, colours):
 
 
 def sphere_mesh(radius, res=36):
-    """A closed triangulated sphere (pyvista) centred on the origin."""
+    """A closed triangulated sphere (pyvista) centred on the origin.
+
+    >>> sphere_mesh(1.0, res=12).is_all_triangles
+    True
+    """
     import pyvista as pv
 
     return pv.Sphere(radius=float(radius), theta_resolution=res, phi_resolution=max(8, res * 2 // 3)).triangulate()
@@ -1072,7 +1248,11 @@ _PLURAL = {"vacancy": ("vacancy", "vacancies"), "substitution": ("substitution",
 
 def defect_label(d):
     """A caption phrase for one ``metadata['defects']`` record, from the facts
-    the defect builders record (crystalview/defects/*.py)."""
+    the defect builders record (crystalview/defects/*.py).
+
+    >>> defect_label({"kind": "substitution", "element": "Cr", "count": 21})
+    '21 Cr substitutions'
+    """
     kind = d.get("kind")
     if kind == "stacking" and d.get("sequence"):
         return f"stacking {d.get('name') + ' ' if d.get('name') else ''}{d['sequence']}"
@@ -1108,7 +1288,49 @@ def defect_label(d):
     return str(kind).replace("_", " ")
 
 
+def _alloy_part(d, alloy):
+    """Whether a defect record is one of the alloy's own solutes (the alloy builder records each as one)."""
+    counts = alloy.get("counts") or {}
+    el = d.get("element")
+    return (d.get("kind") in ("substitution", "interstitial") and el in counts and el != alloy.get("base")
+            and d.get("count") == counts[el])
+
+
+def alloy_label(alloy, md=None):
+    """A caption line naming the alloy a crystal was built from (``metadata['alloy']``, see
+    :func:`crystalview.alloy.alloy_crystal`): as asked, as built, and how.
+
+    >>> alloy_label({"text": "Fe-18Cr-8Ni", "unit": "wt", "base": "Fe", "asked": {"Cr": 18.0, "Ni": 8.0},
+    ...              "counts": {"Fe": 79, "Cr": 21, "Ni": 8}, "made_wt_percent": {"Cr": 18.28, "Ni": 7.86},
+    ...              "sites": 108, "seed": 0})
+    'alloy Fe-18Cr-8Ni (wt%); as built Fe-18.3Cr-7.9Ni (21 Cr + 8 Ni, 108 lattice sites, random, seed 0)'
+    """
+    unit = alloy.get("unit", "wt")
+    text = f"alloy {alloy.get('text', '?')} ({unit}%)"
+    made = alloy.get(f"made_{unit}_percent") or {}
+    counts = alloy.get("counts") or {}
+    parts = [el for el in (alloy.get("asked") or {}) if el in made]
+    if parts:
+        text += f"; as built {alloy.get('base', '')}" + "".join(
+            f"-{made[el]:.1f}{el}" if made[el] >= 1 else f"-{made[el]:.2g}{el}" for el in parts)
+        n = alloy.get("sites") or sum(counts.values())
+        how = " + ".join(f"{counts[el]} {el}" for el in parts if el in counts)
+        if how:
+            text += f" ({how}, {n} lattice sites, random"
+            text += f", seed {alloy['seed']})" if alloy.get("seed") is not None else ")"
+    if md and md.get("a_estimated"):
+        text += "; a by Vegard's law (an estimate)"
+    return text
+
+
 def caption_lines(crystal, view, st, slip_info=None):
+    """The caption's lines: structure and parameters, atoms and view, alloy, defects, slip system.
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Cu")
+    >>> caption_lines(c, make_view(c, "[001]"), S.get_style("lattice"))[1]
+    '4 atoms; view along [001], [010] up; lattice'
+    """
     lat = crystal.lattice
     md = crystal.metadata
     name = md.get("name") or (", ".join(crystal.elements))
@@ -1130,13 +1352,18 @@ def caption_lines(crystal, view, st, slip_info=None):
     second = f"{len(crystal):,} atoms"
     if rep:
         second += f" ({' x '.join(str(x) for x in rep)} cells)"
+    alloy = md.get("alloy") if isinstance(md.get("alloy"), dict) else None
     defects = []
     for d in md.get("defects", []) or []:
+        if alloy and _alloy_part(d, alloy):
+            continue                    # told by the alloy's own line
         label = defect_label(d)
         if label and label not in defects:
             defects.append(label)
     second += f"; view along {view.label}, {view.up_label} up; {st.name}"
     lines.append(second)
+    if alloy:
+        lines.append(alloy_label(alloy, md))
     if defects:
         lines.append("defects: " + "; ".join(defects))
     if slip_info and slip_info.get("label"):
@@ -1145,12 +1372,104 @@ def caption_lines(crystal, view, st, slip_info=None):
 
 
 # ---------------------------------------------------------------- culling
+def visible_in_view(view, pos, radius, chunk=1_000_000, max_bins=16_000_000, column_chunk=2_000_000):
+    """Mask of the atoms at ``pos`` that can show along ``view``: the test of
+    :func:`visible_atoms`, done in chunks of atoms (the projection is never
+    held whole), and the column test only on the atoms that pass it (an atom
+    behind a hidden column-mate at least as large is hidden too), so a scene
+    of tens of millions of atoms culls in little more memory than its mask.
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Cu", repeat=(6, 6, 6))
+    >>> v = make_view(c, "[001]")
+    >>> whole = visible_atoms(v.project(c.positions), c.atom_radii())
+    >>> lean = visible_in_view(v, c.positions, c.atom_radii(), chunk=100, column_chunk=150)
+    >>> bool((lean == whole).all()), int(whole.sum()) < len(c)
+    (True, True)
+    """
+    pos = np.asarray(pos, float).reshape(-1, 3)
+    r = np.broadcast_to(np.asarray(radius, float), (len(pos),))
+    n = len(pos)
+    keep = np.ones(n, bool)
+    if n < 2:
+        return keep
+    sample = r[:: max(1, n // 2_000_000)]
+    s = float(np.percentile(sample, 5)) / 6.0
+    if s <= 0:
+        return keep
+    u0 = v0 = np.inf
+    u1 = v1 = -np.inf
+    for a in range(0, n, chunk):
+        q = view.project(pos[a:a + chunk])
+        u0, v0 = min(u0, float(q[:, 0].min())), min(v0, float(q[:, 1].min()))
+        u1, v1 = max(u1, float(q[:, 0].max())), max(v1, float(q[:, 1].max()))
+    nu, nv = int((u1 - u0) / s) + 1, int((v1 - v0) / s) + 1
+    if nu * nv > max_bins:
+        return keep                     # too fine a grid for the frame: keep every atom (as visible_atoms does)
+    R0 = 6.0
+    occ = np.full((nu, nv), -np.inf)
+    for a in range(0, n, chunk):
+        q = view.project(pos[a:a + chunk])
+        rr = r[a:a + chunk]
+        big = rr >= R0 * s
+        if big.any():
+            iu = ((q[big, 0] - u0) / s).astype(np.int64)
+            iv = ((q[big, 1] - v0) / s).astype(np.int64)
+            np.maximum.at(occ.ravel(), iu * nv + iv, q[big, 2])
+    worst = _worst_in_front(occ, s, float(r.max()), R0)
+    for a in range(0, n, chunk):
+        q = view.project(pos[a:a + chunk])
+        iu = ((q[:, 0] - u0) / s).astype(np.int64)
+        iv = ((q[:, 1] - v0) / s).astype(np.int64)
+        keep[a:a + chunk] = ~(worst[iu, iv] > q[:, 2] + r[a:a + chunk])
+    idx = np.nonzero(keep)[0]
+    m = len(idx)
+    if m < 2:
+        return keep
+    if m <= column_chunk:
+        keep[idx[~column_front(view.project(pos[idx]), r[idx])]] = False
+        return keep
+    # many survivors (along a zone axis the bin test leaves the columns to the column test): in stripes
+    # across the picture, each holding whole columns (a column's atoms share their rounded right coordinate)
+    eps = 1e-3
+    qu = np.empty(m, np.int64)
+    for a in range(0, m, chunk):
+        qu[a:a + chunk] = np.round((pos[idx[a:a + chunk]] @ view.right) / eps).astype(np.int64)
+    lo, hi = int(qu.min()), int(qu.max()) + 1
+    nstripe = -(-m // column_chunk)
+    cuts = [lo + (hi - lo) * k // nstripe for k in range(nstripe + 1)]
+    for a, b in zip(cuts[:-1], cuts[1:]):
+        sel = idx[(qu >= a) & (qu < b)]
+        if len(sel) > 1:
+            keep[sel[~column_front(view.project(pos[sel]), r[sel], eps=eps)]] = False
+    return keep
+
+
+def _worst_in_front(occ, s, rmax, R0=6.0):
+    """Per bin, the depth of the farthest of the nearest occluders over any disc reaching it."""
+    from scipy.ndimage import maximum_filter, minimum_filter
+
+    m = int(R0)
+    di = np.arange(-m, m + 1)
+    foot = ((np.abs(di)[:, None] + 1) ** 2 + (np.abs(di)[None, :] + 1) ** 2) <= R0 ** 2
+    occ = maximum_filter(occ, footprint=foot, mode="constant", cval=-np.inf)
+    k = int(math.ceil(rmax / s)) + 1
+    return minimum_filter(occ, size=2 * k + 1, mode="constant", cval=-np.inf)
+
+
 def visible_atoms(uvw, radius, bin_size=None, max_bins=16_000_000):
     """Mask of the atoms that can show in an orthographic view: an atom is
     dropped only when, over its whole projected disc, another opaque sphere
     lies wholly in front of it.  Conservative: a kept atom may still be hidden.
 
-    ``uvw`` are (right, up, toward) coordinates; larger toward is nearer."""
+    ``uvw`` are (right, up, toward) coordinates; larger toward is nearer.
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Cu", repeat=(4, 4, 4))
+    >>> keep = visible_atoms(make_view(c, "[001]").project(c.positions), c.atom_radii())
+    >>> int(keep.sum()) < len(c)
+    True
+    """
     from scipy.ndimage import maximum_filter, minimum_filter
 
     n = len(uvw)
@@ -1192,7 +1511,12 @@ def visible_atoms(uvw, radius, bin_size=None, max_bins=16_000_000):
 def column_front(uvw, radius, eps=1e-3):
     """Mask dropping atoms that sit exactly behind another atom at least as
     large (same projected centre, nearer the viewer): along a zone axis the
-    atoms stand in columns and only the front of each column shows."""
+    atoms stand in columns and only the front of each column shows.
+
+    >>> uvw = np.array([[0, 0, 1.0], [0, 0, 0.0], [1, 0, 0.0]])      # two atoms in one column, one beside
+    >>> column_front(uvw, np.ones(3)).tolist()
+    [True, False, True]
+    """
     q = np.round(uvw[:, :2] / eps).astype(np.int64)
     q -= q.min(axis=0)
     key = q[:, 0] * (int(q[:, 1].max()) + 1) + q[:, 1]      # one integer per projected centre

@@ -13,6 +13,11 @@ from ..errors import UserError, suggest
 
 @dataclass(frozen=True)
 class Style:
+    """How atoms, sticks and the cell are drawn (see :data:`STYLES`).
+
+    >>> STYLES["space-filling"].atom_scale, STYLES["ball-and-stick"].bonds
+    (1.0, True)
+    """
     name: str
     atom_scale: float        # drawn radius / hard-sphere radius
     bonds: bool              # sticks between nearest neighbours
@@ -56,6 +61,11 @@ TEXT_COLOUR = "#1a1a1a"
 
 
 def get_style(name):
+    """The :class:`Style` of a name or common alias, or a one-line UserError.
+
+    >>> get_style("spacefill").name
+    'space-filling'
+    """
     key = str(name).strip().lower().replace("_", "-").replace(" ", "-")
     aliases = {"balls": "ball-and-stick", "ball-stick": "ball-and-stick", "spacefill": "space-filling",
                "space-fill": "space-filling", "hard-sphere": "space-filling", "hard-spheres": "space-filling",
@@ -67,7 +77,11 @@ def get_style(name):
 
 
 def check_size(size):
-    """(W, H) as two ints within the accepted range, or UserError."""
+    """(W, H) as two ints within the accepted range, or UserError.
+
+    >>> check_size(("1600", 1200.4))
+    (1600, 1200)
+    """
     try:
         w, h = (int(round(float(x))) for x in size)
     except (TypeError, ValueError, OverflowError):
@@ -80,6 +94,11 @@ def check_size(size):
 
 
 def check_dpi(dpi):
+    """``dpi`` as a float within the accepted range, or a one-line UserError.
+
+    >>> check_dpi("300")
+    300.0
+    """
     try:
         v = float(dpi)
     except (TypeError, ValueError):
@@ -90,7 +109,11 @@ def check_dpi(dpi):
 
 
 def round_length(target):
-    """A round length (1, 2 or 5 times a power of ten) no larger than ``target``."""
+    """A round length (1, 2 or 5 times a power of ten) no larger than ``target``.
+
+    >>> round_length(3.7), round_length(0.26), round_length(57)
+    (2.0, 0.2, 50.0)
+    """
     if target <= 0 or not math.isfinite(target):
         return 1.0
     e = math.floor(math.log10(target))
@@ -103,10 +126,19 @@ def round_length(target):
 
 
 def darker_hex(hexc, f):
-    """'#rrggbb' with every channel scaled by ``f`` (< 1 darker)."""
+    """'#rrggbb' with every channel scaled by ``f`` (< 1 darker).
+
+    >>> darker_hex("#80a0ff", 0.5)
+    '#405080'
+    """
     h = hexc.lstrip("#")
     return "#" + "".join("%02x" % int(round(min(255, int(h[i:i + 2], 16) * f))) for i in (0, 2, 4))
 
 
 def fmt_length(x):
+    """A length in Å as the scale bar labels it.
+
+    >>> fmt_length(5.0)
+    '5 Å'
+    """
     return f"{x:g} \u00c5"

@@ -31,7 +31,12 @@ def font_file():
     """A system sans-serif font whose square brackets look square (VTK's
     built-in face draws [ and ] like parentheses, which would misstate Miller
     indices); else the DejaVu Sans that matplotlib (a pyvista dependency)
-    ships, found without importing it; or None."""
+    ships, found without importing it; or None.
+
+    >>> f = font_file()
+    >>> f is None or f.endswith(".ttf")
+    True
+    """
     for f in _FONTS:
         if os.path.isfile(f):
             return f
@@ -57,8 +62,45 @@ def _pil_font(size_px):
     return ImageFont.truetype(f, max(1, int(round(size_px))))
 
 
+@functools.lru_cache(maxsize=1)
+def font_family():
+    """The family name of :func:`font_file` (what the cairo drawing asks
+    fontconfig for, so the text drawn has the metrics the layout measured).
+
+    >>> isinstance(font_family(), str)
+    True
+    """
+    f = _pil_font(12)
+    if f is not None:
+        try:
+            return f.getname()[0]
+        except (OSError, AttributeError):          # pragma: no cover
+            pass
+    return "DejaVu Sans"
+
+
+@functools.lru_cache(maxsize=1)
+def font_vmetrics():
+    """(ascent, descent) of the figure font per em (the middle of a line of
+    text lies (ascent - descent) / 2 above its baseline).
+
+    >>> a, d = font_vmetrics()
+    >>> 0.6 < a < 1.2 and 0.1 < d < 0.4
+    True
+    """
+    f = _pil_font(1000)
+    if f is None:
+        return 0.93, 0.24
+    a, d = f.getmetrics()
+    return a / 1000.0, d / 1000.0
+
+
 def text_width(text, size_px):
-    """Advance width of ``text`` in pixels at ``size_px`` (the em size), from the font's own metrics."""
+    """Advance width of ``text`` in pixels at ``size_px`` (the em size), from the font's own metrics.
+
+    >>> text_width("iiii", 20) < text_width("MMMM", 20)
+    True
+    """
     f = _pil_font(size_px)
     if f is None:
         return 0.56 * size_px * len(text)
@@ -66,7 +108,12 @@ def text_width(text, size_px):
 
 
 def wrap(text, size_px, width_px):
-    """Lines of ``text`` no wider than ``width_px`` (broken at spaces after ';' or ',' first, then at any space)."""
+    """Lines of ``text`` no wider than ``width_px`` (broken at spaces after ';' or ',' first, then at any space).
+
+    >>> lines = wrap("4 atoms; view along [001], [010] up; lattice", 10, 130)
+    >>> len(lines) > 1, all(text_width(t, 10) <= 130 for t in lines), lines[0]
+    (True, True, '4 atoms;')
+    """
     if text_width(text, size_px) <= width_px:
         return [text]
     words = re.split(r"(?<=[;,]) ", text)
@@ -89,7 +136,11 @@ def wrap(text, size_px, width_px):
 
 
 def parse_length(text, what="--width"):
-    """A length with its unit ('85mm', '8.5cm', '3.5in', '240pt') -> millimetres, or a one-line UserError."""
+    """A length with its unit ('85mm', '8.5cm', '3.5in', '240pt') -> millimetres, or a one-line UserError.
+
+    >>> parse_length("85mm"), parse_length("3.5in")
+    (85.0, 88.89999999999999)
+    """
     s = str(text).strip().lower().replace(" ", "")
     m = re.fullmatch(r"([0-9]*\.?[0-9]+)(mm|cm|in|pt|inch|inches|\")?", s)
     if not m:
@@ -107,6 +158,11 @@ def parse_length(text, what="--width"):
 
 
 def check_font_pt(pt):
+    """A font size in points within the accepted range, or a one-line UserError.
+
+    >>> check_font_pt("8")
+    8.0
+    """
     try:
         v = float(pt)
     except (TypeError, ValueError):
@@ -118,4 +174,9 @@ def check_font_pt(pt):
 
 
 def fmt_mm(mm):
+    """A length in mm, four significant digits.
+
+    >>> fmt_mm(85.0), fmt_mm(112.6349)
+    ('85', '112.6')
+    """
     return f"{mm:.4g}"

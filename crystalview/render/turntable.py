@@ -34,7 +34,11 @@ DEFAULT_DPI = 150
 
 
 def check_frames(frames, seconds):
-    """(frames, seconds) as numbers in range, or a one-line UserError."""
+    """(frames, seconds) as numbers in range, or a one-line UserError.
+
+    >>> check_frames("36", 3)
+    (36, 3.0)
+    """
     try:
         n = int(frames)
         if n != float(frames):
@@ -56,6 +60,10 @@ def check_frames(frames, seconds):
 
 
 def check_turntable_size(n_atoms):
+    """Nothing for a crystal a turntable can draw; a one-line LimitError past :data:`MAX_TURNTABLE_ATOMS`.
+
+    >>> check_turntable_size(1000)        # within the cap: nothing to say
+    """
     if n_atoms > MAX_TURNTABLE_ATOMS:
         raise LimitError(f"a turntable draws every atom in every frame, at most {MAX_TURNTABLE_ATOMS:,} atoms; this "
                          f"crystal has {n_atoms:,}: use a smaller --repeat, --style lattice for a lighter "
@@ -63,7 +71,12 @@ def check_turntable_size(n_atoms):
 
 
 def rotation(axis, angle):
-    """3x3 matrix turning vectors by ``angle`` (radians) right-handed about the unit ``axis``."""
+    """3x3 matrix turning vectors by ``angle`` (radians) right-handed about the unit ``axis``.
+
+    >>> R = rotation(np.array([0, 0, 1.0]), math.pi / 2)
+    >>> np.round(R @ np.array([1.0, 0, 0]), 12).tolist()
+    [0.0, 1.0, 0.0]
+    """
     a = np.asarray(axis, float) / np.linalg.norm(axis)
     K = np.array([[0, -a[2], a[1]], [a[2], 0, -a[0]], [-a[1], a[0], 0]])
     return np.eye(3) + math.sin(angle) * K + (1 - math.cos(angle)) * (K @ K)
@@ -71,7 +84,15 @@ def rotation(axis, angle):
 
 def rotate_scene(scene, R, centre):
     """A copy of ``scene`` with every drawn thing turned by ``R`` about ``centre``;
-    the view, legend and caption stay."""
+    the view, legend and caption stay.
+
+    >>> import crystalview as cv
+    >>> from crystalview.render.scene_graph import build_scene
+    >>> sc = build_scene(cv.build("Cu"), "lattice", "[001]")
+    >>> turned = rotate_scene(sc, rotation(np.array([0, 0, 1.0]), math.pi), np.zeros(3))
+    >>> bool(np.allclose(turned.atom_pos[:, 2], sc.atom_pos[:, 2])), turned.n_atoms == sc.n_atoms
+    (True, True)
+    """
     c = np.asarray(centre, float)
 
     def pts(p):
@@ -99,7 +120,15 @@ def swept_extent(scene, axis, centre):
     """Points (and zero radii) whose bounding box on the page holds the scene
     at every angle of a whole turn about ``axis`` through ``centre``: each
     thing sweeps a circle about the axis, whose shadow on a page direction e
-    reaches ρ·sqrt(1 - (a·e)²) either side of its centre."""
+    reaches ρ·sqrt(1 - (a·e)²) either side of its centre.
+
+    >>> import crystalview as cv
+    >>> from crystalview.render.scene_graph import build_scene
+    >>> sc = build_scene(cv.build("Cu"), "lattice", "[001]")
+    >>> pts, rad = swept_extent(sc, sc.view.up, sc.atom_pos.mean(axis=0))
+    >>> pts.shape[1], bool((rad == 0).all())
+    (3, True)
+    """
     pts, rad = scene.extent_points()
     a = np.asarray(axis, float) / np.linalg.norm(axis)
     rel = pts - centre
@@ -123,7 +152,16 @@ def turntable(crystal, path, view=None, style="ball-and-stick", size=None, dpi=N
     would draw to ``path`` (.gif or .mp4): ``frames`` frames over ``seconds``,
     turning once about ``axis`` (a crystal direction '[uvw]'; default the
     vertical of the view).  Sizes as for figures (``width`` at ``dpi``,
-    default 85 mm at 150 dpi, or ``size`` in pixels).  Returns a dict."""
+    default 85 mm at 150 dpi, or ``size`` in pixels).  Returns a dict.
+
+    >>> import os, tempfile
+    >>> import crystalview as cv
+    >>> out = os.path.join(tempfile.mkdtemp(), "cu.gif")
+    >>> info = turntable(cv.build("Cu"), out, style="lattice", size=(96, 96), frames=4, seconds=1,
+    ...                  legend=False, caption=False, scale_bar=False)
+    >>> info["frames"], os.path.getsize(out) > 0
+    (4, True)
+    """
     from .. import progress
     from . import figure as F
     from . import style as S

@@ -54,11 +54,21 @@ HIGHLIGHT = "#b8331f"   # palette 'direction' colour, reused for the picked-atom
 
 
 def has_display():
+    """Whether a window can open here (a display on Linux; always on Windows and macOS).
+
+    >>> isinstance(has_display(), bool)
+    True
+    """
     return bool(os.environ.get("DISPLAY") or os.environ.get("WAYLAND_DISPLAY")) or os.name == "nt" \
         or sys.platform == "darwin"
 
 
 def no_display_message(spec="SPEC"):
+    """The one line said where no window can open.
+
+    >>> no_display_message("Cu").endswith("'crystalview render Cu -o figure.png'")
+    True
+    """
     return ("no display here (DISPLAY and WAYLAND_DISPLAY are unset); write a picture instead with "
             f"'crystalview render {spec} -o figure.png'")
 
@@ -67,7 +77,19 @@ def show(crystal, view=None, style="ball-and-stick", *, up=None, sites=False, po
          directions=(), layers=None, defects=True, slip_axis=None, cell=None, legend=True,
          size=(1280, 960), cell_shape=None):
     """Open ``crystal`` in a window and wait until it is closed ('q', Esc or
-    the window's close button).  Without a display, raises UserError."""
+    the window's close button).  Without a display, raises UserError.
+
+    >>> import os, sys
+    >>> import crystalview as cv
+    >>> env = {k: os.environ.pop(k) for k in ("DISPLAY", "WAYLAND_DISPLAY") if k in os.environ}
+    >>> try:                                  # on Linux without a display: one line, no window
+    ...     show(cv.build("Cu")) if sys.platform.startswith("linux") else print("no display here")
+    ... except UserError as e:
+    ...     print(str(e).split(" (")[0])
+    ... finally:
+    ...     os.environ.update(env)
+    no display here
+    """
     v = Viewer(crystal, view, style, up=up, sites=sites, polyhedra=polyhedra, planes=planes,
                directions=directions, layers=layers, defects=defects, slip_axis=slip_axis, cell=cell,
                legend=legend, size=size, cell_shape=cell_shape)
@@ -77,7 +99,17 @@ def show(crystal, view=None, style="ball-and-stick", *, up=None, sites=False, po
 # ==================================================================== picking (no window needed)
 def ray_from_display(renderer, x, y):
     """World-space ray (origin, unit direction) through display pixel (x, y),
-    VTK convention (origin bottom-left)."""
+    VTK convention (origin bottom-left).
+
+    >>> from crystalview.render.raster3d import _plotter
+    >>> pl = _plotter((100, 100), False)
+    >>> cam = pl.camera
+    >>> cam.SetParallelProjection(True); cam.SetFocalPoint(0, 0, 0); cam.SetPosition(0, 0, 10); cam.SetViewUp(0, 1, 0)
+    >>> origin, d = ray_from_display(pl.renderer, 50, 50)
+    >>> [round(float(x), 6) + 0.0 for x in d]
+    [0.0, 0.0, -1.0]
+    >>> pl.close()
+    """
     pts = []
     for z in (0.0, 1.0):
         renderer.SetDisplayPoint(float(x), float(y), z)
@@ -89,7 +121,12 @@ def ray_from_display(renderer, x, y):
 
 
 def pick_atom(pos, radius, origin, direction):
-    """Index of the first sphere (pos, radius) the ray meets, or None."""
+    """Index of the first sphere (pos, radius) the ray meets, or None.
+
+    >>> pos = np.array([[0, 0, 0], [0, 0, 5.0]])
+    >>> pick_atom(pos, [1.0, 1.0], origin=[0, 0, 10.0], direction=[0, 0, -1.0])     # the nearer of the two
+    1
+    """
     pos = np.asarray(pos, float)
     if not len(pos):
         return None
@@ -108,7 +145,13 @@ def pick_atom(pos, radius, origin, direction):
 class Neighbours:
     """Per-atom coordination for picking: neighbours closer than (1 + tolerance)
     x the crystal's nearest-neighbour distance, periodic images included (the
-    same rule as ``analysis.neighbours.coordination_numbers``), built once."""
+    same rule as ``analysis.neighbours.coordination_numbers``), built once.
+
+    >>> import crystalview as cv
+    >>> cn, by = Neighbours(cv.build("Cu")).of(0)          # fcc: 12 nearest neighbours
+    >>> cn, {str(k): v for k, v in by.items()}
+    (12, {'Cu': 12})
+    """
 
     def __init__(self, crystal, tolerance=0.05):
         from scipy.spatial import cKDTree
@@ -136,7 +179,13 @@ class Neighbours:
 
 def atom_info(crystal, i, position=None, neighbours=None):
     """Facts about atom ``i`` (``position``: where it is drawn, which may be a
-    periodic image of the stored position)."""
+    periodic image of the stored position).
+
+    >>> import crystalview as cv
+    >>> info = atom_info(cv.build("Fe"), 0)
+    >>> str(info["element"]), info["role"], info["coordination"]
+    ('Fe', 'host', 8)
+    """
     from ..crystal import ROLES
 
     p = np.asarray(crystal.positions[i] if position is None else position, float)
@@ -148,7 +197,12 @@ def atom_info(crystal, i, position=None, neighbours=None):
 
 
 def describe_atom(info):
-    """Lines of text for one picked atom."""
+    """Lines of text for one picked atom.
+
+    >>> import crystalview as cv
+    >>> describe_atom(atom_info(cv.build("Fe"), 0))[-1]
+    'coordination 8'
+    """
     p, f = info["position"], info["fractional"]
     by = info["neighbours_by_element"]
     mix = f" ({', '.join(f'{k} {v}' for k, v in by.items())})" if len(by) > 1 else ""
@@ -159,13 +213,26 @@ def describe_atom(info):
 
 
 def describe_pair(a, b):
-    """Line of text for the distance between two picked atoms (as drawn)."""
+    """Line of text for the distance between two picked atoms (as drawn).
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Fe")
+    >>> text, d = describe_pair(atom_info(c, 0), atom_info(c, 1))
+    >>> text
+    'Fe 0 to Fe 1: 2.4825 Å'
+    """
     d = float(np.linalg.norm(np.asarray(b["position"]) - np.asarray(a["position"])))
     return f"{a['element']} {a['index']} to {b['element']} {b['index']}: {d:.4f} \u00c5", d
 
 
 def describe_pick(crystal, picks, neighbours=None):
-    """Text for the last one or two picks, each (atom index, drawn position)."""
+    """Text for the last one or two picks, each (atom index, drawn position).
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Fe")
+    >>> describe_pick(c, [(0, c.positions[0]), (1, c.positions[1])]).splitlines()[-1]
+    'distance Fe 0 to Fe 1: 2.4825 Å'
+    """
     nb = neighbours or Neighbours(crystal)
     infos = [atom_info(crystal, i, p, nb) for i, p in picks[-2:]]
     if len(infos) == 1:
@@ -181,7 +248,19 @@ def describe_pick(crystal, picks, neighbours=None):
 # ==================================================================== the window
 class Viewer:
     """A crystal in an on-screen window.  ``run()`` hands it to the user;
-    ``press``/``click``/``image``/``close`` drive it from code."""
+    ``press``/``click``/``image``/``close`` drive it from code.
+
+    >>> import os, sys
+    >>> import crystalview as cv
+    >>> env = {k: os.environ.pop(k) for k in ("DISPLAY", "WAYLAND_DISPLAY") if k in os.environ}
+    >>> try:                                  # the window needs a display; without one, one line
+    ...     Viewer(cv.build("Cu")) if sys.platform.startswith("linux") else print("no display here")
+    ... except UserError as e:
+    ...     print(str(e).split(" (")[0])
+    ... finally:
+    ...     os.environ.update(env)
+    no display here
+    """
 
     def __init__(self, crystal, view=None, style="ball-and-stick", *, up=None, sites=False, polyhedra=None,
                  planes=(), directions=(), layers=None, defects=True, slip_axis=None, cell=None, legend=True,
@@ -204,6 +283,10 @@ class Viewer:
                 view, auto_up = best_prism_view(crystal)
             else:
                 view, auto_up = auto_view(crystal, _slip(crystal, slip_axis) if slip_axis else None)
+                if view == "[001]" and auto_up is None and not slip_axis:
+                    from .cells import oblique_cell_view
+
+                    view, auto_up = oblique_cell_view(crystal) or (view, auto_up)
             up = auto_up if up is None else up
         self.view_text, self.up_text = view, up
         self.size = S.check_size(size)
