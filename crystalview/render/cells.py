@@ -19,6 +19,41 @@ CELL_SHAPES = ("prism", "primitive")
 PLACE_SHARES = {"corner": 1.0 / 6.0, "face centre": 0.5, "inside": 1.0}
 
 
+def boundary_images(frac, pbc, tol=1e-4):
+    """Indices and fractional shifts of the periodic images of atoms lying on
+    the cell faces, edges and corners (an atom at x = 0 also drawn at x = 1),
+    so a cell shows all its 8 corners and 6 faces the way figures do.
+
+    >>> idx, shifts = boundary_images(np.array([[0.0, 0.5, 0.5]]), (True, True, True))
+    >>> idx.tolist(), shifts.tolist()
+    ([0], [[1.0, 0.0, 0.0]])
+    """
+    idx, shifts = [], []
+    opts = []
+    for k in range(3):
+        lo = frac[:, k] < tol
+        hi = frac[:, k] > 1 - tol
+        opts.append((lo, hi))
+    for shift in itertools.product((-1, 0, 1), repeat=3):
+        if shift == (0, 0, 0):
+            continue
+        m = np.ones(len(frac), bool)
+        for k, s in enumerate(shift):
+            if s == 0:
+                continue
+            if not pbc[k]:
+                m[:] = False
+                break
+            m &= opts[k][0] if s == 1 else opts[k][1]
+        if m.any():
+            w = np.nonzero(m)[0]
+            idx.append(w)
+            shifts.append(np.tile(np.array(shift, float), (len(w), 1)))
+    if not idx:
+        return np.zeros(0, int), np.zeros((0, 3))
+    return np.concatenate(idx), np.vstack(shifts)
+
+
 def check_cell_shape(shape):
     """None, 'prism' or 'primitive', or a one-line UserError.
 
@@ -251,7 +286,6 @@ def oblique_cell_view(crystal, max_index=5, elevation=(12.0, 28.0), apart=0.6):
     True
     """
     from ..lattice import format_indices
-    from .scene_graph import boundary_images
 
     lat = getattr(crystal, "lattice", None)
     md = crystal.metadata or {}

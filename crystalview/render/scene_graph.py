@@ -17,6 +17,7 @@ from .. import palette
 from ..crystal import ROLES
 from ..errors import UserError
 from . import style as S
+from .cells import boundary_images  # noqa: F401  (also part of this module's names)
 
 
 # ---------------------------------------------------------------- the view
@@ -354,41 +355,6 @@ class Scene:
         if not pts:
             return np.zeros((1, 3)), np.zeros(1)
         return np.vstack(pts), np.concatenate(rad)
-
-
-def boundary_images(frac, pbc, tol=1e-4):
-    """Indices and fractional shifts of the periodic images of atoms lying on
-    the cell faces, edges and corners (an atom at x = 0 also drawn at x = 1),
-    so a cell shows all its 8 corners and 6 faces the way figures do.
-
-    >>> idx, shifts = boundary_images(np.array([[0.0, 0.5, 0.5]]), (True, True, True))
-    >>> idx.tolist(), shifts.tolist()
-    ([0], [[1.0, 0.0, 0.0]])
-    """
-    idx, shifts = [], []
-    opts = []
-    for k in range(3):
-        lo = frac[:, k] < tol
-        hi = frac[:, k] > 1 - tol
-        opts.append((lo, hi))
-    for shift in itertools.product((-1, 0, 1), repeat=3):
-        if shift == (0, 0, 0):
-            continue
-        m = np.ones(len(frac), bool)
-        for k, s in enumerate(shift):
-            if s == 0:
-                continue
-            if not pbc[k]:
-                m[:] = False
-                break
-            m &= opts[k][0] if s == 1 else opts[k][1]
-        if m.any():
-            w = np.nonzero(m)[0]
-            idx.append(w)
-            shifts.append(np.tile(np.array(shift, float), (len(w), 1)))
-    if not idx:
-        return np.zeros(0, int), np.zeros((0, 3))
-    return np.concatenate(idx), np.vstack(shifts)
 
 
 def cell_edges(cell, origin=None):
