@@ -8,6 +8,7 @@ fast.
 from __future__ import annotations
 
 import argparse
+import errno
 import importlib
 import os
 import sys
@@ -16,12 +17,23 @@ COMMANDS = ["info", "build", "sites", "fit", "slip", "render", "show", "print", 
 
 
 class _Parser(argparse.ArgumentParser):
-    """argparse with one-line errors and exit status 2."""
+    """argparse with one-line errors and exit status 2 (and the error as JSON
+    on stdout when the command line asked for JSON)."""
+
+    json_errors = False
 
     def error(self, message):
-        message = " ".join(str(message).split())      # one line, whatever the user typed
+        message = clean_text(" ".join(str(message).split()))      # one line, whatever the user typed
         sys.stderr.write(f"{self.prog}: error: {message} (see {self.prog} --help)\n")
+        if _Parser.json_errors:
+            _json_error(message)
         sys.exit(2)
+
+
+def _json_error(msg):
+    import json
+
+    sys.stdout.write(json.dumps({"error": msg, "exit_status": 2}) + "\n")
 
 
 def make_parser():
@@ -64,6 +76,15 @@ def main(argv=None):
 
     argv = list(sys.argv[1:] if argv is None else argv)
     debug = "--debug" in argv or bool(os.environ.get("CRYSTALVIEW_DEBUG"))
+    wants_json = _wants_json(argv)
+    _Parser.json_errors = wants_json
+
+    def fail(msg):
+        msg = clean_text(" ".join(str(msg).split()))
+        sys.stderr.write(f"crystalview: error: {msg}\n")
+        if wants_json:                # a caller parsing stdout gets the error as JSON too
+            _json_error(msg)
+        return 2
     try:
         parser = make_parser()
         try:
@@ -78,27 +99,40 @@ def main(argv=None):
     except UserError as exc:
         if debug:
             raise
-        msg = clean_text(" ".join(str(exc).split()))
-        sys.stderr.write(f"crystalview: error: {msg}\n")
-        if _wants_json(argv):         # a caller parsing stdout gets the error as JSON too
-            import json
-
-            sys.stdout.write(json.dumps({"error": msg, "exit_status": 2}) + "\n")
-        return 2
+        return fail(str(exc))
     except KeyboardInterrupt:
         sys.stderr.write("crystalview: interrupted\n")
         return 130
     except BrokenPipeError:
         return 0
     except MemoryError:
-        sys.stderr.write("crystalview: error: out of memory; make the crystal or the output smaller\n")
-        return 2
+        return fail("out of memory; make the crystal or the output smaller")
+    except ValueError as exc:
+        if "Maximum allowed size exceeded" in str(exc) or "array is too big" in str(exc):
+            return fail("this request is larger than any array this machine can hold; make the crystal or the "
+                        "output smaller")
+        if debug:
+            raise
+        return _internal(exc)
+    except OSError as exc:
+        # the file system said no (a name too long, no space, no permission, a read-only place): the user's to fix
+        if debug:
+            raise
+        where = getattr(exc, "filename", None)
+        what = exc.strerror or type(exc).__name__
+        if exc.errno == errno.ENAMETOOLONG:
+            what += " (the file system allows 255 bytes per file or folder name)"
+        return fail(f"cannot use '{where}': {what}" if where else f"the file system refused: {what}")
     except Exception as exc:  # an internal fault
         if debug:
             raise
-        sys.stderr.write(f"crystalview: internal error: {type(exc).__name__}: {exc} "
-                         f"(rerun with --debug and report it with the traceback)\n")
-        return 1
+        return _internal(exc)
+
+
+def _internal(exc):
+    sys.stderr.write(clean_text(f"crystalview: internal error: {type(exc).__name__}: {' '.join(str(exc).split())} "
+                                f"(rerun with --debug and report it with the traceback)") + "\n")
+    return 1
 
 
 if __name__ == "__main__":  # pragma: no cover

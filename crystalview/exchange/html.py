@@ -342,19 +342,10 @@ def write_html(crystal, path, *, force=False, style="ball-and-stick", view=None,
     check_page_size(len(crystal), st.name)          # before anything is built
     planes, directions = list(planes or []), list(directions or [])
     if view is None:       # the figure's own choice, as build_scene makes it (along a dislocation line, ...)
-        from ..render.cells import best_prism_view, prism_applies
-        from ..render.scene_graph import _slip, auto_view, plane_view
+        from ..render.scene_graph import _slip, default_view
 
-        slip_info = _slip(crystal, slip_axis) if slip_axis else None
-        if prism_applies(crystal, cell_shape) and slip_info is None:
-            view, auto_up = best_prism_view(crystal)
-        else:
-            view, auto_up = auto_view(crystal, slip_info)
-        if (sites and view == "[001]" and auto_up is None and crystal.lattice is not None
-                and crystal.lattice.family == "cubic"):
-            view, auto_up = "[013]", "[001]"
-        elif planes and view == "[001]" and auto_up is None and not slip_info:
-            view, auto_up = plane_view(crystal, planes[0])
+        view, auto_up = default_view(crystal, slip=_slip(crystal, slip_axis) if slip_axis else None, sites=sites,
+                                     planes=planes, cell_shape=cell_shape)
         if up is None:
             up = auto_up
     base = build_scene(crystal, st, view, up, defects=False, cell=True, cell_shape=cell_shape)
@@ -482,8 +473,14 @@ def write_html(crystal, path, *, force=False, style="ball-and-stick", view=None,
     else:
         cap_lines = []
     v = base.view
+
+    def plain(text):          # no control characters (escape codes, NUL) in the page's text
+        return "".join(ch if ch.isprintable() else " " for ch in str(text)).strip()
+
+    cap_lines = [plain(t) for t in cap_lines]
     meta = dict(
-        version=1, title=str(title or (base.caption[0] if base.caption else "crystal")), caption=cap_lines,
+        version=1, title=plain(title or (base.caption[0] if base.caption else "crystal")) or "crystal",
+        caption=cap_lines,
         colours=list(base.colours), legend=legend_entries, groups=groups, notes=notes,
         view=dict(label=v.label, up_label=v.up_label, toward=_vec(v.toward), up=_vec(v.up), right=_vec(v.right)),
         views=_named_views(crystal), atoms=atoms, facts=facts, arrays=blob.index,

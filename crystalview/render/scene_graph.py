@@ -144,6 +144,37 @@ def auto_view(crystal, slip=None):
     return "[001]", None
 
 
+def default_view(crystal, *, slip=None, sites=False, planes=(), cell_shape=None):
+    """(view, up) of a figure, page or window whose user named no view: the
+    hexagonal prism seen obliquely; otherwise :func:`auto_view` (a
+    dislocation's line, a fault edge-on, a boundary's tilt axis, across the
+    slip system with ``slip``); sites in a cubic crystal along [013]; a plane
+    (``planes[0]``) obliquely so it shows as an area; a small cubic or
+    tetragonal crystal obliquely with c up; else [001].
+
+    >>> import crystalview as cv
+    >>> default_view(cv.build("Cu")), default_view(cv.build("Cu", repeat=(3, 3, 3)))
+    (('[3-11]', '[001]'), ('[001]', None))
+    >>> default_view(cv.build("Mg"))
+    ('[7-813]', '[0001]')
+    """
+    from .cells import best_prism_view, oblique_cell_view, prism_applies
+
+    use_prism = prism_applies(crystal, cell_shape)
+    if use_prism and slip is None:
+        return best_prism_view(crystal)
+    view, up = auto_view(crystal, slip)
+    if view != "[001]" or up is not None:
+        return view, up
+    if sites and crystal.lattice is not None and crystal.lattice.family == "cubic":
+        return "[013]", "[001]"          # along a cube axis the sites hide behind atoms and bonds
+    if planes and not slip:
+        return plane_view(crystal, list(planes)[0])
+    if not use_prism:
+        return oblique_cell_view(crystal) or (view, up)      # small cells: seen a little from above
+    return view, up
+
+
 def plane_view(crystal, plane, max_index=3, tilt_deg=30.0):
     """A low-index oblique view that shows a plane as an area and the cell as
     a box: the plane's normal about ``tilt_deg`` from the line of sight, and
@@ -663,23 +694,13 @@ def build_scene(crystal, style="ball-and-stick", view=None, up=None, *, sites=Fa
     >>> sc.n_atoms, sc.info["cell"]
     (17, 'hexagonal prism')
     """
-    from .cells import PrismAtoms, best_prism_view, oblique_cell_view, prism_applies, prism_candidates
+    from .cells import PrismAtoms, prism_applies, prism_candidates
 
     st = S.get_style(style) if isinstance(style, str) else style
     use_prism = prism_applies(crystal, cell_shape)
     slip_info = _slip(crystal, slip_axis) if slip_axis else None
     if view is None:
-        if use_prism and slip_info is None:
-            view, auto_up = best_prism_view(crystal)
-        else:
-            view, auto_up = auto_view(crystal, slip_info)
-        if (sites and view == "[001]" and auto_up is None and crystal.lattice is not None
-                and crystal.lattice.family == "cubic"):
-            view, auto_up = "[013]", "[001]"     # along a cube axis the sites hide behind atoms and bonds
-        elif planes and view == "[001]" and auto_up is None and not slip_info:
-            view, auto_up = plane_view(crystal, planes[0])
-        elif view == "[001]" and auto_up is None and not use_prism:
-            view, auto_up = oblique_cell_view(crystal) or (view, auto_up)   # small cells: seen a little from above
+        view, auto_up = default_view(crystal, slip=slip_info, sites=sites, planes=planes, cell_shape=cell_shape)
         if up is None:
             up = auto_up
     v = make_view(crystal, view, up)

@@ -272,21 +272,15 @@ class Viewer:
 
         self.crystal = crystal
         self.st = S.get_style(style) if isinstance(style, str) else style
-        from .cells import best_prism_view, prism_applies
+        from .cells import prism_applies
 
         self.cell_shape = cell_shape
         self.prism = prism_applies(crystal, cell_shape)
         if view is None:        # the figure's choice: along a dislocation line, across a slip system
-            from .scene_graph import _slip, auto_view
+            from .scene_graph import _slip, default_view
 
-            if self.prism and not slip_axis:
-                view, auto_up = best_prism_view(crystal)
-            else:
-                view, auto_up = auto_view(crystal, _slip(crystal, slip_axis) if slip_axis else None)
-                if view == "[001]" and auto_up is None and not slip_axis:
-                    from .cells import oblique_cell_view
-
-                    view, auto_up = oblique_cell_view(crystal) or (view, auto_up)
+            view, auto_up = default_view(crystal, slip=_slip(crystal, slip_axis) if slip_axis else None,
+                                         cell_shape=cell_shape)
             up = auto_up if up is None else up
         self.view_text, self.up_text = view, up
         self.size = S.check_size(size)
