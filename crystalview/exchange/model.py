@@ -16,7 +16,7 @@ from ..fileio import atomic_write, check_target
 from ..mesh import primitives as P
 from ..mesh.bed import DEFAULT_OVERHANG_ANGLE
 from ..mesh.printable import (DEFAULT_BED, DEFAULT_CLEARANCE, DEFAULT_MAX_TRIANGLES, DEFAULT_MIN_FEATURE,
-                              DEFAULT_SCALE, PLA_DENSITY, PRINT_CAUTION, SUFFIXES, PrintReport, _positive,
+                              DEFAULT_SCALE, PLA_DENSITY, PRINT_CAUTION, SUFFIXES, PrintReport, material_density_value,
                               build_model, inspect, report_path)
 from ..mesh.printset import GAP_MM, MAX_MODELS, _slug, layout, set_report_text
 
@@ -89,7 +89,7 @@ def print_model(crystal, path, *, style="ball-and-stick", scale=None, clip_to_ce
     rp = report_path(p)
     if write_report:
         check_target(rp, force=force)
-    material_density = _positive("material density", material_density, "density in g/cm^3", "1.24 for PLA")
+    material_density = material_density_value(material_density)
     model = build_model(crystal, style=style, scale=scale, clip_to_cell=clip_to_cell, base=base, kit=kit,
                         min_feature=min_feature, bed=bed, clearance=clearance, max_triangles=max_triangles,
                         segments=segments, resolution=resolution, edges=edges, cell=cell,
@@ -141,7 +141,7 @@ def print_set(crystals, path, *, scale=None, bed=DEFAULT_BED, material_density=P
         raise UserError("a set lays whole models on one bed; print kits one at a time")
     if isinstance(label, str) and label.strip().lower() not in ("auto", "none"):
         raise UserError("each model of a set gets its own label; use --label auto (the default) or none")
-    material_density = _positive("material density", material_density, "density in g/cm^3", "1.24 for PLA")
+    material_density = material_density_value(material_density)
     taken = set()
     slugs = [_slug(c, taken) for c in crystals]
     stls = [p.with_name(f"{p.stem}-{s}.stl") for s in slugs]

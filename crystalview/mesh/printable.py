@@ -112,6 +112,20 @@ def _positive(name, value, unit, example):
 MIN_SCALE, MAX_SCALE = 0.1, 1000.0
 
 
+def material_density_value(value):
+    """A printing material's density in g/cm^3, checked: a number from 0.1
+    to 30 (every solid element lies below 23, osmium; common practice).
+
+    >>> material_density_value("1.24")
+    1.24
+    """
+    d = _positive("material density", value, "density in g/cm^3", "1.24 for PLA")
+    if not 0.1 <= d <= 30.0:
+        raise UserError(f"material density {value} g/cm^3 is outside 0.1-30 g/cm^3; give the density of what you "
+                        f"print, e.g. --material-density 1.24 for PLA or 7.85 for steel")
+    return d
+
+
 def _check_options(style, scale, min_feature, bed, material_density, clearance, clip_to_cell, kit):
     if style not in STYLES:
         from ..errors import suggest
@@ -130,7 +144,7 @@ def _check_options(style, scale, min_feature, bed, material_density, clearance, 
     if len(bed) != 3:
         raise UserError("the bed size needs three numbers X Y Z in mm, e.g. --bed 220 220 250")
     bed = tuple(_positive("bed size", b, "length in mm", "--bed 220 220 250") for b in bed)
-    material_density = _positive("material density", material_density, "density in g/cm^3", "1.24 for PLA")
+    material_density = material_density_value(material_density)
     clearance = float(clearance)
     if not math.isfinite(clearance) or clearance < 0 or clearance > 2:
         raise UserError(f"clearance {clearance:g} mm must lie between 0 and 2 mm (0.2 mm is a common push fit)")
