@@ -199,3 +199,29 @@ def test_overlapping_atoms_big_files_and_bond_estimates_refused_early(tmp_path, 
     with pytest.raises(LimitError, match="about"):                    # estimated before any bond is found
         gltf_document(cv.build("Cu", repeat=(30, 30, 30)), max_instances=200_000)
     assert time.perf_counter() - t < 10
+
+
+def test_review_round_two_one_line_exit_2(tmp_path, cli, monkeypatch):
+    """Cases of the second adversarial review: each gets one line and exit 2 (they were exit 1, a traceback,
+    gigabytes, or Infinity in the JSON)."""
+    import json
+
+    from crystalview.render import figure as F
+
+    long_dir = tmp_path / ("b" * 300)
+    rc, out, err = cli("export", "Cu", "-o", long_dir / "x.cif")
+    assert rc == 2 and err.count("\n") == 1
+    rc, out, err = cli("info", str(tmp_path / ("c" * 300)) + ".cif")
+    assert rc == 2 and "255 bytes" in err and err.count("\n") == 1
+    for argv in (("slip", "Cu", "--json"), ("info", "Cu", "--json", "--bogus"), ("sites", "Cu", "--json", "--max-atoms", "abc")):
+        rc, out, err = cli(*argv)
+        assert rc == 2 and "error" in json.loads(out) and err.count("\n") == 1, argv
+    rc, out, err = cli("print", "Cu", "-o", tmp_path / "x.stl", "--material-density", "1e308", "--json")
+    assert rc == 2 and "0.1-30" in json.loads(out)["error"] and not (tmp_path / "x.stl").exists()
+    rc, out, err = cli("render", "Cu", "-o", tmp_path / "t.mp4", "--turntable", "--frames", "10", "--size", "8192", "8192")
+    assert rc == 2 and "4096 x 4096" in err and not (tmp_path / "t.mp4").exists()
+    monkeypatch.setattr(F, "available_memory", lambda: 500_000_000)             # a machine with 0.5 GB free
+    rc, out, err = cli("render", "Cu", "--repeat", "60", "60", "60", "-o", tmp_path / "r.png", "--style", "space-filling")
+    assert rc == 2 and "GB of memory" in err and not (tmp_path / "r.png").exists()
+    rc, out, err = cli("export", "Cu", "-o", tmp_path / "t.html", "--title", "A\x1b[2J\x01B")
+    assert rc == 0 and "<title>A [2J B</title>" in (tmp_path / "t.html").read_text()

@@ -29,6 +29,9 @@ MIN_FRAMES, MAX_FRAMES = 2, 720
 MAX_TURNTABLE_ATOMS = 100_000
 #: Most raw frame data a GIF collects before it is written (Pillow writes all frames at once).
 MAX_GIF_BYTES = 1_500_000_000
+#: Largest frame of an animation, in pixels: 4096 x 4096, past 4K screens; a larger one needs gigabytes of
+#: render and encoder buffers per frame (8192 x 8192 ran out of memory).
+MAX_FRAME_PIXELS = 4096 * 4096
 #: Default resolution of animations: screens, not paper.
 DEFAULT_DPI = 150
 
@@ -206,6 +209,9 @@ def turntable(crystal, path, view=None, style="ball-and-stick", size=None, dpi=N
         raise UserError(f"the animation would be {lay.W} x {lay.H} pixels; each side must be {S.MIN_SIDE} to "
                         f"{S.MAX_SIDE}: give --height, or a smaller --dpi or --width")
     W, H = lay.W + lay.W % 2, lay.H + lay.H % 2          # H.264 wants even sides; GIF does not mind
+    if W * H > MAX_FRAME_PIXELS:
+        raise LimitError(f"animation frames of {W} x {H} pixels are over the {MAX_FRAME_PIXELS:,} pixels a frame may "
+                         f"have (4096 x 4096); give a smaller --width, --dpi or --size")
     if suffix == ".gif" and W * H * 3 * n_frames > MAX_GIF_BYTES:
         raise LimitError(f"{n_frames} frames of {W} x {H} pixels is {W * H * 3 * n_frames / 1e9:.1f} GB before "
                          f"compression, over the {MAX_GIF_BYTES / 1e9:g} GB a GIF is built in; use fewer --frames, "
