@@ -199,7 +199,14 @@ def tolerance_of(amount, tolerance=None):
     (0.9, 0.02, 0.5)
     """
     if tolerance is not None:
-        return float(tolerance)
+        try:
+            t = float(tolerance)
+        except (TypeError, ValueError):
+            t = float("nan")
+        if not (math.isfinite(t) and 0 < t <= 50):
+            raise UserError(f"alloy tolerance {tolerance!r} must be a number of percentage points above 0 and at "
+                            f"most 50, e.g. --alloy-tolerance 0.5")
+        return t
     return max(0.05 * amount, 0.02)
 
 

@@ -225,3 +225,13 @@ def test_review_round_two_one_line_exit_2(tmp_path, cli, monkeypatch):
     assert rc == 2 and "GB of memory" in err and not (tmp_path / "r.png").exists()
     rc, out, err = cli("export", "Cu", "-o", tmp_path / "t.html", "--title", "A\x1b[2J\x01B")
     assert rc == 0 and "<title>A [2J B</title>" in (tmp_path / "t.html").read_text()
+
+
+def test_tolerance_and_thickness_bounded(cli):
+    """A NaN alloy tolerance built Cu-10Ni as 4 Cu and 0 Ni (every comparison with NaN is false); a slab
+    1e300 A thick printed a 300-digit atom count."""
+    for tol in ("nan", "inf", "0", "-1", "80"):
+        rc, out, err = cli("build", "Cu", "--alloy", "Cu-10Ni", "--alloy-tolerance", tol)
+        assert rc == 2 and "alloy tolerance" in err and err.count("\n") == 1, tol
+    rc, out, err = cli("build", "Cu", "--slab", "(111)", "--slab-thickness", "1e300")
+    assert rc == 2 and "0 to 10000 A" in err and len(err) < 200

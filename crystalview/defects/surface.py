@@ -112,6 +112,8 @@ def plane_spacings(heights, period, tol=1e-4):
 
 #: Largest vacuum gap accepted (A): far more than any surface model needs.
 MAX_VACUUM = 1000.0
+#: Thickest slab (A): 1 micrometre, far past any atomistic slab.
+MAX_THICKNESS = 10000.0
 
 
 def slab(crystal_or_element, hkl, layers=None, thickness=None, vacuum=10.0, repeat=(1, 1), phase=None,
@@ -172,8 +174,9 @@ def slab(crystal_or_element, hkl, layers=None, thickness=None, vacuum=10.0, repe
             th = float(thickness)
         except (TypeError, ValueError):
             th = float("nan")
-        if not (math.isfinite(th) and th >= 0):
-            raise UserError(f"thickness {thickness!r} must be a length of 0 A or more, e.g. 12")
+        if not (math.isfinite(th) and 0 <= th <= MAX_THICKNESS):
+            raise UserError(f"thickness {thickness!r} must be a length of 0 to {MAX_THICKNESS:g} A (1 micrometre), "
+                            f"e.g. 12")
         ncopies = math.ceil((th + hstep) / hstep / planes_per_cell) + 1
     check_atom_count(len(frac) * ncopies * nx * ny, max_atoms, what="this slab")
     pos = np.vstack([frac @ cellP + m * cellP[2] for m in range(ncopies)])
