@@ -14,8 +14,10 @@ high of their resident sizes, which are read every 4 ms), and reports the
 peak of the sum less the child's Pss just before the call, so the
 interpreter, the libraries and the crystal are not counted.  The child's own
 peak resident set size (ru_maxrss) is printed beside it.  Prints the medians
-of --runs runs and the ratios.  --big also runs find_voids once on 1,000,000 atoms
-(about 1.5 min on 2 cores, 2.6 GB) and prints its time and peak.
+of --runs runs and the ratios, and where find_voids spends its time (points
+and images, slab triangulations in the workers, join and holes).  --big also
+runs find_voids once on 1,000,000 atoms (about 50 s on two free cores, 70-85 s
+when other jobs hold a core; 3.4 GB) and prints its time, split and peak.
 
     .venv/bin/python bench/bench_voids.py [--runs 3] [--atoms 100000] [--big]
 """
@@ -98,7 +100,7 @@ def _child(mode, n_atoms):
 
         pts = d.positions + np.random.default_rng(1).uniform(-1e-6, 1e-6, d.positions.shape)
     else:
-        from crystalview.analysis.voids import find_voids
+        from crystalview.analysis.voids import _find_voids
     before = _rss_now_mb()
     before_pss = _pss_mb("self")
     print(json.dumps({"start": True}), flush=True)
@@ -107,9 +109,12 @@ def _child(mode, n_atoms):
         Delaunay(pts)
         extra = {}
     else:
-        v = find_voids(d, max_atoms=len(d))
+        info = {}
+        v = _find_voids(d, max_atoms=len(d), info=info)      # find_voids, with the split of its time
         extra = {"holes": len(v), "channels": int(len(v.channels)),
-                 "kinds": {k: r["count"] for k, r in v.summary().items()}}
+                 "kinds": {k: r["count"] for k, r in v.summary().items()},
+                 "split": info["seconds"], "slabs": info["slabs"], "points": info["points"],
+                 "redone": info["slabs_redone"], "attempts": info["attempts"]}
     dt = time.perf_counter() - t0
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
     print(json.dumps({"seconds": dt, "peak_rss_MB": peak_mb, "rss_above_MB": peak_mb - before,
@@ -182,6 +187,9 @@ def main():
           f"(Pss; the main process's ru_maxrss {last['rss_above_MB']:.0f} MB above; "
           f"{last['holes']:,} holes {last['kinds']}, "
           f"{last['channels']:,} channels)")
+    sp = {k: statistics.median(r["split"][k] for r in res["voids"]) for k in last["split"]}
+    print(f"find_voids split (medians): points and images {sp['prepare']:.2f} s, {last['slabs']} slab "
+          f"triangulations {sp['slabs']:.2f} s, join and holes {sp['holes']:.2f} s; {last['points']:,} points")
     print(f"time ratio find_voids / Delaunay: {tv / tb:.2f}  (target <= 1.5)")
     print(f"peak memory ratio find_voids / Delaunay: {mv / mb:.2f}  (target <= 2.0)")
     if a.big:
@@ -190,6 +198,10 @@ def main():
               f"peak {r['peak_above_MB']:.0f} MB above the start, workers included (peak RSS of the main "
               f"process {r['peak_rss_MB']:.0f} MB), "
               f"{r['holes']:,} holes")
+        sp = r["split"]
+        print(f"  split: points and images {sp['prepare']:.1f} s, {r['slabs']} slab triangulations {sp['slabs']:.1f} s "
+              f"(slabs redone: {r['redone']}, paddings: {r['attempts']}), join and holes {sp['holes']:.1f} s; "
+              f"{r['points']:,} points")
 
 
 if __name__ == "__main__":

@@ -16,7 +16,9 @@ Method (documented in docs/sections/sites-and-fit.md):
 4. A hole is kept when it is a maximum of the empty-sphere function: its
    centre lies inside the union of its tetrahedra (centres on the outer
    surface of that union are saddles, e.g. the old octahedral site beside a
-   vacancy).  Every kept hole is checked against all nearby atoms, so the
+   vacancy).  A flat tetrahedron (four atoms on one circle, which Qhull's
+   rounding sometimes leaves between two halves of one cell) is seen
+   through.  Every kept hole is checked against all nearby atoms, so the
    radius reported is always a true free radius at the reported position.
 5. Each hole is classified from the atoms that bound it (those within 10 %
    of a host radius of touching it): 4 -> tetrahedral, 6 -> octahedral,
@@ -38,9 +40,66 @@ construction, and the check of step 4 guarantees every reported radius.
 
 The BCC octahedral site is a saddle of the empty-sphere function, not a
 maximum, so this analysis does not list it; ``interstitial_sites`` does.
+
+Speed and memory (issue 16).  Profile of 1,000,000 atoms (FCC, 1 % vacancies)
+before this round (110 s in that run, 87 s on a quieter machine): the first
+pass of six slab triangulations in two forked workers 37 s (Qhull about
+80 % of it), a complete second pass 51 s (the first guess of the slab
+overlap, 2.25 spacings, was too thin for the neighbours of vacancy holes,
+and every slab was redone), the serial join of the slabs and the hole and
+channel reduction 20 s.  Now (bench/bench_voids.py, quiet machine): 49 s,
+of which points and images 1.3 s, two slab triangulations 38 s, join,
+holes and channels 9 s.  What was done, and why:
+
+* One exact triangulation, cut into as few slabs as the cores can run at
+  once (two; up to 700,000 points a slab).  Each cut adds two overlaps of
+  points that are triangulated twice, so two slabs triangulate fewer points
+  than six (1.19 instead of 1.37 points per atom at a million atoms); 3-D
+  blocks were not chosen: with two cores only two pieces run at a time and
+  any split into more than two pieces, blocks included, duplicates more
+  points than one cut.
+* The first overlap guess covers a kept tetrahedron and its neighbours up
+  to the vacancy hole of a close packing (3.05 spacings); a slab whose
+  measured need still exceeds it is redone alone, the others stand.
+* The periodic padding stays the measured thinnest shell (bound below in
+  ``_find_voids``, checked on every run and tested).
+* The serial part: the channels are worked out in a forked process while
+  this one measures the holes; one representative per hole in linear time;
+  with equal radii the bounding atoms come straight from the sorted
+  neighbour query; a face seen from both sides counts once.
+* Mixed radii: the padding and overlap are measured on the circumspheres
+  (what decides a Delaunay tetrahedron; the tangent sphere of a nearly
+  flat tetrahedron of unequal atoms can be far larger), with a first
+  padding guess that solutes beside vacancies do not overrun (a second
+  padding is a whole second triangulation).  The reduction stays the
+  costlier one (free radius of every tetrahedron, grouping of nearby
+  tangent centres, union test): 1,000,000 atoms of Cu-10 % Ni with 1 %
+  vacancies take about 2.5 min on the shared machine (150 s, 4.6 GB).
+* Not chosen: taking the holes of the perfect regions from the recognised
+  lattice's named sites and triangulating only around non-lattice atoms.
+  That pays only when nearly every atom sits unmoved on the lattice with
+  the host's radius: a dislocation moves every atom (its field falls off as
+  1/r, far above 1e-6 A across the crystal), a boundary has two lattices,
+  and a solid solution changes every hole that a solute of another radius
+  touches (at 10 % solute nearly all of them); there the triangulation
+  remains the cost, and a second path would need its own proof of
+  agreement to 1e-6 A.
+
+Independence from the partition: a tetrahedron belongs to the slab of its
+centre read on a 1e-5 A grid along the slab axis, so all tetrahedra of one
+degenerate hole (same centre but for rounding) go to the same slab even
+when the centre lies exactly on a cut; and flat tetrahedra are seen through
+(the hole count of 300,000 atoms differed by 1-3 between slab counts,
+because Qhull's rounding, which differs with the points it is given, left
+a flat square inside a few octahedra and the hole on it was dropped; at a
+million atoms the old method lost 12 of 2,915,220 holes so).  With mixed
+radii the tangent spheres of one hole differ, and mirror images tie on the
+radius: the tie goes to the smallest position, not to the order of the
+rows (which changed with the slab count and moved such holes by up to 1.5 A).
 """
 from __future__ import annotations
 
+import contextlib
 from dataclasses import dataclass
 
 import numpy as np
@@ -59,11 +118,12 @@ DEFAULT_MAX_HOLE_ATOMS = 300_000
 #: images in the padding, plus the points the slabs share), measured with
 #: bench/bench_voids.py on the 2-core reference machine (FCC with 1 %
 #: vacancies; peak of the whole process tree above the start, workers
-#: included): 100,000 atoms (140,000 points triangulated) ~6.5 s and
-#: ~410 MB; 1,000,000 atoms (1.37 million points) ~90 s and ~2.6 GB.  The
-#: estimates round up.
+#: included): 100,000 atoms (128,000 points) 4.7 s and ~330 MB;
+#: 1,000,000 atoms (1.13 million points, 1.19 million triangulated in two
+#: slabs) 49 s and ~3.4 GB (67-85 s when other jobs hold a core; about 90
+#: CPU seconds over the two cores).  The estimates round up.
 VOID_BYTES_FIXED = 150_000_000
-VOID_BYTES_PER_POINT = 2_000
+VOID_BYTES_PER_POINT = 3_000
 VOID_SECONDS_PER_POINT = 6e-5
 #: The cap in triangulated points: a compact cell of ``max_atoms`` atoms
 #: makes at most about 1.4 points per atom (padding and slab overlaps; 1.27
@@ -78,7 +138,13 @@ CAP_POINTS_FLOOR = 60_000
 # periodic images beyond that, and the overlap of neighbouring slabs.
 _EXT_S = 0.75
 _REACH_S = 0.9
-_MARGIN_S = 2.25
+#: With mixed radii a hole is kept by its tangent centre, and the sphere that
+#: must lie inside the padding is the circumsphere, whose centre can lie up
+#: to about half a lattice parameter further out (a vacancy beside a smaller
+#: solute): a first guess that a crystal with solutes and vacancies does not
+#: have to redo (the redo is a whole second triangulation).
+_REACH_MIXED_S = 1.35
+_MARGIN_S = 3.05
 
 
 def _slab_count(npts, span, margin):
@@ -158,6 +224,24 @@ def check_void_size(crystal, max_atoms=None):
             f"{_duration(e['seconds'])} (over the cap of {cap:,} atoms, {cap * CAP_POINTS_PER_ATOM:,.0f} points "
             f"and {CAP_POINTS_FLOOR:,} more); repeat the cell across its thin directions instead, or raise the cap "
             f"with max_atoms= / --max-atoms {need}")
+
+
+def _check_padding(n, h, pbc, pad, max_atoms=None):
+    """Refuse, before the images are made, a padding that would give more
+    points than the cap allows (a cell that is mostly empty space has holes
+    as large as the cell, and the padding must grow to hold them)."""
+    f = 1.0
+    for k in range(3):
+        if pbc[k]:
+            f *= (h[k] + 2.0 * pad) / h[k]
+    pts = n * f
+    cap = DEFAULT_MAX_HOLE_ATOMS if max_atoms is None else int(max_atoms)
+    if pts > cap * CAP_POINTS_PER_ATOM + CAP_POINTS_FLOOR:
+        raise LimitError(
+            f"the holes of this crystal reach {pad:,.0f} A beyond its cell, so the void analysis would triangulate "
+            f"about {int(pts):,} points (over the {cap * CAP_POINTS_PER_ATOM + CAP_POINTS_FLOOR:,.0f} the cap of "
+            f"{cap:,} atoms allows); the cell is mostly empty space: give a filled cell, or repeat it across its "
+            f"short directions")
 
 
 # ---------------------------------------------------------------------- geometry
@@ -323,7 +407,7 @@ def _check_atoms(crystal, tree, idx, radii):
     rmin = float(radii.min()) if len(radii) else 1.0
     lim = max(0.5, 0.6 * rmin)  # no two metal atom centres come closer than ~0.6 R (common practice)
     n = len(crystal)
-    d, j = tree.query(crystal.positions, k=2, distance_upper_bound=lim)
+    d, j = tree.query(crystal.positions, k=2, distance_upper_bound=lim, workers=_workers(2))
     bad = np.nonzero(np.isfinite(d[:, 1]))[0]
     if len(bad):
         i = int(bad[0])
@@ -351,7 +435,14 @@ def find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None):
         a larger crystal is refused with a :class:`~crystalview.errors.LimitError`
         giving the estimated memory and time, before anything is allocated.
 
-    Returns a :class:`Voids` (list-like of :class:`Void`).
+    Returns a :class:`Voids` (list-like of :class:`Void`).  A job that takes
+    more than a second shows a progress bar on stderr, on a terminal only
+    (:mod:`crystalview.progress`).
+
+    >>> import crystalview as cv
+    >>> v = find_voids(cv.build("Cu", repeat=(2, 2, 2)))
+    >>> {k: r["count"] for k, r in v.summary().items()}
+    {'tetrahedral': 64, 'octahedral': 32}
     """
     return _find_voids(crystal, channels=channels, tolerance=tolerance, max_atoms=max_atoms)
 
@@ -367,7 +458,7 @@ _JITTER_MIN_A = 1e-6
 _JITTER_SEED = 20240616
 #: Points per slab triangulation (crystals of more points are cut into slabs
 #: that are triangulated and reduced one by one, two at a time on two cores).
-_SLAB_POINTS = 250_000
+_SLAB_POINTS = 700_000
 _MIN_SPLIT_POINTS = 60_000
 _CHUNK = 50_000
 _QUERY_CHUNK = 50_000
@@ -400,6 +491,9 @@ def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=
 
     from .neighbours import cell_heights, with_images
 
+    import time
+
+    t_start = time.perf_counter()
     n = len(crystal)
     if n == 0:
         raise UserError("the crystal has no atoms; there are no holes to find")
@@ -440,11 +534,29 @@ def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=
         # BCC tetrahedral 0.70 s, simple cubic and diamond 0.87 s, s the atomic spacing).
         # (1.1 s would spare BCC and HCP with vacancies their second triangulation, but
         # sends the redo of some open structures on another path that does not settle.)
-        reach = ext + _REACH_S * s if pbc.any() else 0.0
+        reach = ext + (_REACH_S if equal else _REACH_MIXED_S) * s if pbc.any() else 0.0
     pad = float(reach)
     margin = _MARGIN_S * s       # overlap of neighbouring slabs, measured and redone the same way
+    with contextlib.ExitStack() as stack:
+        return _triangulate_and_reduce(crystal, n, pad, pad0, pts_t, _idx_t, tree, margin, radii_atoms, cell, inv,
+                                       pbc, h, ext, lo_e, hi_e, equal, slabs, channels, tolerance, info, stack, s, t_start,
+                                       max_atoms)
+
+
+def _triangulate_and_reduce(crystal, n, pad, pad0, pts_t, _idx_t, tree, margin, radii_atoms, cell, inv, pbc, h, ext,
+                            lo_e, hi_e, equal, slabs, channels, tolerance, info, stack, s, t0, max_atoms=None):
+    from scipy.spatial import cKDTree
+
+    from ..progress import bar
+    from .neighbours import with_images
+
+    import time
+
+    t_slabs = 0.0
+    pb = None
     checked = False
     for attempt in range(6):
+        _check_padding(n, h, pbc, max(pad, pad0 if pad > pad0 else 0.0) + 0.5 * s, max_atoms)
         if pad > pad0:
             pad0 = pad + 0.5 * s
             pts_t, _idx_t = with_images(crystal.positions, cell, pbc, pad0)
@@ -472,39 +584,110 @@ def _find_voids(crystal, *, channels=True, tolerance=0.1, max_atoms=None, reach=
         cuts = lo_e[k] + (hi_e[k] - lo_e[k]) * np.arange(nsl + 1) / nsl
         cuts[0], cuts[-1] = -np.inf, np.inf
         geo = dict(pts=pts, pert=pert, fpts=fpts, rad=rad, inv=inv, pbc=pbc, h=h, lo_e=lo_e, hi_e=hi_e, k=k,
-                   margin=margin, equal=equal, channels=channels, cell=cell)
-        from ..progress import bar
-
-        with bar(f"hole analysis of {n:,} atoms: triangulating", nsl + 1) as pb:
-            parts = _run_slabs(geo, cuts, nsl, pb)
+                   equal=equal, channels=channels, cell=cell)
+        if pb is None:
+            pb = stack.enter_context(bar(f"hole analysis of {n:,} atoms: triangulating", nsl + 1))
+        # each slab is checked on its own: one whose overlap was too thin is
+        # redone alone, with its measured overlap (the others stand)
+        margins = [margin] * nsl
+        t1 = time.perf_counter()
+        parts = _run_slabs(geo, [(cuts[j], cuts[j + 1], margins[j]) for j in range(nsl)], pb)
+        redone = 0
+        for _ in range(5):
+            bad = [j for j, p in enumerate(parts)
+                   if nsl > 1 and not p["need_margin"] <= margins[j] * (1 + 1e-12) + 1e-12]
+            if not bad:
+                break
+            for j in bad:
+                margins[j] = float(parts[j]["need_margin"]) * 1.05 + 1e-9
+            redone += len(bad)
+            pb.update(0, description=f"hole analysis of {n:,} atoms: triangulating again {len(bad)} slab(s)")
+            for j, p in zip(bad, _run_slabs(geo, [(cuts[j], cuts[j + 1], margins[j]) for j in bad], None)):
+                parts[j] = p
+        else:
+            raise UserError("the holes are too large for the cell (open space?); void analysis needs a filled cell")
+        t_slabs += time.perf_counter() - t1
         n_own = sum(p["n_own"] for p in parts)
         need_pad = max((p["need_pad"] for p in parts), default=-np.inf)
         need_margin = max((p["need_margin"] for p in parts), default=-np.inf)
         ok_pad = (not pbc.any()) or need_pad <= pad * (1 + 1e-12) + 1e-12
-        ok_margin = nsl == 1 or need_margin <= margin * (1 + 1e-12) + 1e-12
-        if n_own == 0 or (ok_pad and ok_margin):
+        if n_own == 0 or ok_pad:
             break
-        if not ok_pad:
-            pad = float(need_pad) * (1 + 1e-9) + 1e-9
-        if not ok_margin:
-            margin = float(need_margin) * 1.05 + 1e-9
+        pad = float(need_pad) * (1 + 1e-9) + 1e-9
     else:
         raise UserError("the holes are too large for the cell (open space?); void analysis needs a filled cell")
     if info is not None:
-        info.update(pad=pad, margin=margin, attempts=attempt + 1, slabs=nsl, points=len(pts),
-                    need_pad=float(need_pad), need_margin=float(need_margin), ext=ext, axis=k)
+        info.update(pad=pad, margin=max(margins), margins=list(margins), attempts=attempt + 1, slabs_redone=redone,
+                    slabs=nsl, points=len(pts), need_pad=float(need_pad), need_margin=float(need_margin), ext=ext,
+                    axis=k)
     if n_own == 0:
         raise UserError("no enclosed hole found inside the cell; give a filled three-dimensional structure")
-    return _reduce(crystal, parts, pts, idx, rad, tree, _idx_t, radii_atoms, cell, pbc, equal, tolerance, channels, n)
+    pb.update(0, description=f"hole analysis of {n:,} atoms: holes and channels")
+    t2 = time.perf_counter()
+    out = _reduce(crystal, parts, pts, idx, rad, tree, _idx_t, radii_atoms, cell, pbc, equal, tolerance, channels, n)
+    pb.update(nsl + 1 - pb.done)
+    if info is not None:    # wall-clock seconds: points and images, slab triangulations (workers), join and holes
+        info["seconds"] = {"prepare": t2 - t0 - t_slabs, "slabs": t_slabs, "holes": time.perf_counter() - t2}
+    return out
 
 
 #: The slab inputs of the running analysis, inherited by the forked workers
 #: (so the points are shared copy-on-write, not pickled).
 _GEO = None
+#: Holes from which the channels are worked out in a forked process.
+_FORK_CHANNELS = 100_000
+_CALL = None
 
 
-def _slab_job(cut_lo, cut_hi):
-    return _slab(_GEO, cut_lo, cut_hi)
+def _die_with_parent():
+    """In a worker: ask the kernel to end this process when its parent dies
+    (Linux prctl PR_SET_PDEATHSIG), so a killed analysis leaves no worker
+    running on; elsewhere nothing."""
+    try:
+        import ctypes
+        import signal
+
+        libc = ctypes.CDLL(None, use_errno=True)
+        libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)        # 1 = PR_SET_PDEATHSIG
+    except (OSError, AttributeError, ValueError):
+        pass
+
+
+def _call_job():
+    fn, args = _CALL
+    return fn(*args)
+
+
+def _start_fork(fn, *args):
+    """Start ``fn(*args)`` in one forked process (the arguments inherited,
+    not pickled) where two cores and a safe fork allow; returns a function
+    giving its result, or None (then the caller runs ``fn`` itself)."""
+    import multiprocessing
+    import threading
+
+    global _CALL
+    if (_workers(2) < 2 or "fork" not in multiprocessing.get_all_start_methods()
+            or threading.active_count() != 1 or _CALL is not None):
+        return None
+    from concurrent.futures import ProcessPoolExecutor
+
+    _CALL = (fn, args)
+    try:
+        ex = ProcessPoolExecutor(1, mp_context=multiprocessing.get_context("fork"), initializer=_die_with_parent)
+        fut = ex.submit(_call_job)
+    finally:
+        _CALL = None
+
+    def result():
+        try:
+            return fut.result()
+        finally:
+            ex.shutdown()
+    return result
+
+
+def _slab_job(cut_lo, cut_hi, margin):
+    return _slab(_GEO, cut_lo, cut_hi, margin)
 
 
 def _workers(nsl):
@@ -514,7 +697,7 @@ def _workers(nsl):
     return max(1, min(nsl, cores, 2))
 
 
-def _run_slabs(geo, cuts, nsl, pb):
+def _run_slabs(geo, jobs, pb):
     """Triangulate and reduce the slabs.  Qhull holds the GIL, so threads do
     not run two triangulations at once; with two or more slabs and cores the
     slabs go to two forked worker processes (Linux, and only when this process
@@ -524,37 +707,53 @@ def _run_slabs(geo, cuts, nsl, pb):
     import threading
 
     global _GEO
+    nsl = len(jobs)
     workers = _workers(nsl)
     fork = (workers > 1 and "fork" in multiprocessing.get_all_start_methods()
             and threading.active_count() == 1 and _GEO is None)
     if not fork:
         parts = []
-        for j in range(nsl):
-            parts.append(_slab(geo, cuts[j], cuts[j + 1]))
-            pb.update()
+        for job in jobs:
+            parts.append(_slab(geo, *job))
+            if pb is not None:
+                pb.update()
         return parts
     from concurrent.futures import ProcessPoolExecutor
 
     _GEO = geo
     try:
-        with ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("fork")) as ex:
-            futs = [ex.submit(_slab_job, cuts[j], cuts[j + 1]) for j in range(nsl)]
+        with ProcessPoolExecutor(workers, mp_context=multiprocessing.get_context("fork"),
+                                 initializer=_die_with_parent) as ex:
+            futs = [ex.submit(_slab_job, *job) for job in jobs]
             parts = []
             for f in futs:
                 parts.append(f.result())
-                pb.update()
+                if pb is not None:
+                    pb.update()
     finally:
         _GEO = None
     return parts
 
 
-def _slab(geo, cut_lo, cut_hi):
+_OWN_Q = 1e-5
+_OWN_OFF = 3.1e-6
+
+
+def _own_q(f, hk):
+    """Ownership grid along the slab axis: fractional coordinate -> index of
+    its 1e-5 A cell (monotone, so the slabs split the grid without gaps)."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        q = np.floor((np.asarray(f, float) * hk + _OWN_OFF) / _OWN_Q)
+    return np.nan_to_num(q, nan=-np.inf)
+
+
+def _slab(geo, cut_lo, cut_hi, margin):
     """Triangulate one slab and reduce it to the tetrahedra whose centres it
     owns (plus the flat ones that join them), with what the holes and
     channels need; memory is released before returning."""
     from scipy.spatial import Delaunay, QhullError
 
-    pts, fpts, k, margin = geo["pts"], geo["fpts"], geo["k"], geo["margin"]
+    pts, fpts, k = geo["pts"], geo["fpts"], geo["k"]
     h, inv, pbc = geo["h"], geo["inv"], geo["pbc"]
     lo = cut_lo - margin / h[k]
     hi = cut_hi + margin / h[k]
@@ -601,7 +800,12 @@ def _slab(geo, cut_lo, cut_hi):
         fck[a:a + _CHUNK] = f[:, k]
     if T:
         del g, c0, y, rr, kk, cc, f, e
-    own = inE & (fck >= cut_lo) & (fck < cut_hi)
+    # a tetrahedron belongs to the slab of its centre, read on the grid of
+    # _OWN_Q A along the slab axis: the tetrahedra of one degenerate hole
+    # (same centre but for rounding) then all go to the same slab, even when
+    # that centre lies exactly on a cut
+    qk = _own_q(fck, h[k])
+    own = inE & (qk >= _own_q(cut_lo, h[k])) & (qk < _own_q(cut_hi, h[k]))
     own_idx = np.nonzero(own)[0]
     rho = r + rad[G[:, 0]]
     # flat (zero-volume) tetrahedra beside two or more kept ones; a slab
@@ -611,9 +815,11 @@ def _slab(geo, cut_lo, cut_hi):
         nbf = NB[flat_idx]
         e4 = (nbf >= 0) & inE[np.maximum(nbf, 0)]
         use = e4.sum(1) >= 2
-        first = np.argmax(e4, axis=1)
-        firstnb = nbf[np.arange(len(nbf)), first]
-        flat_idx = flat_idx[use & own[np.maximum(firstnb, 0)]]
+        # every slab that owns one of its kept neighbours takes it (so that
+        # the maximum test can look through it; duplicates only repeat a
+        # passage in the channels)
+        mine = np.any(e4 & own[np.maximum(nbf, 0)], axis=1)
+        flat_idx = flat_idx[use & mine]
     if len(flat_idx):
         # only four atoms on one circle make a true flat tetrahedron (a
         # square or rectangular window); four coplanar atoms that are not
@@ -641,21 +847,42 @@ def _slab(geo, cut_lo, cut_hi):
     # tetrahedra of this slab that others may point to
     touch = valid & (~inE[nbs] | ~own[nbs] | ~ok[nbs])
     exp_rows = np.nonzero(touch[:n_own].any(1))[0]
-    # padding and overlap actually needed (see the bound in _find_voids)
-    depth = np.full(n_own, np.inf)
+    # padding and overlap actually needed (see the bound in _find_voids).
+    # What makes a tetrahedron a true Delaunay one is its circumsphere (the
+    # sphere through its four atom centres) holding no other atom; with equal
+    # radii that is the tangent sphere grown by the radius, with mixed radii
+    # it is worked out apart (the tangent sphere of a nearly flat tetrahedron
+    # of unequal atoms can be far larger, and would ask for padding for nothing)
     fo = _frac(centre[own_idx], inv)
+    if geo["equal"]:
+        rho_c, fck_c, fo_c = rho, fck, fo
+    else:
+        rho_c = np.empty(T)
+        cc_own = np.empty((T, 3))
+        for a in range(0, T, _CHUNK):
+            g = G[a:a + _CHUNK]
+            c0 = pts[g[:, 0]]
+            z = np.zeros(len(g))
+            y, rr, _ = tangent_spheres(c0, pts[g[:, 1]] - c0, pts[g[:, 2]] - c0, pts[g[:, 3]] - c0, z, z, z, z,
+                                       weighted=False)
+            rho_c[a:a + _CHUNK] = rr
+            cc_own[a:a + _CHUNK] = c0 + y
+        fck_c = _frac(cc_own, inv)[:, k] if T else np.zeros(0)
+        fo_c = _frac(cc_own[own_idx], inv)
+        del cc_own
+    depth = np.full(n_own, np.inf)
     for ax in range(3):
         if pbc[ax]:
-            depth = np.minimum(depth, h[ax] * np.minimum(fo[:, ax], 1 - fo[:, ax]))
-    need_pad = float(np.max(rho[own_idx] - depth)) if n_own else -np.inf
+            depth = np.minimum(depth, h[ax] * np.minimum(fo_c[:, ax], 1 - fo_c[:, ax]))
+    need_pad = float(np.max(rho_c[own_idx] - depth)) if n_own else -np.inf
     # overlap: how far the sphere of every tetrahedron used (kept, or beside a
     # kept one) reaches beyond the slab
-    ex = np.maximum(np.where(np.isfinite(cut_hi), (fck - cut_hi) * h[k] + rho, -np.inf),
-                    np.where(np.isfinite(cut_lo), (cut_lo - fck) * h[k] + rho, -np.inf))
+    ex = np.maximum(np.where(np.isfinite(cut_hi), (fck_c - cut_hi) * h[k] + rho_c, -np.inf),
+                    np.where(np.isfinite(cut_lo), (cut_lo - fck_c) * h[k] + rho_c, -np.inf))
     used_nb = nbl[valid & inE[nbs]]
     need_margin = max(float(ex[own_idx].max()) if n_own else -np.inf,
                       float(ex[used_nb].max()) if len(used_nb) else -np.inf)
-    del ex, used_nb, fck
+    del ex, used_nb, fck, fck_c, rho_c, fo_c
     # where the hole of each kept tetrahedron lies in the cell (canonical copy, wrapped centre)
     idt = _index_type(len(pts))
     snapped = np.where(np.abs(fo - np.round(fo)) < 1e-9, np.round(fo), fo)
@@ -822,15 +1049,21 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
         del qs
     gid_kept = np.empty(K, np.int64)
     gid_kept[o] = np.cumsum(new) - 1
-    del q, o, new
+    del q
     rk = r
     kq = 16 if tree.n >= 16 else tree.n
     if not equal:
         from scipy.sparse import coo_matrix
         from scipy.sparse.csgraph import connected_components
 
-        dq, jq = tree.query(wc, k=kq)
-        rk = np.minimum(rk, (dq - radii_atoms[idx_t[jq]]).min(axis=1))
+        rk = np.array(r)
+        for a0 in range(0, K, 4 * _QUERY_CHUNK):       # in chunks: (K, kq) arrays are large
+            sl = slice(a0, a0 + 4 * _QUERY_CHUNK)
+            # only atoms nearer than r + their radius can lower r: the query stops there
+            reach_r = (float(np.max(r[sl])) + float(radii_atoms.max())) * (1 + 1e-9) + 1e-6
+            dq, jq = tree.query(wc[sl], k=kq, distance_upper_bound=reach_r, workers=_workers(2))
+            rk[sl] = np.minimum(r[sl], (dq - radii_atoms[idx_t[np.minimum(jq, len(idx_t) - 1)]]).min(axis=1))
+            del dq, jq
         lengths = np.linalg.norm(cell, axis=1)
         span = np.where(pbc, lengths, 1e9)
         xs = np.where(pbc, wrapped, wrapped - np.floor(wrapped.min(axis=0))) * lengths
@@ -848,12 +1081,22 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     group = np.full(NR + 1, -1, _index_type(max(ng, NR) + 1))   # the last entry stands for "no neighbour"
     group[:K] = gid_kept
 
-    # one representative per group: the largest radius, canonical copy first
-    order = np.lexsort((~canon, -np.round(rk, 9), gid_kept))
-    first = np.ones(len(order), bool)
-    first[1:] = gid_kept[order][1:] != gid_kept[order][:-1]
-    rep = order[first]
-    del order, first
+    # one representative per group: the largest radius, canonical copy first,
+    # then the first tetrahedron
+    if equal:
+        rep = _representatives(o, new, np.round(rk, 9), canon)
+    else:
+        # with mixed radii the tangent spheres of one group differ (a cell of
+        # five or more atoms on one sphere, cut into tetrahedra), and mirror
+        # images of one another tie on the radius: the tie goes to the
+        # smallest wrapped position, computed to the same bits in every slab,
+        # so that the hole reported does not depend on the slab count
+        order = np.lexsort((wc[:, 2], wc[:, 1], wc[:, 0], ~canon, -np.round(rk, 9), gid_kept))
+        first = np.ones(len(order), bool)
+        first[1:] = gid_kept[order][1:] != gid_kept[order][:-1]
+        rep = order[first]
+        del order, first
+    del o, new
     g_pos = wc[rep]
     g_r = rk[rep]
 
@@ -861,6 +1104,20 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     nbk = nb[:K]
     nbg = group[np.where(nbk >= 0, nbk, NR)]
     internal = nbg == gid_kept[:, None]
+    if NR > K:
+        # a flat tetrahedron (four atoms on one circle, e.g. the square of an
+        # octahedron that Qhull's rounding left between two square pyramids)
+        # is seen through: the face is internal when the hole's group goes on
+        # beyond it.  Each side of a flat quadrilateral has two of its faces,
+        # so two or more of its other neighbours in the group means the far side.
+        tt, ii = np.nonzero(nbk >= K)
+        if len(tt):
+            fn = nb[nbk[tt, ii]]
+            fg = group[np.where(fn >= 0, fn, NR)]
+            same = (fg == gid_kept[tt][:, None]) & (fn != tt[:, None])
+            internal[tt, ii] = same.sum(axis=1) >= 2
+            del fn, fg, same
+        del tt, ii
     if equal:
         inside = np.concatenate([p.pop("inside") for p in parts])
         on_face = np.concatenate([p.pop("on_face") for p in parts])
@@ -884,13 +1141,18 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     is_max = np.zeros(ng, bool)
     if good.any():
         is_max[gid_kept[good]] = True
-    del good, V, wc, r, rk, rep, canon       # what the channels need is nb, group and the parts
+    del good, V, wc, r, rk, rep       # what the channels need is nb, group, canon and the parts
     if not equal:
         del centre, wrapped
 
     # check against nearby atoms (true free radius) and find the bounding atoms
     maxg = np.nonzero(is_max)[0]
     M = len(maxg)
+    # the channels need only the groups: on two cores they are worked out in
+    # a forked process while this one measures the holes
+    ch_job = None
+    if channels and M >= _FORK_CHANNELS:
+        ch_job = _start_fork(_channels_compact, parts, offs_flat, K, NR, nb, group, gid_kept, is_max, canon)
     rmean_all = float(radii_atoms.mean())
     g_r_max = np.empty(M)
     ncont = np.empty(M, np.int64)
@@ -900,28 +1162,46 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     # distance where no atom can bound its largest hole any more
     by_size = np.argsort(g_r[maxg], kind="stable")
     rmax_all = float(radii_atoms.max())
+    nw = _workers(2)            # the queries run on two threads (cKDTree releases the GIL)
     for a0 in range(0, M, _QUERY_CHUNK):
         sl = by_size[a0:a0 + _QUERY_CHUNK]
         gq = g_r[maxg[sl]]
         reach_q = (float(gq.max()) + tolerance * rmean_all + rmax_all) * (1 + 1e-9) + 1e-6
-        d, j = tree.query(g_pos[maxg[sl]], k=kq, distance_upper_bound=reach_q)
+        d, j = tree.query(g_pos[maxg[sl]], k=kq, distance_upper_bound=reach_q, workers=nw)
         lost = ~np.isfinite(d[:, 0])
         if lost.any():          # cannot happen (the hole touches its own atoms); kept safe
-            d[lost], j[lost] = tree.query(g_pos[maxg[sl[lost]]], k=kq)
-        aj = idx_t[np.minimum(j, len(idx_t) - 1)]
-        del j
-        ra = radii_atoms[aj]
-        slack = d - ra
-        del d
-        gm = np.minimum(gq, slack.min(axis=1))
-        bound = slack <= (gm[:, None] + tolerance * rmean_all)
-        del slack
-        nc = bound.sum(1)
-        rbar[sl] = np.where(bound, ra, 0.0).sum(1) / np.maximum(nc, 1)
-        srt = np.argsort(~bound, axis=1, kind="stable")
-        nbr_all[sl] = np.take_along_axis(np.where(bound, aj, -1), srt, axis=1)
+            d[lost], j[lost] = tree.query(g_pos[maxg[sl[lost]]], k=kq, workers=nw)
+        if equal:
+            # one radius, and the distances come sorted: the bounding atoms
+            # are the first nc of each row
+            r0 = float(radii_atoms[0])
+            slack = d - r0
+            del d
+            gm = np.minimum(gq, slack[:, 0])
+            bound = slack <= (gm[:, None] + tolerance * rmean_all)
+            del slack
+            nc = bound.sum(1)
+            rbar[sl] = np.where(nc > 0, r0, 0.0)
+            w = max(int(nc.max()), 1)
+            nbr_all[sl, w:] = -1
+            nbr_all[sl, :w] = np.where(bound[:, :w], idx_t[np.minimum(j[:, :w], len(idx_t) - 1)], -1)
+            del j
+        else:
+            aj = idx_t[np.minimum(j, len(idx_t) - 1)]
+            del j
+            ra = radii_atoms[aj]
+            slack = d - ra
+            del d
+            gm = np.minimum(gq, slack.min(axis=1))
+            bound = slack <= (gm[:, None] + tolerance * rmean_all)
+            del slack
+            nc = bound.sum(1)
+            rbar[sl] = np.where(bound, ra, 0.0).sum(1) / np.maximum(nc, 1)
+            srt = np.argsort(~bound, axis=1, kind="stable")
+            nbr_all[sl] = np.take_along_axis(np.where(bound, aj, -1), srt, axis=1)
+            del srt, aj, ra
         g_r_max[sl], ncont[sl] = gm, nc
-        del aj, ra, bound, srt
+        del bound
     ratio = np.where(rbar > 0, g_r_max / np.where(rbar > 0, rbar, 1.0), np.nan)
     kinds = np.full(M, "other", dtype="<U11")
     kinds[ncont == 4] = "tetrahedral"
@@ -934,7 +1214,8 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     ch = np.zeros((0, 2), np.int64)
     bn = np.zeros(0)
     if channels and len(maxg) > 1:
-        ch, bn = _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max)
+        ch, bn = ch_job() if ch_job is not None else _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max,
+                                                               canon)
         newid = np.full(ng, -1, np.int64)
         newid[maxg] = np.arange(len(maxg))
         ch = newid[ch]
@@ -944,7 +1225,36 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     return Voids(g_pos[maxg], g_r_max, kinds, nbr_atoms, ratio, ch, bn, method, n)
 
 
-def _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max):
+def _representatives(o, new, rr, canon):
+    """Per group (the runs of ``o`` that ``new`` starts, each run in
+    ascending index order): the index of the largest ``rr``, a canonical one
+    first among equals, then the smallest index; in linear time (the same as
+    a lexsort on (group, -rr, not canonical))."""
+    K = len(o)
+    if K == 0:
+        return np.zeros(0, np.int64)
+    starts = np.flatnonzero(new)
+    lens = np.diff(np.append(starts, K))
+    r_o = rr[o]
+    m = r_o == np.repeat(np.maximum.reduceat(r_o, starts), lens)
+    del r_o
+    c_o = np.where(m, canon[o], False)
+    has_c = np.repeat(np.logical_or.reduceat(c_o, starts), lens)
+    m &= c_o | ~has_c
+    del c_o, has_c
+    run = np.repeat(np.arange(len(starts)), lens)
+    hit = np.flatnonzero(m)
+    firsts = hit[np.flatnonzero(np.r_[True, run[hit][1:] != run[hit][:-1]])]
+    return o[firsts]
+
+
+def _channels_compact(*args):
+    """_channels, the pairs as int32 where they fit (half the bytes to send back)."""
+    P, W = _channels(*args)
+    return P.astype(_index_type(len(args[7]) + 1)), W
+
+
+def _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max, canon):
     """(pairs (M,2) of group ids, bottleneck radius (M,)) between maximum holes."""
     ng = len(is_max)
     key_parts, width_parts = [], []
@@ -975,7 +1285,10 @@ def _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max):
         g1 = gid_kept[t]
         u = nbk[t, i]
         g2 = group[np.where(u >= 0, u, NR)]
-        m = (g2 >= 0) & (g2 != g1)
+        # a face between two canonical kept tetrahedra is measured from both
+        # sides: counted once, from the higher row
+        twice = (u >= 0) & (u < t) & canon[np.clip(u, 0, K - 1)] & (u < K)
+        m = (g2 >= 0) & (g2 != g1) & ~twice
         if m.any():
             add(g1[m], g2[m], w[t[m]])
         del t, g1, u, g2, m
