@@ -61,11 +61,13 @@ class _Bar:
                 return
             from rich.progress import BarColumn, Progress, TextColumn, TimeElapsedColumn
 
+            # no refresh thread: redrawn on each update, so a job may still fork safely while its bar shows
             self.prog = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.percentage:>3.0f}%"),
-                                 TimeElapsedColumn(), transient=True, console=_console())
+                                 TimeElapsedColumn(), transient=True, console=_console(), auto_refresh=False)
             self.task = self.prog.add_task(self.description, total=self.total, completed=self.done)
             self.prog.start()
         self.prog.update(self.task, completed=self.done, description=self.description)
+        self.prog.refresh()
 
     def close(self):
         if self.prog is not None:
