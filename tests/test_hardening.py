@@ -235,3 +235,23 @@ def test_tolerance_and_thickness_bounded(cli):
         assert rc == 2 and "alloy tolerance" in err and err.count("\n") == 1, tol
     rc, out, err = cli("build", "Cu", "--slab", "(111)", "--slab-thickness", "1e300")
     assert rc == 2 and "0 to 10000 A" in err and len(err) < 200
+
+
+def test_sigterm_leaves_no_temporary_file(tmp_path):
+    """SIGTERM during a large export: exit 143 and no temporary file left (the review found a 117 MB
+    '.a.xyz.<pid>.tmp' after SIGTERM; Ctrl-C already cleaned up)."""
+    import signal
+    import subprocess
+    import sys
+    import time
+
+    p = subprocess.Popen([sys.executable, "-m", "crystalview", "export", "Cu", "--repeat", "100", "100", "100",
+                          "-o", str(tmp_path / "a.xyz"), "--quiet"], stderr=subprocess.PIPE, text=True)
+    deadline = time.time() + 60
+    while time.time() < deadline and not any(tmp_path.iterdir()):
+        time.sleep(0.05)                       # until the writer has started its temporary file
+    p.send_signal(signal.SIGTERM)
+    err = p.communicate(timeout=60)[1]
+    assert p.returncode in (143, 0), err
+    if p.returncode == 143:
+        assert list(tmp_path.iterdir()) == [] and "terminated" in err

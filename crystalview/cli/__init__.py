@@ -85,6 +85,7 @@ def main(argv=None):
         if wants_json:                # a caller parsing stdout gets the error as JSON too
             _json_error(msg)
         return 2
+    previous = _on_sigterm()
     try:
         parser = make_parser()
         try:
@@ -103,6 +104,9 @@ def main(argv=None):
     except KeyboardInterrupt:
         sys.stderr.write("crystalview: interrupted\n")
         return 130
+    except Terminated:
+        sys.stderr.write("crystalview: terminated; nothing half-written was left\n")
+        return 143
     except BrokenPipeError:
         return 0
     except MemoryError:
@@ -127,6 +131,41 @@ def main(argv=None):
         if debug:
             raise
         return _internal(exc)
+    finally:
+        _restore_sigterm(previous)
+
+
+class Terminated(BaseException):
+    """SIGTERM, raised in the main thread so every write in progress removes
+    its temporary file on the way out (as Ctrl-C does)."""
+
+
+def _on_sigterm():
+    """Turn SIGTERM into :class:`Terminated` while a command runs; returns the
+    handler it replaced (None where signals cannot be set: not the main thread).
+
+    >>> import signal
+    >>> old = _on_sigterm(); signal.getsignal(signal.SIGTERM).__name__
+    '_raise_terminated'
+    >>> _restore_sigterm(old)
+    """
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return None
+    return signal.signal(signal.SIGTERM, _raise_terminated)
+
+
+def _raise_terminated(signum, frame):
+    raise Terminated()
+
+
+def _restore_sigterm(previous):
+    if previous is not None:
+        import signal
+
+        signal.signal(signal.SIGTERM, previous)
 
 
 def _internal(exc):
