@@ -15,6 +15,7 @@ import time
 from pathlib import Path
 
 from .errors import UserError
+from .render.style import MAX_DPI, MAX_SIDE, MIN_DPI, MIN_SIDE
 
 try:
     import tomllib
@@ -93,8 +94,9 @@ SCHEMA = {
             "type": "object", "additionalProperties": False, "required": ["file"],
             "properties": {"file": FILE, "view": INDEX, "up": INDEX,
                            "style": {"enum": ["ball-and-stick", "space-filling", "lattice", "cell-cut"]},
-                           "size": {"type": "array", "items": {"type": "integer", "minimum": 16, "maximum": 8000}, "minItems": 2, "maxItems": 2},
-                           "dpi": {"type": "integer", "minimum": 50, "maximum": 1200},
+                           "size": {"type": "array", "items": {"type": "integer", "minimum": MIN_SIDE, "maximum": MAX_SIDE},
+                                    "minItems": 2, "maxItems": 2},
+                           "dpi": {"type": "integer", "minimum": MIN_DPI, "maximum": MAX_DPI},
                            "transparent": {"type": "boolean"}, "caption": {"type": ["boolean", "string"]},
                            "sites": {"type": "boolean"}, "polyhedra": {"enum": ["coordination", "sites", "both"]},
                            "layers": {"type": ["boolean", "string"]}, "cell": {"type": "boolean"},
@@ -381,16 +383,20 @@ def _write_json(path, obj, force):
 
 def _inside(out, name, section):
     """``out / name`` for a scene's output name, refused in one line unless it
-    stays inside the output folder (a plain name or a sub-folder path)."""
+    is a file name that stays inside the output folder (a plain name or a
+    sub-folder path)."""
     import os
 
     text = str(name)
-    if not text.strip() or any(ord(ch) < 32 for ch in text):
+    if not text.strip() or any(not ch.isprintable() for ch in text):
         raise UserError(f"[{section}] file {text!r} is not a file name; give a plain name such as cu.png")
     pp = Path(text)
     if pp.is_absolute() or (os.sep != "/" and ":" in text) or ".." in pp.parts or text.startswith("~"):
         raise UserError(f"[{section}] file '{text}' would be written outside the scene's output folder; give a plain "
                         f"name or a sub-folder inside it, e.g. figures/cu.png")
+    if not pp.parts or pp.name in (".", "..") or text.rstrip().endswith(("/", "/.")):
+        raise UserError(f"[{section}] file '{text}' is not a file name (it names a folder); give a plain name "
+                        f"such as cu.png or figures/cu.png")
     if any(len(part) > 200 for part in pp.parts):
         raise UserError(f"[{section}] file name '{text[:40]}...' is over 200 characters; give a shorter name")
     return out / pp
@@ -399,7 +405,8 @@ def _inside(out, name, section):
 def plan_outputs(data, out_dir):
     """The files a scene will write (checked before any work starts): every
     name inside the output folder, none twice (case-insensitive, the print
-    reports written beside models included).
+    reports written beside models included), and no name used both as a
+    file and as a folder.
 
     >>> data = {"scene": {"name": "cu"}, "structure": {"element": "Cu"},
     ...         "analysis": {"fit": ["C"]}}
@@ -424,12 +431,218 @@ def plan_outputs(data, out_dir):
             if sec == "models":
                 files.append(f.with_name(f.stem + ".report.txt"))
     files.append(out / "manifest.json")
-    names = [str(f.relative_to(out)).lower() for f in files]
-    dup = sorted({n for n in names if names.count(n) > 1})
+    names = [f.relative_to(out).as_posix().lower() for f in files]
+    from collections import Counter
+
+    dup = sorted(n for n, k in Counter(names).items() if k > 1)
     if dup:
         raise UserError(f"the scene writes {', '.join(dup)} more than once (names compared without case; a model "
                         f"writes MODEL.report.txt beside it); give each output its own file name")
+    taken = set(names)
+    for f, n in zip(files, names):
+        parts = n.split("/")
+        for k in range(1, len(parts)):
+            head = "/".join(parts[:k])
+            if head in taken:
+                raise UserError(f"the scene writes a file '{head}' and also uses it as a folder for "
+                                f"'{f.relative_to(out).as_posix()}'; give them different names")
     return files
+
+
+def _check_figures(data):
+    """Every figure's size, width, height and dpi checked against the limits of
+    ``crystalview render`` before any work starts (one line naming the figure)."""
+    from .render import style as S
+    from .render.layout import figure_size
+
+    for i, fig in enumerate(data.get("figures", []), 1):
+        if not any(k in fig for k in ("size", "width", "height", "dpi")):
+            continue
+        try:
+            dpi = S.check_dpi(fig.get("dpi", 300))
+            figure_size(tuple(fig["size"]) if "size" in fig else None, fig.get("width"), fig.get("height"), dpi)
+        except UserError as exc:
+            raise UserError(f"[figures[{i}]] ({fig['file']}): {exc}") from None
+
+
+def _link_on_the_way(out, final):
+    """The first symbolic link between ``out`` and ``final`` (or None)."""
+    import os
+
+    cur = Path(out)
+    for part in Path(final).relative_to(out).parts:
+        cur = cur / part
+        if os.path.islink(cur):
+            return cur
+        if not os.path.lexists(cur):
+            return None
+    return None
+
+
+def _place_problem(final, out_dir):
+    """Why the output file ``final`` cannot be put into ``out_dir`` as things
+    are now (a file where a folder goes, a folder where the file goes, a link
+    leading outside the output folder), or None.  An existing plain file is
+    not a problem here (--force decides)."""
+    import os
+
+    out, final = Path(out_dir), Path(final)
+    cur = out
+    for part in final.relative_to(out).parts[:-1]:
+        cur = cur / part
+        if not os.path.lexists(cur):
+            break
+        if not os.path.isdir(cur):
+            return (f"'{cur}' is a file where the scene needs a folder (for '{final}'); move it away or choose "
+                    f"another --out")
+    real_out = os.path.realpath(out)
+    real = os.path.join(os.path.realpath(final.parent), final.name)
+    if os.path.commonpath([real_out, real]) != real_out:
+        link = _link_on_the_way(out, final.parent)
+        return (f"'{final}' would be written to '{real}', outside the output folder '{out}'"
+                + (f" ('{link}' is a link to '{os.path.realpath(link)}')" if link else "")
+                + "; remove the link or choose another --out")
+    if os.path.isdir(final):
+        return (f"'{final}' is a folder where the scene writes a file; move it away or choose another --out "
+                f"(--force replaces files, never folders)")
+    return None
+
+
+def _check_places(files, out_dir, force=False):
+    """Refuse, in one line and before anything is written, a run whose files
+    cannot all be put in place: see :func:`_place_problem`; two names that are
+    one file through a link; without ``force``, files that exist."""
+    import os
+
+    problems = [m for f in files if (m := _place_problem(f, out_dir))]
+    if problems:
+        more = f" (and {len(problems) - 1} more)" if len(problems) > 1 else ""
+        raise UserError(problems[0] + more)
+    seen = {}
+    for f in files:
+        key = os.path.join(os.path.realpath(Path(f).parent), Path(f).name).lower()
+        if key in seen:
+            raise UserError(f"'{seen[key]}' and '{f}' are one file (through a link inside the output folder); "
+                            f"give each output its own name")
+        seen[key] = f
+    if not force:
+        existing = [str(f) for f in files if os.path.lexists(f)]
+        if existing:
+            raise UserError(f"{existing[0]} already exists (and {len(existing) - 1} more); "
+                            f"pass --force to overwrite or --out to write elsewhere")
+
+
+#: Free space left on the output folder's disk beyond a scene's estimated output (at most a tenth of the
+#: free space on a nearly full disk).
+SPACE_MARGIN = 64 * 2**20
+#: Bytes per atom of the text formats that list every atom (measured on Cu: XYZ 56, CIF 45).
+BYTES_PER_ATOM_OUT = {".xyz": 56, ".cif": 48}
+#: Allowance for every other output: JSON reports and the manifest are small; figures, models and
+#: web files are capped by their own limits.
+SMALL_FILE = 64 * 1024
+
+
+def output_bytes(data, files, atoms):
+    """Estimated bytes a scene writes for a crystal of ``atoms`` atoms.
+
+    >>> data = {"exports": [{"file": "a.xyz"}, {"file": "b.cif"}, {"file": "c.glb"}]}
+    >>> output_bytes(data, ["a.xyz", "b.cif", "c.glb", "manifest.json"], 1000) == 104 * 1000 + 4 * SMALL_FILE
+    True
+    """
+    per = sum(BYTES_PER_ATOM_OUT.get(Path(e["file"]).suffix.lower(), 0) for e in data.get("exports", []))
+    return per * int(atoms) + SMALL_FILE * len(files)
+
+
+def _free_bytes(path):
+    """Free bytes on the disk holding ``path`` (or its nearest existing folder); None if unknown."""
+    import os
+    import shutil
+
+    p = Path(os.path.abspath(path))
+    while not p.exists() and p != p.parent:
+        p = p.parent
+    try:
+        return shutil.disk_usage(p).free
+    except OSError:
+        return None
+
+
+def _size(n):
+    for unit, k in (("GB", 10**9), ("MB", 10**6), ("kB", 10**3)):
+        if n >= k:
+            return f"{n / k:,.1f} {unit}"
+    return f"{n} bytes"
+
+
+def _check_space(data, files, out_dir, atoms):
+    """Refuse a run whose estimated output does not fit on the output folder's disk."""
+    need = output_bytes(data, files, atoms)
+    free = _free_bytes(out_dir)
+    if free is None:
+        return
+    margin = min(SPACE_MARGIN, free // 10)
+    if need > free - margin:
+        raise UserError(f"the scene would write about {_size(need)} ({len(files)} files, crystal of {atoms:,} atoms) "
+                        f"but the disk of '{out_dir}' has {_size(free)} free (keeping {_size(margin)} spare); "
+                        f"write fewer or smaller files, or choose another --out")
+
+
+def _atoms_before_build(data, base_dir):
+    """The scene's atom count, known without building the supercell (from its
+    conventional cell), where the structure and defects allow; else None.
+    Defects that add atoms make this a lower bound."""
+    s = data["structure"]
+    if any(k in s for k in ("cif", "alloy", "orient")):
+        return None
+    if any(d["kind"] not in ("substitute", "interstitials", "frenkel") for d in data.get("defects", [])):
+        return None
+    cell = {k: v for k, v in s.items() if k not in ("repeat", "supercell", "max_atoms")}
+    n = len(crystal_from_scene({"scene": data["scene"], "structure": cell}, base_dir))
+    for r in s.get("repeat", (1, 1, 1)):
+        n *= int(r)
+    if "supercell" in s:
+        m = [[int(x) for x in row] for row in s["supercell"]]
+        n *= abs(m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
+                 + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0]))
+    return n
+
+
+def missing_folders(path):
+    """The folders, deepest first, that creating the folder ``path`` makes.
+
+    >>> import os, tempfile
+    >>> d = tempfile.mkdtemp()
+    >>> [os.path.relpath(p, d) for p in missing_folders(os.path.join(d, "a", "b"))]
+    ['a/b', 'a']
+    """
+    import os
+
+    out = []
+    p = Path(os.path.abspath(path))
+    while not os.path.lexists(p) and p != p.parent:
+        out.append(p)
+        p = p.parent
+    return out
+
+
+def remove_folders(folders):
+    """Remove folders a failed run created (deepest first), each only while empty.
+
+    >>> import os, tempfile
+    >>> d = tempfile.mkdtemp()
+    >>> made = missing_folders(os.path.join(d, "a", "b"))
+    >>> make_folder(os.path.join(d, "a", "b"))
+    >>> remove_folders(made)
+    >>> os.listdir(d)
+    []
+    """
+    import os
+
+    for d in folders:
+        try:
+            os.rmdir(d)
+        except OSError:
+            break
 
 
 def make_folder(path):
@@ -460,17 +673,72 @@ def existing_outputs(paths, out=None):
     >>> existing_outputs([p], out=d)
     []
     """
+    import os
+
     found = []
     for path in paths:
         data = load(path)
         name = data["scene"]["name"]
         out_dir = (Path(out) / name if len(paths) > 1 else Path(out)) if out is not None else Path("exports") / name
-        found += [str(f) for f in plan_outputs(data, out_dir) if f.exists()]
+        found += [str(f) for f in plan_outputs(data, out_dir) if os.path.lexists(f)]
     return found
+
+
+class Terminated(SystemExit):
+    """A run stopped by SIGTERM: raised by the command line's signal handler
+    (and again at the next step, should the first be lost inside a library),
+    so that the same cleanup runs as for Ctrl-C.
+
+    >>> issubclass(Terminated, SystemExit), Terminated(143).code
+    (True, 143)
+    """
+
+
+#: Signals received by the command line's SIGTERM handler; checked between the steps of a run.
+_STOP = []
+
+
+def request_stop(signum):
+    """Record a termination request (from a signal handler); the run stops at its next step.
+
+    >>> request_stop(15)
+    >>> try:
+    ...     check_stop()
+    ... except Terminated as e:
+    ...     print(e.code)
+    ...
+    143
+    >>> _STOP.clear()
+    """
+    _STOP.append(signum)
+
+
+def check_stop():
+    """Raise :class:`Terminated` if a termination was requested (see :func:`request_stop`).
+
+    >>> check_stop()        # nothing requested: nothing happens
+    """
+    if _STOP:
+        raise Terminated(128 + _STOP[0])
+
+
+def _final_names(text, stage, out_dir):
+    """An error message with the staging folder's paths shown as the outputs' final paths."""
+    import os
+
+    for s, o in ((str(stage) + os.sep, str(out_dir) + os.sep), (str(stage), str(out_dir))):
+        text = text.replace(s, o)
+    return text
 
 
 def run_scene(path, out=None, force=False, log=print):
     """Do everything a scene file asks; returns the manifest dict.
+
+    Everything is checked before the first file is written (names, places,
+    figure sizes, the disk space the output needs); the files are written into
+    a staging folder inside the output folder and moved into place only when
+    the whole scene has succeeded, so a failing scene changes nothing: earlier
+    results stay as they were, and a folder the run created is removed.
 
     >>> import os, tempfile
     >>> d = tempfile.mkdtemp()
@@ -480,31 +748,49 @@ def run_scene(path, out=None, force=False, log=print):
     >>> sorted(os.listdir(os.path.join(d, "out")))
     ['info.json', 'manifest.json']
     """
+    import shutil
+    import tempfile
+
     t0 = time.perf_counter()
     path = Path(path)
     data = load(path)
     name = data["scene"]["name"]
     out_dir = Path(out) if out is not None else Path("exports") / name
     files = plan_outputs(data, out_dir)
-    if not force:
-        existing = [str(f) for f in files if f.exists()]
-        if existing:
-            raise UserError(f"{path}: {existing[0]} already exists (and {len(existing) - 1} more); "
-                            f"pass --force to overwrite or --out to write elsewhere")
-    crystal = crystal_from_scene(data, path.parent)     # bad structure or defects: fail before writing
-    make_folder(out_dir)
-    # everything is written into a staging folder inside the output folder and moved into place only when the
-    # whole scene has succeeded: a scene that fails half way leaves nothing behind, so the rerun works
-    import shutil
-    import tempfile
-
-    stage = Path(tempfile.mkdtemp(prefix=".cv-stage-", dir=out_dir))
     try:
-        manifest = _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0)
-    except BaseException:
+        _check_figures(data)
+        _check_places(files, out_dir, force)
+    except UserError as exc:
+        raise UserError(f"{path}: {exc}") from None
+    created = missing_folders(out_dir)
+    make_folder(out_dir)
+    try:
+        stage = Path(tempfile.mkdtemp(prefix=".cv-stage-", dir=out_dir))
+    except OSError as exc:
+        remove_folders(created)
+        raise UserError(f"the output folder '{out_dir}' cannot hold files ({exc.strerror or exc}); choose another "
+                        f"folder with --out") from None
+    ok = False
+    try:
+        try:
+            if any(Path(e["file"]).suffix.lower() in BYTES_PER_ATOM_OUT for e in data.get("exports", [])):
+                n = _atoms_before_build(data, path.parent)      # a huge output refused before building it
+                if n is not None:
+                    _check_space(data, files, out_dir, n)
+            crystal = crystal_from_scene(data, path.parent)     # bad structure or defects: fail before writing
+            check_stop()
+            _check_space(data, files, out_dir, len(crystal))
+            manifest = _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0)
+        except UserError as exc:
+            text = _final_names(str(exc), stage, out_dir)     # the outputs' final paths, not the staging folder's
+            if text != str(exc):
+                exc.args = (text,) + exc.args[1:]
+            raise
+        ok = True
+    finally:
         shutil.rmtree(stage, ignore_errors=True)
-        raise
-    shutil.rmtree(stage, ignore_errors=True)
+        if not ok:
+            remove_folders(created)
     return manifest
 
 
@@ -515,6 +801,7 @@ def _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0
 
     def at(rel):
         """The staging path of an output name (sub-folders made)."""
+        check_stop()
         p = stage / Path(rel)
         p.parent.mkdir(parents=True, exist_ok=True)
         final_of[str(p)] = out_dir / Path(rel)
@@ -599,7 +886,7 @@ def _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0
         manifest["caution"] = cv.CAUTION
     _write_json(at("manifest.json"), manifest, True)
     staged.append((at("manifest.json"), out_dir / "manifest.json", "manifest"))
-    _move_into_place(staged, force)
+    _move_into_place(staged, force, stage, out_dir)
     for _p, final, what in staged:
         log(f"  wrote {final}  ({what})")
     if "caution" in manifest:
@@ -607,30 +894,89 @@ def _run_staged(data, path, name, out_dir, stage, files, crystal, force, log, t0
     return manifest
 
 
-def _move_into_place(staged, force):
-    """Move every staged file to its final name: all or nothing without
-    force (refused up front if any name exists), exclusive links so a file
-    that appeared meanwhile is never overwritten."""
-    import os
+def _move_into_place(staged, force, stage, out_dir):
+    """Move every staged file to its final name, all or nothing.
 
-    if not force:
-        there = [str(f) for _p, f, _w in staged if Path(f).exists()]
-        if there:
-            raise UserError(f"{there[0]} already exists (and {len(there) - 1} more); pass --force to overwrite")
-    moved = []
+    Each place is checked again (see :func:`_place_problem`); a file already
+    at a final name is refused without ``force`` and, with it, moved aside into
+    the staging folder first.  Names are taken with exclusive links, so a file
+    that appears meanwhile is never overwritten.  If any step fails, the new
+    files are taken back out, the old ones put back and the folders made here
+    removed: a failed run never changes or deletes earlier results.  SIGINT
+    and SIGTERM wait until the move is done or undone."""
+    import os
+    import signal
+    import tempfile
+    import threading
+
+    check_stop()
+    aside = Path(tempfile.mkdtemp(prefix=".cv-old-", dir=stage))
+    moved, saved, made = [], [], []
+    final = None
+    pending, previous = [], {}
+    if threading.current_thread() is threading.main_thread():
+        # SIGINT / SIGTERM wait until the move is done or undone, then take effect
+        for sig in (signal.SIGINT, signal.SIGTERM):
+            if signal.getsignal(sig) is not None:
+                previous[sig] = signal.signal(sig, lambda signum, frame: pending.append(signum))
     try:
-        for p, final, _w in staged:
-            Path(final).parent.mkdir(parents=True, exist_ok=True)
-            if force:
-                os.replace(p, final)
-            else:
-                os.link(p, final)
+        try:
+            for i, (p, final, _w) in enumerate(staged):
+                final = Path(final)
+                problem = _place_problem(final, out_dir)
+                if problem:
+                    raise UserError(problem)
+                new = missing_folders(final.parent)
+                for d in reversed(new):
+                    os.mkdir(d)
+                    made.append(d)
+                if os.path.lexists(final):
+                    if not force:
+                        raise UserError(f"'{final}' appeared while the scene ran; pass --force to replace it, or run "
+                                        f"the scene again")
+                    keep = aside / str(i)
+                    os.rename(final, keep)
+                    saved.append((final, keep))
+                try:
+                    os.link(p, final)
+                except FileExistsError:
+                    raise UserError(f"'{final}' appeared while the scene ran; run the scene again") from None
+                except OSError:
+                    # a file system without hard links: an exclusive create of the name, then the rename
+                    os.close(os.open(final, os.O_CREAT | os.O_EXCL | os.O_WRONLY, 0o644))
+                    moved.append(final)
+                    os.replace(p, final)
+                    continue
+                moved.append(final)
                 os.unlink(p)
-            moved.append(final)
-    except FileExistsError:
-        for f in moved:
-            Path(f).unlink(missing_ok=True)
-        raise UserError(f"{final} appeared while the scene ran; nothing was kept; run it again") from None
+        except BaseException as exc:
+            for f in reversed(moved):
+                try:
+                    os.unlink(f)
+                except OSError:
+                    pass
+            for f, keep in reversed(saved):
+                try:
+                    os.rename(keep, f)
+                except OSError:
+                    pass
+            for d in reversed(made):
+                try:
+                    os.rmdir(d)
+                except OSError:
+                    pass
+            if isinstance(exc, UserError):
+                raise UserError(f"{exc}; nothing was changed (earlier results are as they were)") from None
+            if isinstance(exc, OSError):
+                where = f"'{final}'" if final is not None else "the results"
+                raise UserError(f"could not put {where} in place: {exc.strerror or exc}; nothing was changed "
+                                f"(earlier results are as they were)") from None
+            raise
+    finally:
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+        if pending:
+            signal.raise_signal(pending[0])
 
 
 def _report_files(rep):

@@ -17,16 +17,59 @@ def register(sub):
     p.set_defaults(func=run)
 
 
+def _on_sigterm(signum, frame):
+    """Stop the run: raise now (the same cleanup as Ctrl-C runs), and have the
+    next step raise again should a library lose this exception."""
+    from ..scene import Terminated, request_stop
+
+    request_stop(signum)
+    raise Terminated(128 + signum)
+
+
+def _catch_sigterm():
+    """Install the SIGTERM handler (main thread only); returns a function that restores the previous one."""
+    import signal
+    import threading
+
+    if threading.current_thread() is not threading.main_thread():
+        return lambda: None
+    previous = signal.signal(signal.SIGTERM, _on_sigterm)
+    return lambda: signal.signal(signal.SIGTERM, previous)
+
+
 def run_many(paths, out=None, force=False, quiet=False, debug=False):
     """Run scenes one after another; a failing scene does not stop the others.
-    Returns the exit status: 0 all good, 2 if a scene had bad input, 1 on an internal fault."""
+    Returns the exit status: 0 all good, 2 if a scene had bad input, 1 on an internal fault.
+    Everything echoed has its control characters escaped (a scene's values never reach the terminal raw)."""
     from ..errors import UserError
-    from ..scene import load, run_scene
+    from ..scene import _STOP, Terminated, check_stop, load, missing_folders, remove_folders, run_scene
+    from . import clean_text
 
+    created = []
     if out is not None:
         from ..scene import make_folder
 
+        created = missing_folders(out)
         make_folder(out)            # an unusable --out stops everything, in one line
+    _STOP.clear()
+    restore = _catch_sigterm()
+    status = None
+    try:
+        status = _run_all(paths, out, force, quiet, debug, load, run_scene, UserError, clean_text, check_stop)
+        check_stop()
+    except Terminated:
+        status = None
+        sys.stderr.write("crystalview: terminated\n")
+        raise
+    finally:
+        restore()
+        _STOP.clear()
+        if status != 0:
+            remove_folders(created)     # a run that failed leaves no empty folder of its own making
+    return status
+
+
+def _run_all(paths, out, force, quiet, debug, load, run_scene, UserError, clean_text, check_stop):
     if len(paths) > 1:
         # two scenes of one name would write the same folder: refuse before anything runs
         seen = {}
@@ -41,7 +84,7 @@ def run_many(paths, out=None, force=False, quiet=False, debug=False):
             seen[nm.lower()] = path
     status = 0
     results = []
-    log = (lambda *a, **k: None) if quiet else (lambda msg: print(msg, flush=True))
+    log = (lambda *a, **k: None) if quiet else (lambda msg: print(clean_text(msg), flush=True))
     progress = _progress(len(paths))
     for i, path in enumerate(paths):
         target = None
@@ -52,6 +95,7 @@ def run_many(paths, out=None, force=False, quiet=False, debug=False):
                     target = Path(out) / load(path)["scene"]["name"]
                 except UserError:
                     target = Path(out) / Path(path).stem
+        check_stop()
         progress(i, path)
         log(f"scene {path}:")
         try:
@@ -60,7 +104,7 @@ def run_many(paths, out=None, force=False, quiet=False, debug=False):
         except UserError as exc:
             if debug:
                 raise
-            msg = " ".join(str(exc).split())
+            msg = clean_text(" ".join(str(exc).split()))
             sys.stderr.write(f"crystalview: error: {msg}\n")
             results.append((path, "failed", msg))
             if status != 1:
@@ -68,15 +112,15 @@ def run_many(paths, out=None, force=False, quiet=False, debug=False):
         except Exception as exc:  # keep going with the next scene
             if debug:
                 raise
-            sys.stderr.write(f"crystalview: internal error in {path}: {type(exc).__name__}: {exc} "
-                             f"(rerun with --debug and report it)\n")
-            results.append((path, "internal error", str(exc)))
+            sys.stderr.write(clean_text(f"crystalview: internal error in {path}: {type(exc).__name__}: {exc} "
+                                        f"(rerun with --debug and report it)") + "\n")
+            results.append((path, "internal error", clean_text(exc)))
             status = 1
     progress(len(paths), None)
     if len(paths) > 1 or quiet:
         print("summary:")
         for path, state, what in results:
-            print(f"  {state:<6}  {path}  {what}")
+            print(clean_text(f"  {state:<6}  {path}  {what}"))
     return status
 
 
