@@ -28,6 +28,8 @@ FRACTION = {"type": "number", "minimum": 0, "maximum": 1}
 SEED = {"type": "integer", "minimum": 0}
 COUNT = {"type": "integer", "minimum": 0}
 REPEAT3 = {"type": "array", "items": {"type": "integer", "minimum": 1, "maximum": 10000}, "minItems": 3, "maxItems": 3}
+#: Most figures, models or exports one scene may ask for (each), so a scene cannot queue hours of work.
+MAX_OUTPUTS = 200
 FILE = {"type": "string", "minLength": 1, "maxLength": 200, "pattern": r"^[^/\\][^\\]*$"}
 
 #: per defect kind: its keys (all optional unless listed in "required")
@@ -90,7 +92,7 @@ SCHEMA = {
                                     "slip": {"type": "object", "additionalProperties": False, "required": ["axis"],
                                              "properties": {"axis": INDEX, "stress": POS_NUM, "crss": POS_NUM,
                                                             "families": {"type": "array", "items": {"type": "string"}}}}}},
-        "figures": {"type": "array", "items": {
+        "figures": {"type": "array", "maxItems": MAX_OUTPUTS, "items": {
             "type": "object", "additionalProperties": False, "required": ["file"],
             "properties": {"file": FILE, "view": INDEX, "up": INDEX,
                            "style": {"enum": ["ball-and-stick", "space-filling", "lattice", "cell-cut"]},
@@ -109,7 +111,7 @@ SCHEMA = {
                            "planes": {"type": "array", "items": INDEX},
                            "directions": {"type": "array", "items": INDEX},
                            "slip_axis": INDEX}}},
-        "models": {"type": "array", "items": {
+        "models": {"type": "array", "maxItems": MAX_OUTPUTS, "items": {
             "type": "object", "additionalProperties": False, "required": ["file"],
             "properties": {"file": FILE, "style": {"enum": ["ball-and-stick", "space-filling"]},
                            "scale": POS_NUM, "clip_to_cell": {"type": "boolean"}, "base": {"type": "boolean"},
@@ -122,7 +124,7 @@ SCHEMA = {
                            "label": {"type": "string", "minLength": 1, "maxLength": 60},
                            "label_style": {"enum": ["emboss", "engrave"]},
                            "label_stroke": {"type": "number", "minimum": 0.2, "maximum": 10}}}},
-        "exports": {"type": "array", "items": {
+        "exports": {"type": "array", "maxItems": MAX_OUTPUTS, "items": {
             "type": "object", "additionalProperties": False, "required": ["file"],
             "properties": {"file": FILE, "scale": POS_NUM,
                            # web pages (.html): the figure's options, on when the page opens
@@ -170,10 +172,12 @@ def _explain(err):
                 "exclusiveMaximum": "less than"}[v]
         return f"{inst!r} is out of range; it must be {word} {err.validator_value}"
     if v in ("minItems", "maxItems"):
-        return f"{inst!r} has {len(inst)} items; it must have {'at least' if v == 'minItems' else 'at most'} {err.validator_value}"
+        shown = repr(inst) if len(repr(inst)) <= 80 else "the list"
+        return f"{shown} has {len(inst)} items; it must have {'at least' if v == 'minItems' else 'at most'} {err.validator_value}"
     if v in ("minLength", "maxLength", "pattern"):
-        return f"{inst!r} is not a valid value here ({err.message})"
-    return err.message
+        shown = repr(inst) if len(repr(inst)) <= 80 else repr(inst)[:60] + "...'"
+        return f"{shown} is not a valid value here ({' '.join(err.message.split())[:160]})"
+    return " ".join(str(err.message).split())[:200]
 
 
 def validate(data, path="scene"):

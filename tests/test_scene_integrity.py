@@ -336,3 +336,18 @@ def test_23_sigterm_during_the_final_move_waits_until_it_is_complete(tmp_path, c
     for w in m["written"]:
         assert hashlib.sha256(Path(w["file"]).read_bytes()).hexdigest() == w["sha256"]
     assert not list(o.glob(".cv-*"))
+
+
+def test_a_scene_asks_for_at_most_200_outputs_of_a_kind(tmp_path):
+    """20,000 exports in one scene ran for minutes (about 22 ms each); refused at once, without echoing the
+    whole list."""
+    import subprocess
+    import sys
+
+    scene = tmp_path / "many.toml"
+    scene.write_text('[scene]\nname = "many"\n[structure]\nelement = "Cu"\n'
+                     + "".join(f'[[exports]]\nfile = "f{i}.cif"\n' for i in range(300)))
+    p = subprocess.run([sys.executable, "-m", "crystalview", "run", str(scene), "--out", str(tmp_path / "o")],
+                       capture_output=True, text=True, timeout=120)
+    assert p.returncode == 2 and "at most 200" in p.stderr and len(p.stderr) < 400
+    assert not (tmp_path / "o").exists()
