@@ -257,6 +257,20 @@ def _canon(symbol):
     return s[:1].upper() + s[1:].lower()
 
 
+#: Element symbols by atomic number (1-118), the IUPAC names; held here so a symbol's number needs no
+#: import (periodictable, which gives the masses, takes 25 ms to load); the suite checks it against periodictable.
+SYMBOLS = (
+    "H", "He", "Li", "Be", "B", "C", "N", "O", "F", "Ne", "Na", "Mg", "Al", "Si", "P", "S", "Cl", "Ar", "K",
+    "Ca", "Sc", "Ti", "V", "Cr", "Mn", "Fe", "Co", "Ni", "Cu", "Zn", "Ga", "Ge", "As", "Se", "Br", "Kr", "Rb",
+    "Sr", "Y", "Zr", "Nb", "Mo", "Tc", "Ru", "Rh", "Pd", "Ag", "Cd", "In", "Sn", "Sb", "Te", "I", "Xe", "Cs",
+    "Ba", "La", "Ce", "Pr", "Nd", "Pm", "Sm", "Eu", "Gd", "Tb", "Dy", "Ho", "Er", "Tm", "Yb", "Lu", "Hf",
+    "Ta", "W", "Re", "Os", "Ir", "Pt", "Au", "Hg", "Tl", "Pb", "Bi", "Po", "At", "Rn", "Fr", "Ra", "Ac", "Th",
+    "Pa", "U", "Np", "Pu", "Am", "Cm", "Bk", "Cf", "Es", "Fm", "Md", "No", "Lr", "Rf", "Db", "Sg", "Bh", "Hs",
+    "Mt", "Ds", "Rg", "Cn", "Nh", "Fl", "Mc", "Lv", "Ts", "Og",
+)
+_NUMBER = {sym: z for z, sym in enumerate(SYMBOLS, 1)}
+
+
 @functools.lru_cache(maxsize=None)
 def atomic_number(symbol) -> int:
     """Atomic number of an element symbol.
@@ -264,20 +278,16 @@ def atomic_number(symbol) -> int:
     >>> atomic_number("Fe")
     26
     """
-    import periodictable
-
     sym = _canon(symbol)
-    el = getattr(periodictable, sym, None)
-    if el is None or not hasattr(el, "number") or sym == "D" or sym == "T":
+    z = _NUMBER.get(sym)
+    if z is None:
         raise UserError(f"'{symbol}' is not a chemical element symbol{suggest(symbol, _all_symbols())}")
-    return int(el.number)
+    return z
 
 
 @functools.lru_cache(maxsize=None)
 def _all_symbols():
-    import periodictable
-
-    return [e.symbol for e in periodictable.elements if e.number > 0]
+    return list(SYMBOLS)
 
 
 @functools.lru_cache(maxsize=None)
@@ -287,9 +297,10 @@ def symbol_of(number) -> str:
     >>> symbol_of(29)
     'Cu'
     """
-    import periodictable
-
-    return periodictable.elements[int(number)].symbol
+    z = int(number)
+    if not 1 <= z <= len(SYMBOLS):
+        raise UserError(f"atomic number {number} is not one of 1-{len(SYMBOLS)}")
+    return SYMBOLS[z - 1]
 
 
 @functools.lru_cache(maxsize=None)

@@ -233,3 +233,13 @@ def test_neighbour_at_exactly_the_cutoff_found_both_ways():
     assert len(i) == 6 and np.allclose(d, 3.0)
     assert sorted(map(tuple, np.round(vec / 3).astype(int).tolist())) == sorted(
         [(1, 0, 0), (-1, 0, 0), (0, 1, 0), (0, -1, 0), (0, 0, 1), (0, 0, -1)])
+
+
+def test_element_symbol_table_matches_periodictable():
+    # source: periodictable (NIST data), the independent library the masses come from
+    import periodictable
+
+    from crystalview.elements import SYMBOLS, atomic_number, symbol_of
+
+    assert SYMBOLS == tuple(e.symbol for e in periodictable.elements if e.number > 0)
+    assert all(atomic_number(s) == z and symbol_of(z) == s for z, s in enumerate(SYMBOLS, 1))

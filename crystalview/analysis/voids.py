@@ -555,7 +555,7 @@ def _triangulate_and_reduce(crystal, n, pad, pad0, pts_t, _idx_t, tree, margin, 
     t_slabs = 0.0
     pb = None
     checked = False
-    for attempt in range(6):
+    for attempt in range(10):
         _check_padding(n, h, pbc, max(pad, pad0 if pad > pad0 else 0.0) + 0.5 * s, max_atoms)
         if pad > pad0:
             pad0 = pad + 0.5 * s
@@ -613,7 +613,10 @@ def _triangulate_and_reduce(crystal, n, pad, pad0, pts_t, _idx_t, tree, margin, 
         ok_pad = (not pbc.any()) or need_pad <= pad * (1 + 1e-12) + 1e-12
         if n_own == 0 or ok_pad:
             break
-        pad = float(need_pad) * (1 + 1e-9) + 1e-9
+        # grow by at most about twice at a time: a kept tetrahedron on the hull of a too-thin padding can ask
+        # for a huge one (corundum's asked 119 A, 1.9 million points, where 13 A was enough); the next
+        # attempt measures again, and only a padding that passes the check above is used
+        pad = min(float(need_pad) * (1 + 1e-9) + 1e-9, 2.0 * max(pad, 0.0) + 2.0 * s)
     else:
         raise UserError("the holes are too large for the cell (open space?); void analysis needs a filled cell")
     if info is not None:
@@ -863,9 +866,11 @@ def _slab(geo, cut_lo, cut_hi, margin):
             g = G[a:a + _CHUNK]
             c0 = pts[g[:, 0]]
             z = np.zeros(len(g))
-            y, rr, _ = tangent_spheres(c0, pts[g[:, 1]] - c0, pts[g[:, 2]] - c0, pts[g[:, 3]] - c0, z, z, z, z,
-                                       weighted=False)
-            rho_c[a:a + _CHUNK] = rr
+            y, rr, okc = tangent_spheres(c0, pts[g[:, 1]] - c0, pts[g[:, 2]] - c0, pts[g[:, 3]] - c0, z, z, z, z,
+                                         weighted=False)
+            # a flat tetrahedron (four atoms on one plane, split apart only by the jitter) has no
+            # circumsphere of its own: its atoms lie on the spheres of its neighbours, which are counted
+            rho_c[a:a + _CHUNK] = np.where(okc, rr, -np.inf)
             cc_own[a:a + _CHUNK] = c0 + y
         fck_c = _frac(cc_own, inv)[:, k] if T else np.zeros(0)
         fo_c = _frac(cc_own[own_idx], inv)
