@@ -240,8 +240,8 @@ def _check_padding(n, h, pbc, pad, max_atoms=None):
         raise LimitError(
             f"the holes of this crystal reach {pad:,.0f} A beyond its cell, so the void analysis would triangulate "
             f"about {int(pts):,} points (over the {cap * CAP_POINTS_PER_ATOM + CAP_POINTS_FLOOR:,.0f} the cap of "
-            f"{cap:,} atoms allows); the cell is mostly empty space: give a filled cell, or repeat it across its "
-            f"short directions")
+            f"{cap:,} atoms allows): the cell is mostly empty space, or (for molecular crystals of mixed radii) "
+            f"the padding does not settle; give a filled cell, or repeat it across its short directions")
 
 
 # ---------------------------------------------------------------------- geometry
