@@ -350,12 +350,97 @@ def _check_repeat(repeat):
     return rep
 
 
-def _int_det(P):
-    """Exact |determinant| of an integer 3x3 matrix (Python integers)."""
-    m = [[int(round(float(x))) for x in row] for row in np.asarray(P)]
+#: Largest supercell matrix entry accepted (a sheared matrix with huge entries
+#: but a small determinant would still be filled through floating point).
+MAX_SUPERCELL_ENTRY = 10 ** 9
+
+
+def exact_cell_count(P, n_basis):
+    """Exact number of atoms in the supercell whose rows are ``P`` (in
+    conventional fractional units; entries whole or simple fractions such as
+    1/2, 1/3 for centred lattices) of a conventional cell holding
+    ``n_basis`` atoms: |det P| x n_basis in Python rationals, no overflow.
+
+    >>> exact_cell_count([[0.5, -0.5, 0], [0.5, 0.5, -1], [1, 1, 1]], 4)
+    6
+    """
+    from fractions import Fraction
+
+    m = [[Fraction(float(x)).limit_denominator(24) for x in row] for row in P]
     d = (m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
          + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0]))
-    return abs(d)
+    return math.ceil(abs(d) * n_basis)
+
+
+def orient_count(base, orient):
+    """(exact atom count, P) of the oriented cell of ``base`` (directions for
+    x, y and z), computed without building it.
+
+    >>> import crystalview as cv
+    >>> orient_count(cv.build("Cu"), ["[1-10]", "[11-2]", "[111]"])[0]
+    6
+    """
+    lat = base.lattice
+    if lat is not None and not np.allclose(np.asarray(lat.cell, float), base.cell, atol=1e-6):
+        base = _to_conventional(base)
+    P, _ = _orient_rows(orient, base.lattice, base.frac, base.numbers)
+    return exact_cell_count(P, len(base)), P
+
+
+def _supercell_ints(supercell):
+    """A supercell matrix (9 numbers, 3 rows or 3 diagonal numbers, as
+    numbers or text) as a 3x3 list of Python integers, checked before numpy
+    sees it: no overflow, no cast warnings.
+
+    >>> _supercell_ints(["2", "0", "0", "0", "2", "0", "0", "0", "2"])
+    [[2, 0, 0], [0, 2, 0], [0, 0, 2]]
+    >>> _supercell_ints([3, 3, 1])
+    [[3, 0, 0], [0, 3, 0], [0, 0, 1]]
+    """
+    bad = UserError("the supercell matrix must be 3x3 whole numbers, rows = new cell vectors "
+                    "in units of the conventional ones, e.g. [[1,-1,0],[1,1,0],[0,0,1]]")
+    flat = []
+
+    def walk(x):
+        if isinstance(x, (list, tuple)) or (isinstance(x, np.ndarray) and x.ndim):
+            for y in x:
+                walk(y)
+        else:
+            flat.append(x)
+
+    walk(supercell)
+    out = []
+    for x in flat:
+        try:
+            v = int(str(x).strip()) if isinstance(x, str) else None
+        except ValueError:
+            v = None
+        if v is None:
+            try:
+                f = float(x)
+            except (TypeError, ValueError):
+                raise bad from None
+            if not math.isfinite(f) or f != int(f):
+                raise bad
+            v = int(f)
+        out.append(v)
+    if len(out) == 3:
+        out = [out[0], 0, 0, 0, out[1], 0, 0, 0, out[2]]
+    if len(out) != 9:
+        raise bad
+    return [out[0:3], out[3:6], out[6:9]]
+
+
+def _int_det(P, signed=False):
+    """Exact |determinant| (or the signed one) of an integer 3x3 matrix (Python integers).
+
+    >>> _int_det([[1, 1, 0], [-1, 1, 0], [0, 0, 1]])
+    2
+    """
+    m = [[int(x) if isinstance(x, (int, np.integer)) else int(round(float(x))) for x in row] for row in P]
+    d = (m[0][0] * (m[1][1] * m[2][2] - m[1][2] * m[2][1]) - m[0][1] * (m[1][0] * m[2][2] - m[1][2] * m[2][0])
+         + m[0][2] * (m[1][0] * m[2][1] - m[1][1] * m[2][0]))
+    return d if signed else abs(d)
 
 
 def _fill_reduced(conv, frac, species, P):
@@ -435,22 +520,26 @@ def _supercell_of(base: Crystal, repeat=None, supercell=None, orient=None, max_a
     new_cell = conv
     if supercell is not None or orient is not None:
         if supercell is not None:
-            P = np.array(supercell, dtype=float)
-            if P.shape == (3,):
-                P = np.diag(P)
-            if P.shape != (3, 3) or np.any(np.abs(P - np.round(P)) > 1e-9):
-                raise UserError("the supercell matrix must be 3x3 whole numbers, rows = new cell vectors "
-                                "in units of the conventional ones, e.g. [[1,-1,0],[1,1,0],[0,0,1]]")
-            det = np.linalg.det(P)
-            if abs(det) < 0.5:
+            m = _supercell_ints(supercell)
+            det = _int_det(m, signed=True)
+            if det == 0:
                 raise UserError("the supercell matrix is singular (its rows are coplanar); give three independent rows")
             if det < 0:
                 raise UserError("the supercell matrix is left-handed (negative determinant); swap two rows or negate one")
-            meta["supercell"] = P.astype(int).tolist()
+            # exact count first (Python ints), so numpy never sees a matrix whose fill would not fit
+            check_atom_count(det * len(frac) * (math.prod(_check_repeat(repeat)) if repeat is not None else 1),
+                             max_atoms)
+            big = max(abs(v) for row in m for v in row)
+            if big > MAX_SUPERCELL_ENTRY:
+                raise UserError(f"supercell matrix entry {big if big < 10 ** 12 else f'{float(big):.3g}'} is beyond "
+                                f"+-{MAX_SUPERCELL_ENTRY:,}; shear the cell less (an equivalent matrix with "
+                                f"small entries makes the same crystal)")
+            P = np.array(m, dtype=float)
+            meta["supercell"] = m
         else:
             P, labels = _orient_rows(orient, lat, frac, species)
             meta["orient"] = labels
-        n_est = _int_det(P) * len(frac)
+        n_est = exact_cell_count(P, len(frac))
         rep = _check_repeat(repeat) if repeat is not None else (1, 1, 1)
         check_atom_count(n_est * math.prod(rep), max_atoms)
         fn, species, src = _fill_reduced(conv, frac, species, P)

@@ -44,8 +44,27 @@ def max_atoms_default():
     return DEFAULT_MAX_ATOMS
 
 
+def machine_memory():
+    """Bytes of physical memory on this machine (None where unknown).
+
+    >>> m = machine_memory(); m is None or m > 0
+    True
+    """
+    try:
+        return int(os.sysconf("SC_PHYS_PAGES")) * int(os.sysconf("SC_PAGE_SIZE"))
+    except (ValueError, OSError, AttributeError):
+        return None
+
+
+def _human_bytes(size):
+    return (f"{size / 1e9:,.1f} GB" if size >= 1e8 else (f"{size / 1e6:.1f} MB" if size >= 1e5 else
+                                                         f"{size / 1e3:.1f} kB"))
+
+
 def check_atom_count(n, max_atoms=None, what="this request"):
     """Refuse a request over the atom cap, before anything is allocated.
+    A request whose atoms alone would not fit in the machine's memory is
+    refused even when the user raised the cap.
 
     >>> check_atom_count(4, 10)
     >>> check_atom_count(2 ** 70, 10)
@@ -55,10 +74,15 @@ def check_atom_count(n, max_atoms=None, what="this request"):
     """
     cap = max_atoms_default() if max_atoms is None else cap_value(max_atoms)
     n = int(n)                      # exact: Python integers do not overflow
-    if n > cap:
-        size = n * BYTES_PER_ATOM
-        mem = f"{size / 1e9:.1f} GB" if size >= 1e8 else (f"{size / 1e6:.1f} MB" if size >= 1e5 else
-                                                          f"{size / 1e3:.1f} kB")
+    size = n * BYTES_PER_ATOM
+    mem = _human_bytes(size)
+    phys = machine_memory()
+    if n > cap or (phys is not None and size > phys):
+        if phys is not None and size > phys:
+            over = f"over the cap of {cap:,} and " if n > cap else ""
+            raise LimitError(
+                f"{what} would make {n:,} atoms (about {mem} for the atoms alone), {over}more than this "
+                f"machine's {_human_bytes(phys)} of memory; make it smaller", count=n, cap=cap)
         raise LimitError(
             f"{what} would make {n:,} atoms (about {mem} of memory for the atoms alone), "
             f"over the cap of {cap:,}; make it smaller or raise the cap with --max-atoms {n}", count=n, cap=cap

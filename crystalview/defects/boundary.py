@@ -225,12 +225,20 @@ def tilt_boundary(element, axis="[001]", plane="(310)", size=None, overlap=0.6, 
         raise UserError(f"plane {format_indices(pv, 'plane')} is a mirror plane of the cubic lattice: it gives no "
                         f"misorientation about {format_indices(tv)} (Sigma 1, no boundary){hint}")
     orient = (format_indices(xv), format_indices(pv), format_indices(tv))
-    cell1 = oriented(parent, orient)
-    L = np.linalg.norm(cell1.cell, axis=1)
+    # exact count before anything is built: the oriented (coincidence) cell grows with the indices
+    from ..build import orient_count
+    from ..limits import check_atom_count
+
+    n_cell, P = orient_count(parent, orient)
+    L = np.linalg.norm(np.asarray(P, float) @ np.asarray(parent.lattice.cell, float), axis=1)
     if size is None:
         size = (max(1, math.ceil(10.0 / L[0])), max(1, math.ceil(20.0 / L[1])), max(1, math.ceil(10.0 / L[2])))
     nx, ny, nz = repeats(size, 3, "size", "(1, 4, 3)")
-    g1 = oriented(parent, orient, repeat=(nx, ny, nz), max_atoms=None if max_atoms is None else max_atoms // 2)
+    n_grain = n_cell * nx * ny * nz
+    # both grains: grain 1 plus its mirror image (before the few overlapping atoms are removed)
+    check_atom_count(2 * n_grain, max_atoms,
+                     what=f"this tilt boundary (two grains of {n_cell:,} atoms per oriented cell x {nx}x{ny}x{nz})")
+    g1 = oriented(parent, orient, repeat=(nx, ny, nz), max_atoms=max_atoms)
     Ly = g1.cell[1, 1]
     if abs(g1.cell[1, 0]) > 1e-6 or abs(g1.cell[2, 0]) > 1e-6 or abs(g1.cell[2, 1]) > 1e-6:
         raise UserError("internal: the oriented grain cell is not orthogonal")
@@ -256,17 +264,29 @@ def tilt_boundary(element, axis="[001]", plane="(310)", size=None, overlap=0.6, 
     if periodic:
         pos[:, 1] = np.mod(pos[:, 1], 2 * Ly)
         pos[pos[:, 1] >= 2 * Ly - 1e-9, 1] = 0.0
+    del pos1, pos2
     out = Crystal(cell, pos, numbers, pbc=pbc, metadata=dict(parent.metadata), lattice=g1.lattice,
                   species_radii=parent.species_radii)
+    del pos
     dnn = nearest_neighbour_distance(parent)
     cut = float(overlap) * dnn
     removed = 0
     if cut > 0:
-        i, j, _, d = neighbour_pairs(out, cut)
+        # overlaps can only be across a boundary (each grain is a perfect lattice): look in the bands
+        # within cut of y = Ly (and of y = 0 / 2 Ly, periodic) only, so the search is a thin slab
+        y = out.positions[:, 1]
+        band = np.abs(y - Ly) <= cut + 1e-6
+        band |= (y <= cut + 1e-6) | (y >= 2 * Ly - cut - 1e-6)
+        sel = np.flatnonzero(band)
+        del band, y
+        slab = Crystal(cell, out.positions[sel], out.numbers[sel], pbc=pbc)
+        i, j, _, d = neighbour_pairs(slab, cut)
+        i, j = sel[i], sel[j]
+        del slab
         drop = np.zeros(len(out), bool)
         # exact duplicates and close pairs: drop the grain-2 atom (lowest index wins within a grain)
         order = np.argsort(d, kind="stable")
-        for a_, b_ in zip(i[order], j[order]):
+        for a_, b_ in zip(i[order].tolist(), j[order].tolist()):
             if a_ == b_ or drop[a_] or drop[b_]:
                 continue
             if grain[a_] == grain[b_]:

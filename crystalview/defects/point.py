@@ -14,6 +14,7 @@ shared by the other defect builders.
 """
 from __future__ import annotations
 
+import itertools
 import math
 import numbers
 
@@ -73,7 +74,30 @@ def _count_from(n_available, count=None, fraction=None, what="vacancies"):
     return n
 
 
+class _All(int):
+    """Every atom is a candidate: the pool is range(n), never materialised
+    (an index array of a 50-million-atom crystal is 400 MB)."""
+
+    def __len__(self):
+        return int(self)
+
+
+def _choose(rng, pool, n):
+    """``n`` distinct picks from ``pool`` (an index array or _All), as numpy's
+    Generator.choice(pool, n, replace=False) gives them.
+
+    >>> a = _choose(np.random.default_rng(0), _All(10), 3)
+    >>> a.tolist() == np.random.default_rng(0).choice(np.arange(10), 3, replace=False).tolist()
+    True
+    """
+    if isinstance(pool, _All):
+        return rng.choice(int(pool), size=n, replace=False)
+    return rng.choice(pool, size=n, replace=False)
+
+
 def _candidates(crystal, element=None, role=None):
+    if element is None and (role is None or not np.any(crystal.roles != role_code(role))):
+        return _All(len(crystal))
     mask = np.ones(len(crystal), bool)
     if element is not None:
         from ..elements import atomic_number
@@ -125,15 +149,19 @@ def add_vacancies(crystal: Crystal, count=None, fraction=None, indices=None, see
         pool = _candidates(crystal, element=element)
         n = _count_from(len(pool), count=count, fraction=fraction, what="vacancies")
         rng = _rng(seed)
-        chosen = np.sort(rng.choice(pool, size=n, replace=False)) if n else np.zeros(0, np.int64)
+        chosen = np.sort(_choose(rng, pool, n)) if n else np.zeros(0, np.int64)
         info["seed"] = seed
         if fraction is not None:
             info["fraction"] = float(fraction)
         if element is not None:
             info["element"] = str(element)
+    from ..elements import symbol_of
+
     removed = crystal.positions[chosen]
-    removed_symbols = crystal.symbols[chosen].tolist() if len(chosen) else []
-    out = crystal.delete(chosen)
+    removed_symbols = [symbol_of(int(z)) for z in crystal.numbers[chosen]]
+    keep = np.ones(len(crystal), bool)
+    keep[chosen] = False
+    out = _subset(crystal, keep)
     out.record_defect("vacancy", count=int(len(chosen)), positions=removed.tolist(),
                       symbols=removed_symbols, **info)
     return out
@@ -182,7 +210,7 @@ def substitute(crystal: Crystal, element, fraction=None, count=None, seed=0, hos
     else:
         n = _count_from(len(pool), count=count, fraction=None, what=f"{sym} solute atoms")
     rng = _rng(seed)
-    chosen = np.sort(rng.choice(pool, size=n, replace=False)) if n else np.zeros(0, np.int64)
+    chosen = np.sort(_choose(rng, pool, n)) if n else np.zeros(0, np.int64)
     out = crystal.copy()
     out.numbers[chosen] = atomic_number(sym)
     out.roles[chosen] = role_code("solute")
@@ -264,26 +292,34 @@ def frenkel_pairs(crystal: Crystal, count, seed=0) -> Crystal:
     if n == 0:
         out.record_defect("frenkel_pair", count=0, positions=[], interstitial_positions=[], seed=seed)
         return out
-    movers = rng.choice(pool, size=n, replace=False)
-    dnn = nearest_neighbour_distance(crystal)
+    movers = _choose(rng, pool, n)
+    dnn = _nn_distance(crystal) if len(crystal) > _LOCAL_ABOVE else nearest_neighbour_distance(crystal)
     reach = 1.5 * dnn
     vac, inter, free_r = [], [], []
     inv = np.linalg.inv(out.cell)
+    # the atoms near the chosen sites only (a moved atom stays within reach of its site): memory and
+    # time grow with the number of pairs, not with the crystal
+    bins = _Bins(out, out.positions[movers], reach + 2.0 * dnn + reach) if len(out) > _LOCAL_ABOVE else None
     for i in movers:
         site = out.positions[i].copy()
-        pts, idx = with_images(out.positions, out.cell, out.pbc, reach + 2.0 * dnn)
+        if bins is None:
+            pts, idx = with_images(out.positions, out.cell, out.pbc, reach + 2.0 * dnn)
+        else:
+            local = bins.near(site)
+            pts, idx = with_images(out.positions[local], out.cell, out.pbc, reach + 2.0 * dnn)
+            idx = local[idx]
         keep = (idx != i) & (np.linalg.norm(pts - site, axis=1) <= reach + 2.0 * dnn)
         cluster = pts[keep]
         centres, dist = _holes_near(cluster, site, reach)
         if len(centres):
             bad = np.linalg.norm(centres - site, axis=1) < 0.5 * dnn
             bad |= dist > 0.95 * dnn                      # outside a surface, or an emptied site
-            for v in vac:                                  # earlier emptied sites (periodic images too)
-                d = (centres - v) @ inv
+            if vac:                                        # earlier emptied sites (periodic images too)
+                d = (centres[:, None, :] - np.asarray(vac)[None, :, :]) @ inv
                 for k in range(3):
                     if out.pbc[k]:
-                        d[:, k] -= np.round(d[:, k])
-                bad |= np.linalg.norm(d @ out.cell, axis=1) < 0.5 * dnn
+                        d[..., k] -= np.round(d[..., k])
+                bad |= np.any(np.linalg.norm(d @ out.cell, axis=2) < 0.5 * dnn, axis=1)
             centres, dist = centres[~bad], dist[~bad]
         if not len(centres):
             raise UserError("found no empty interstitial hole next to a chosen atom; use a bigger crystal "
@@ -306,7 +342,11 @@ def frenkel_pairs(crystal: Crystal, count, seed=0) -> Crystal:
         free_r.append(float(dist[order[0]]))
         out.positions[i] = q
         out.roles[i] = role_code("interstitial")
-    r_host = float(np.mean(crystal.atom_radii())) if len(crystal) else 0.0
+    z, cnt = np.unique(crystal.numbers, return_counts=True)
+    from ..elements import symbol_of
+
+    r_host = (float(sum(crystal.radius_of(symbol_of(int(a))) * int(b) for a, b in zip(z, cnt)) / len(crystal))
+              if len(crystal) else 0.0)
     out.record_defect("frenkel_pair", count=int(n), positions=np.array(vac).tolist(),
                       interstitial_positions=np.array(inter).tolist(), seed=seed,
                       hole_centre_to_atom_A=round(float(np.mean(free_r)), 4),
@@ -315,6 +355,137 @@ def frenkel_pairs(crystal: Crystal, count, seed=0) -> Crystal:
 
 
 # ================================================================== shared helpers
+#: Crystals larger than this (atoms) are searched through _Bins (local neighbourhoods only).
+_LOCAL_ABOVE = 200_000
+
+
+def _subset(crystal, keep):
+    """The crystal with only the atoms of the boolean mask ``keep``: each
+    array indexed once (no full copy first, as Crystal.select makes).
+
+    >>> import crystalview as cv
+    >>> len(_subset(cv.build("Cu"), np.array([True, False, True, True])))
+    3
+    """
+    import copy as _copy
+
+    out = Crystal.__new__(Crystal)
+    out.cell = crystal.cell.copy()
+    out.positions = crystal.positions[keep]
+    out.numbers = crystal.numbers[keep]
+    out.roles = crystal.roles[keep]
+    out.pbc = crystal.pbc
+    out.metadata = _copy.deepcopy(crystal.metadata)
+    out.lattice = crystal.lattice
+    out.species_radii = dict(crystal.species_radii)
+    out.occupancy = None if crystal.occupancy is None else crystal.occupancy[keep]
+    out._symbols_cache = None
+    return out
+
+
+class _Bins:
+    """The atoms near a few chosen places of a large crystal, found in one
+    chunked pass (memory: the chosen neighbourhoods, not the crystal).  Space
+    is cut into bins at least ``reach`` A high along each cell axis; the atoms
+    within ``reach`` of a centre lie in the 27 bins around it.
+
+    >>> import crystalview as cv
+    >>> c = cv.build("Cu", repeat=(6, 6, 6))
+    >>> k = int(np.argmin(np.linalg.norm(c.positions - c.cell.sum(0) / 2, axis=1)))   # an inner atom
+    >>> b = _Bins(c, c.positions[[k]], 3.0)
+    >>> d = np.linalg.norm(c.positions[b.near(c.positions[k])] - c.positions[k], axis=1)
+    >>> int(np.sum(d < 2.6))                # itself and its 12 neighbours
+    13
+    """
+
+    def __init__(self, crystal, centres, reach, chunk=1_000_000):
+        from ..analysis.neighbours import cell_heights
+
+        self.cell = crystal.cell
+        self.pbc = crystal.pbc
+        self.inv = np.linalg.inv(crystal.cell)
+        h = cell_heights(crystal.cell)
+        self.nb = np.array([max(1, int(h[k] // reach)) for k in range(3)], np.int64)
+        want = set()
+        for c in np.asarray(centres, float).reshape(-1, 3):
+            want.update(self._around(self._bin(c[None])[0]))
+        want = np.array(sorted(want), np.int64)
+        sel = []
+        n = len(crystal)
+        for a in range(0, n, chunk):
+            b = self._bin(crystal.positions[a:a + chunk])
+            sel.append(a + np.flatnonzero(np.isin(b, want)))
+        self.idx = np.concatenate(sel) if sel else np.zeros(0, np.int64)
+        bins = self._bin(crystal.positions[self.idx])
+        order = np.argsort(bins, kind="stable")
+        self.idx, self.bins = self.idx[order], bins[order]
+
+    def _cells(self, pos):
+        f = np.asarray(pos, float) @ self.inv
+        k = np.floor(f * self.nb).astype(np.int64)
+        for ax in range(3):
+            k[:, ax] = np.mod(k[:, ax], self.nb[ax]) if self.pbc[ax] else np.clip(k[:, ax], 0, self.nb[ax] - 1)
+        return k
+
+    def _bin(self, pos):
+        k = self._cells(pos)
+        return (k[:, 0] * self.nb[1] + k[:, 1]) * self.nb[2] + k[:, 2]
+
+    def _around(self, b):
+        k = [b // (self.nb[1] * self.nb[2]), (b // self.nb[2]) % self.nb[1], b % self.nb[2]]
+        out = set()
+        for d in itertools.product((-1, 0, 1), repeat=3):
+            q = []
+            for ax in range(3):
+                v = k[ax] + d[ax]
+                if self.pbc[ax]:
+                    v %= self.nb[ax]
+                elif not 0 <= v < self.nb[ax]:
+                    break
+                q.append(int(v))
+            else:
+                out.add((q[0] * int(self.nb[1]) + q[1]) * int(self.nb[2]) + q[2])
+        return out
+
+    def near(self, centre):
+        """Indices of the atoms (by where they were when binned) in the 27 bins around ``centre``."""
+        parts = []
+        for b in sorted(self._around(int(self._bin(np.asarray(centre, float)[None])[0]))):
+            lo, hi = np.searchsorted(self.bins, [b, b + 1])
+            parts.append(self.idx[lo:hi])
+        return np.concatenate(parts) if parts else np.zeros(0, np.int64)
+
+
+def _nn_distance(crystal, sample=2000):
+    """Shortest distance from a sample of atoms to their neighbours
+    (periodic), found through :class:`_Bins` so a large crystal is never
+    copied or padded whole.
+
+    >>> import crystalview as cv
+    >>> round(_nn_distance(cv.build("Cu", repeat=(4, 4, 4))), 4)
+    2.5561
+    """
+    from ..analysis.neighbours import with_images
+
+    n = len(crystal)
+    which = np.arange(0, n, max(1, n // sample))
+    cut = max(2.0 * (crystal.volume / max(n, 1)) ** (1 / 3), 1.0)
+    for _ in range(6):
+        bins = _Bins(crystal, crystal.positions[which], cut)
+        best = np.inf
+        for i in which:
+            local = bins.near(crystal.positions[i])
+            pts, idx = with_images(crystal.positions[local], crystal.cell, crystal.pbc, cut)
+            d = np.linalg.norm(pts - crystal.positions[i], axis=1)
+            d = d[(d > 1e-9) & (d <= cut)]
+            if len(d):
+                best = min(best, float(d.min()))
+        if np.isfinite(best):
+            return best
+        cut *= 2
+    return float("nan")
+
+
 def _rng(seed):
     """numpy Generator for a seed that is None or a whole number >= 0."""
     msg = f"seed {seed!r} must be a whole number of 0 or more, e.g. 0 or 42"

@@ -295,14 +295,18 @@ def read_cif(path, block=None, max_atoms=None, tolerance=None):
         _notes.clear()
     crystal = Crystal(rows, frac @ rows, numbers, roles=roles, metadata=meta, lattice=lat,
                       occupancy=occ if average else None)
-    drop = _check_distances(crystal, p, b.name, labels)
+    listed = {}
+    for s_ in st.sites:
+        listed.setdefault(s_.label, [s_.fract.x, s_.fract.y, s_.fract.z])
+    drop = _check_distances(crystal, p, b.name, labels,
+                            listed_frac=np.array([listed.get(x, [np.nan] * 3) for x in labels], float).reshape(-1, 3))
     if drop:
-        keep = np.array([k for k in range(len(crystal)) if k not in drop], int)
+        keep = np.setdiff1d(np.arange(len(crystal)), np.fromiter(drop, np.int64, len(drop)))
         crystal = crystal.select(keep)
         crystal.lattice = replace_lattice(crystal.lattice, basis_frac=frac[keep],
                                           basis_symbols=tuple(symbols[k] for k in keep))
-        crystal.metadata["note"] = (f"{len(drop)} atom(s) listed twice in the file (symmetry copies of listed "
-                                    f"sites) were read once")
+        crystal.metadata["note"] = (f"{len(drop)} atom(s) listed twice in the file (repeated lines of one site, or "
+                                    f"symmetry copies of a site) were read once")
     from ..occupancy import average_record, site_groups
 
     if average:
@@ -542,12 +546,29 @@ MIN_ATOM_DISTANCE = 0.5
 DUPLICATE_DISTANCE = 0.02
 
 
-def _check_distances(crystal, p, block_name, labels):
+#: More entries than this within MIN_ATOM_DISTANCE of one atom (after repeated
+#: entries are merged) is no real structure: a disordered site has a few
+#: alternatives, not dozens.  Bounds the work and memory of the check.
+MAX_CLOSE_ENTRIES = 64
+
+
+def _check_distances(crystal, p, block_name, labels, listed_frac=None):
     """Refuse atoms closer than MIN_ATOM_DISTANCE after symmetry expansion,
     unless both are partly occupied (alternative positions of one site).
-    Entries of the same species and occupancy within DUPLICATE_DISTANCE of
-    each other are one atom listed twice (files list symmetry copies too):
-    returns the indices to drop."""
+    Entries of the same label, species and occupancy within
+    DUPLICATE_DISTANCE of each other are one atom listed twice (a repeated
+    line, or a symmetry copy of a site on a special position): returns the
+    indices to drop.  Two entries of different labels at the same place are
+    refused, naming both, when they are listed at the same place in the file
+    (``listed_frac``, the listed coordinates of each entry's site); a site
+    listed as the symmetry copy of another (SHELX's 'Nd1A*') is read once.  Memory and time grow as N log N: exact repeats are
+    merged by sorting first, and each remaining atom looks at its own
+    neighbours only.
+
+    >>> import crystalview as cv
+    >>> _check_distances(cv.build("Cu"), None, "x", ["Cu"] * 4)
+    set()
+    """
     from scipy.spatial import cKDTree
 
     from ..analysis.neighbours import with_images
@@ -556,29 +577,71 @@ def _check_distances(crystal, p, block_name, labels):
     drop = set()
     if n < 1:
         return drop
-    pts, which = with_images(crystal.positions, crystal.cell, crystal.pbc, MIN_ATOM_DISTANCE)
+    name = getattr(p, "name", p)
+    occ = np.asarray(crystal.occupancy if crystal.occupancy is not None else np.ones(n), float)
+    nums = np.asarray(crystal.numbers)
+    lab_ids = {}
+    lab = np.array([lab_ids.setdefault(str(x), len(lab_ids)) for x in labels], np.int64)
+    # 1. exact repeats (same label, species, occupancy, position to 1e-6): merged by sorting, O(N log N)
+    frac = crystal.frac % 1.0
+    q = np.round(frac * 1e6).astype(np.int64) % 1_000_000
+    key = np.column_stack([lab, nums.astype(np.int64), np.round(occ * 1e6).astype(np.int64), q])
+    _, first = np.unique(key, axis=0, return_index=True)
+    keep0 = np.zeros(n, bool)
+    keep0[first] = True
+    drop.update(np.flatnonzero(~keep0).tolist())
+    live = np.flatnonzero(keep0)
+    # 2. the rest: each atom's neighbours within MIN_ATOM_DISTANCE (periodic images included)
+    pos = crystal.positions[live]
+    pts, which_l = with_images(pos, crystal.cell, crystal.pbc, MIN_ATOM_DISTANCE)
+    which = live[which_l]
     tree = cKDTree(pts)
-    occ = crystal.occupancy if crystal.occupancy is not None else np.ones(n)
-    nums = crystal.numbers
-    for i, lst in enumerate(tree.query_ball_point(crystal.positions, MIN_ATOM_DISTANCE)):
-        if i in drop:
+    dropped = ~keep0
+
+    def refuse(i, j, d):
+        what = (f"sites '{_clean(labels[i])[:30]}' and '{_clean(labels[j])[:30]}'" if j != i
+                else f"site '{_clean(labels[i])[:30]}' and its own symmetry image")
+        raise UserError(f"'{name}' block '{block_name}': {what} are {d:.3f} A apart after symmetry "
+                        f"expansion (below {MIN_ATOM_DISTANCE} A, no real structure); check the coordinates, "
+                        f"the space group, or give the occupancies of alternative positions")
+
+    for i in live.tolist():
+        if dropped[i]:
             continue
-        for b_ in lst:
-            j = int(which[b_])
-            d = float(np.linalg.norm(pts[b_] - crystal.positions[i]))
-            if j == i and d < 1e-9:
-                continue
-            if j != i and d < DUPLICATE_DISTANCE and nums[i] == nums[j] and abs(occ[i] - occ[j]) < 1e-6:
-                if j > i:
-                    drop.add(j)
-                continue
-            if j in drop or (occ[i] < 1 - 1e-6 and occ[j] < 1 - 1e-6):
-                continue
-            what = (f"sites '{_clean(labels[i])[:30]}' and '{_clean(labels[j])[:30]}'" if j != i
-                    else f"site '{_clean(labels[i])[:30]}' and its own symmetry image")
-            raise UserError(f"'{p.name}' block '{block_name}': {what} are {d:.3f} A apart after symmetry "
-                            f"expansion (below {MIN_ATOM_DISTANCE} A, no real structure); check the coordinates, "
-                            f"the space group, or give the occupancies of alternative positions")
+        lst = np.asarray(tree.query_ball_point(crystal.positions[i], MIN_ATOM_DISTANCE), np.int64)
+        j = which[lst]
+        d = np.linalg.norm(pts[lst] - crystal.positions[i], axis=1)
+        other = ~((j == i) & (d < 1e-9))
+        j, d = j[other], d[other]
+        near = (d < DUPLICATE_DISTANCE) & (j != i) & (nums[j] == nums[i]) & (np.abs(occ[j] - occ[i]) < 1e-6)
+        if near.any():
+            twin = near & (lab[j] != lab[i])
+            if twin.any() and listed_frac is not None:
+                df = listed_frac[j] - listed_frac[i]
+                df -= np.round(df)
+                same_line = np.linalg.norm(df @ crystal.cell, axis=1) < DUPLICATE_DISTANCE
+                twin &= same_line       # NaN (unknown) compares False: read once
+            elif listed_frac is None:
+                twin[:] = False
+            if twin.any():
+                k = int(np.argmax(twin))
+                jj = int(j[k])
+                raise UserError(f"'{name}' block '{block_name}': sites '{_clean(labels[i])[:30]}' and "
+                                f"'{_clean(labels[jj])[:30]}' are the same {crystal.symbols[i]} atom listed twice "
+                                f"under different names ({d[k]:.3f} A apart); remove one of them")
+            later = j[near & (j > i)]
+            dropped[later] = True
+            drop.update(later.tolist())
+        rest = ~near & ~dropped[j]
+        j, d = j[rest], d[rest]
+        if len(j) > MAX_CLOSE_ENTRIES:
+            raise UserError(f"'{name}' block '{block_name}': site '{_clean(labels[i])[:30]}' has {len(j):,} other "
+                            f"entries within {MIN_ATOM_DISTANCE} A (more than {MAX_CLOSE_ENTRIES}; no real structure); "
+                            f"check the coordinates")
+        full = ~((occ[i] < 1 - 1e-6) & (occ[j] < 1 - 1e-6))
+        if full.any():
+            k = int(np.argmax(full))
+            refuse(i, int(j[k]), float(d[k]))
     return drop
 
 

@@ -151,6 +151,96 @@ class _Builder:
         return b + b"\x00" * ((-len(b)) % 4)
 
 
+def estimate_bonds(points, radii, factor, sample=20_000, seed=0):
+    """Bonds (as in :func:`count_bonds`) estimated from the bonds per atom of
+    a random sample of ``sample`` atoms (exact when there are fewer atoms).
+
+    >>> estimate_bonds(np.array([[0., 0, 0], [2.5, 0, 0], [9, 0, 0]]), np.array([1.28] * 3), 1.05)
+    1
+    """
+    from scipy.spatial import cKDTree
+
+    points = np.asarray(points, float)
+    n = len(points)
+    if n <= sample:
+        return count_bonds(points, radii, factor)[0]
+    pick = np.random.default_rng(seed).choice(n, sample, replace=False)
+    values, which = np.unique(np.asarray(radii, float), return_inverse=True)
+    which = which.reshape(-1)
+    trees = [cKDTree(points[which == k]) for k in range(len(values))]
+    ends = 0
+    for a in range(len(values)):
+        mine = pick[which[pick] == a]
+        if len(mine) == 0:
+            continue
+        ta = cKDTree(points[mine])
+        for b in range(len(values)):
+            r = factor * (values[a] + values[b])
+            ends += int(ta.count_neighbors(trees[b], r)) - int(ta.count_neighbors(trees[b], 1e-6))
+    return int(round(ends / sample * n / 2))
+
+
+def count_bonds(points, radii, factor):
+    """(bonds, pairs within the largest bond length) of the atoms at
+    ``points``: a bond joins atoms with 1e-6 < d <= factor (r_i + r_j), as
+    in :func:`crystalview.mesh.printable.contact_pairs`.  Counted exactly by
+    dual-tree counts per pair of radius groups, without listing any pair, so
+    memory stays at the size of the points.
+
+    >>> count_bonds(np.array([[0., 0, 0], [2.5, 0, 0], [9, 0, 0]]), np.array([1.28] * 3), 1.05)
+    (1, 1)
+    """
+    from scipy.spatial import cKDTree
+
+    points = np.asarray(points, float)
+    if len(points) < 2:
+        return 0, 0
+    values, which = np.unique(np.asarray(radii, float), return_inverse=True)
+    which = which.reshape(-1)
+    trees = [cKDTree(points[which == k]) for k in range(len(values))]
+    total = 0
+    for a in range(len(values)):
+        for b in range(a, len(values)):
+            r = factor * (values[a] + values[b])
+            c = int(trees[a].count_neighbors(trees[b], r)) - int(trees[a].count_neighbors(trees[b], 1e-6))
+            total += c // 2 if a == b else c
+    whole = cKDTree(points)
+    r_max = 2.0 * float(values.max()) * factor
+    near = (int(whole.count_neighbors(whole, r_max)) - len(points)) // 2
+    return total, near
+
+
+def _bond_list(points, radii, factor):
+    """The bonds of :func:`count_bonds` as an (M, 2) array, listed per pair
+    of radius groups so no pair longer than its own bond is ever held.
+
+    >>> _bond_list(np.array([[0., 0, 0], [2.5, 0, 0], [9, 0, 0]]), np.array([1.28] * 3), 1.05).tolist()
+    [[0, 1]]
+    """
+    from scipy.spatial import cKDTree
+
+    points = np.asarray(points, float)
+    values, which = np.unique(np.asarray(radii, float), return_inverse=True)
+    which = which.reshape(-1)
+    idx = [np.flatnonzero(which == k) for k in range(len(values))]
+    trees = [cKDTree(points[i]) for i in idx]
+    out = []
+    for a in range(len(values)):
+        for b in range(a, len(values)):
+            r = factor * (values[a] + values[b])
+            if a == b:
+                pr = trees[a].query_pairs(r, output_type="ndarray")
+            else:
+                m = trees[a].sparse_distance_matrix(trees[b], r, output_type="ndarray")
+                pr = np.stack([m["i"], m["j"]], axis=1) if len(m) else np.zeros((0, 2), np.int64)
+            if len(pr):
+                p0, p1 = idx[a][pr[:, 0]], idx[b][pr[:, 1]]
+                d = np.linalg.norm(points[p0] - points[p1], axis=1)
+                ok = d > 1e-6
+                out.append(np.stack([np.minimum(p0, p1), np.maximum(p0, p1)], axis=1)[ok])
+    return np.vstack(out) if out else np.zeros((0, 2), np.int64)
+
+
 def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing="auto", max_instances=MAX_INSTANCES,
                   cell_shape=None):
     """(json dict, binary buffer bytes) for the crystal.  One conventional
@@ -201,7 +291,22 @@ def gltf_document(crystal, style="ball-and-stick", real_scale=False, instancing=
         raise LimitError(f"the file would hold about {len(pts) * 7:,} atoms and bonds (12 neighbours per atom), over "
                          f"the cap of {max_instances:,}; export fewer cells or use style space-filling")
     if style == "ball-and-stick":
-        bonds, _ = contact_pairs(pts, radii, 1.05)
+        est = estimate_bonds(pts, radii, 1.05)
+        if len(pts) + est > 2 * max_instances:
+            # clearly over: a sample's bonds per atom tells it in a fraction of the exact count's time
+            raise LimitError(f"the file would hold about {len(pts) + est:,} atoms and bonds (about "
+                             f"{est / len(pts):.1f} bonds per atom), over the cap of {max_instances:,}; export "
+                             f"fewer cells or use style space-filling")
+        n_bonds, n_near = count_bonds(pts, radii, 1.05)
+        if len(pts) + n_bonds > max_instances:
+            # counted exactly, without listing them: refused before any pair list is allocated
+            raise LimitError(f"the file would hold {len(pts) + n_bonds:,} atoms and bonds ({n_bonds:,} bonds, "
+                             f"{n_bonds / len(pts):.1f} per atom), over the cap of {max_instances:,}; export "
+                             f"fewer cells or use style space-filling")
+        if n_near <= 4 * max_instances:
+            bonds, _ = contact_pairs(pts, radii, 1.05)
+        else:
+            bonds = _bond_list(pts, radii, 1.05)
     n_inst = len(pts) + len(bonds)
     if n_inst > max_instances:
         raise LimitError(f"the file would hold {n_inst:,} atoms and bonds, over the cap of {max_instances:,}; "
