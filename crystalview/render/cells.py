@@ -218,6 +218,41 @@ def prism_candidates(crystal, planes, radii):
     return np.vstack(pts), np.concatenate(idx)
 
 
+def _oblique_candidates(L, pts, radius, max_index, elevation, mirror_every, off_mirror):
+    """Low-index directions [uvw] (w > 0) of the cell ``L`` seen with its c
+    axis up: ``elevation`` degrees above the base, at least ``off_mirror``
+    degrees from the mirror planes every ``mirror_every`` degrees about c.
+    Yields (uvw, smallest distance between the points ``pts`` on the page in
+    units of ``radius``).
+
+    >>> pts = np.array([[0.0, 0, 0], [1.8, 1.8, 0], [1.8, 0, 1.8], [0, 1.8, 1.8]])
+    >>> uvw, sep = next(_oblique_candidates(np.eye(3) * 3.6, pts, 1.28, 3, (12.0, 28.0), 45.0, 8.0))
+    >>> uvw, round(sep, 2)
+    ((-3, -2, 1), 0.65)
+    """
+    cz = L[2] / np.linalg.norm(L[2])
+    ax = L[0] / np.linalg.norm(L[0])
+    rng = range(-max_index, max_index + 1)
+    for uvw in itertools.product(rng, rng, rng):
+        if uvw == (0, 0, 0) or np.gcd.reduce(np.abs(uvw)) != 1 or uvw[2] <= 0:
+            continue
+        t = np.array(uvw, float) @ L
+        t /= np.linalg.norm(t)
+        el = np.degrees(np.arcsin(np.clip(t @ cz, -1, 1)))
+        if not (elevation[0] <= el <= elevation[1]):
+            continue
+        flat = t - (t @ cz) * cz
+        az = np.degrees(np.arctan2(np.cross(ax, flat) @ cz, ax @ flat)) % mirror_every
+        if min(az, mirror_every - az) < off_mirror:
+            continue                              # along a mirror: back atoms hide behind front ones
+        up = cz - (t @ cz) * t
+        up /= np.linalg.norm(up)
+        right = np.cross(up, t)
+        q = np.stack([pts @ right, pts @ up], axis=1)
+        d = np.linalg.norm(q[:, None] - q[None], axis=2) + np.eye(len(q)) * 1e9
+        yield uvw, float(d.min()) / radius
+
+
 def best_prism_view(crystal, max_index=5, elevation=(15.0, 30.0), apart=0.76):
     """A low-index view of the prism with the c axis up that looks a little
     down on it, off its mirror planes, with all its atoms apart on the page
@@ -232,28 +267,8 @@ def best_prism_view(crystal, max_index=5, elevation=(15.0, 30.0), apart=0.76):
     pa = PrismAtoms(crystal)
     L = np.asarray(crystal.lattice.cell, float)
     R = float(np.min(crystal.atom_radii()))
-    cz = L[2] / np.linalg.norm(L[2])
-    ax = L[0] / np.linalg.norm(L[0])
     best = None
-    rng = range(-max_index, max_index + 1)
-    for uvw in itertools.product(rng, rng, rng):
-        if uvw == (0, 0, 0) or np.gcd.reduce(np.abs(uvw)) != 1 or uvw[2] <= 0:
-            continue
-        t = np.array(uvw, float) @ L
-        t /= np.linalg.norm(t)
-        el = np.degrees(np.arcsin(t @ cz))
-        if not (elevation[0] <= el <= elevation[1]):
-            continue
-        up = cz - (t @ cz) * t
-        up /= np.linalg.norm(up)
-        right = np.cross(up, t)
-        flat = t - (t @ cz) * cz
-        az = np.degrees(np.arctan2(np.cross(ax, flat) @ cz, ax @ flat)) % 30.0
-        if min(az, 30.0 - az) < 5.0:
-            continue                              # along a mirror: back atoms hide behind front ones
-        q = np.stack([pa.positions @ right, pa.positions @ up], axis=1)
-        d = np.linalg.norm(q[:, None] - q[None], axis=2) + np.eye(len(q)) * 1e9
-        sep = float(d.min()) / R
+    for uvw, sep in _oblique_candidates(L, pa.positions, R, max_index, elevation, 30.0, 5.0):
         lab = format_indices(miller_to_mb_direction(uvw))
         score = (sep >= apart, -len(lab), round(sep, 2), uvw[0] - uvw[1], -abs(uvw[0]))
         if best is None or score > best[0]:
@@ -307,28 +322,8 @@ def oblique_cell_view(crystal, max_index=5, elevation=(12.0, 28.0), apart=0.6):
     pts = np.vstack([crystal.positions, (frac[idx] + shifts) @ np.asarray(crystal.cell, float)]) \
         if len(idx) else np.asarray(crystal.positions, float)
     R = float(np.min(crystal.atom_radii()))
-    cz = L[2] / np.linalg.norm(L[2])
-    ax = L[0] / np.linalg.norm(L[0])
     best = None
-    rng = range(-max_index, max_index + 1)
-    for uvw in itertools.product(rng, rng, rng):
-        if uvw == (0, 0, 0) or np.gcd.reduce(np.abs(uvw)) != 1 or uvw[2] <= 0:
-            continue
-        t = np.array(uvw, float) @ L
-        t /= np.linalg.norm(t)
-        el = np.degrees(np.arcsin(np.clip(t @ cz, -1, 1)))
-        if not (elevation[0] <= el <= elevation[1]):
-            continue
-        flat = t - (t @ cz) * cz
-        az = np.degrees(np.arctan2(np.cross(ax, flat) @ cz, ax @ flat)) % 45.0
-        if min(az, 45.0 - az) < 8.0:
-            continue                              # along a mirror: faces edge-on, back atoms behind front ones
-        up = cz - (t @ cz) * t
-        up /= np.linalg.norm(up)
-        right = np.cross(up, t)
-        q = np.stack([pts @ right, pts @ up], axis=1)
-        d = np.linalg.norm(q[:, None] - q[None], axis=2) + np.eye(len(q)) * 1e9
-        sep = float(d.min()) / R
+    for uvw, sep in _oblique_candidates(L, pts, R, max_index, elevation, 45.0, 8.0):
         lab = format_indices(uvw)
         # looking from the front right: +x toward the viewer's right, y receding
         score = (sep >= apart, -sum(abs(x) for x in uvw), round(sep, 2), uvw[0] > 0 > uvw[1], uvw)
