@@ -17,6 +17,7 @@ from crystalview import palette
 from crystalview.render import draw2d as D
 from crystalview.render import figure as F
 from crystalview.render import scene_graph as G
+from test_figures_marks import _near  # the same pixel test as the VTK figures (tests/ is on the path)
 
 MM_PER_IN = 25.4          # source: the international inch, defined as exactly 25.4 mm (1959)
 
@@ -38,19 +39,6 @@ def _layout_as_render(scene, width_mm=85.0, dpi=200):
     """The layout cv.render makes for ``width`` at ``dpi`` (text 8 pt)."""
     size, w = F.figure_size(None, f"{width_mm}mm", None, dpi)
     return F.make_layout(scene, size, dpi=dpi, font_pt=8, width_mm=w)
-
-
-def _near(img, pts, hexc, tol=90):
-    """Share of the points (pixels) whose 3x3 neighbourhood holds the colour ``hexc``."""
-    rgb = np.array(palette.hex_to_rgb(hexc)) * 255
-    H, W = img.shape[:2]
-    hit = 0
-    for x, y in pts:
-        x, y = int(round(x)), int(round(y))
-        assert 0 <= x < W and 0 <= y < H, (x, y, W, H)            # inside the frame
-        patch = img[max(0, y - 1):y + 2, max(0, x - 1):x + 2, :3].reshape(-1, 3).astype(float)
-        hit += bool((np.abs(patch - rgb).sum(axis=1) < tol).any())
-    return hit / max(len(pts), 1)
 
 
 def test_small_png_is_drawn_by_cairo_without_vtk(tmp_path):
