@@ -584,7 +584,7 @@ def _triangulate_and_reduce(crystal, n, pad, pad0, pts_t, _idx_t, tree, margin, 
         cuts = lo_e[k] + (hi_e[k] - lo_e[k]) * np.arange(nsl + 1) / nsl
         cuts[0], cuts[-1] = -np.inf, np.inf
         geo = dict(pts=pts, pert=pert, fpts=fpts, rad=rad, inv=inv, pbc=pbc, h=h, lo_e=lo_e, hi_e=hi_e, k=k,
-                   equal=equal, channels=channels, cell=cell)
+                   equal=equal, channels=channels, cell=cell, pad=max(pad, 0.0), s=s, tree=tree)
         if pb is None:
             pb = stack.enter_context(bar(f"hole analysis of {n:,} atoms: triangulating", nsl + 1))
         # each slab is checked on its own: one whose overlap was too thin is
@@ -750,6 +750,35 @@ def _own_q(f, hk):
     return np.nan_to_num(q, nan=-np.inf)
 
 
+def _circumspheres(G, pts):
+    """Circumsphere (radius, centre) of each tetrahedron ``G`` (T, 4) of
+    ``pts``; a flat one (four atoms on one plane, split apart only by the
+    jitter) has none of its own, radius -inf: its atoms lie on the spheres
+    of its neighbours, which are counted."""
+    T = len(G)
+    rho_c = np.empty(T)
+    cc = np.empty((T, 3))
+    for a in range(0, T, _CHUNK):
+        g = G[a:a + _CHUNK]
+        c0 = pts[g[:, 0]]
+        z = np.zeros(len(g))
+        y, rr, okc = tangent_spheres(c0, pts[g[:, 1]] - c0, pts[g[:, 2]] - c0, pts[g[:, 3]] - c0, z, z, z, z,
+                                     weighted=False)
+        rho_c[a:a + _CHUNK] = np.where(okc, rr, -np.inf)
+        cc[a:a + _CHUNK] = c0 + y
+    return rho_c, cc
+
+
+def _depth(f, h, pbc):
+    """Distance (A) of fractional points ``f`` inside the cell along its
+    periodic axes (negative beyond a face; +inf with no periodic axis)."""
+    depth = np.full(len(f), np.inf)
+    for ax in range(3):
+        if pbc[ax]:
+            depth = np.minimum(depth, h[ax] * np.minimum(f[:, ax], 1 - f[:, ax]))
+    return depth
+
+
 def _slab(geo, cut_lo, cut_hi, margin):
     """Triangulate one slab and reduce it to the tetrahedra whose centres it
     owns (plus the flat ones that join them), with what the holes and
@@ -803,6 +832,34 @@ def _slab(geo, cut_lo, cut_hi, margin):
         fck[a:a + _CHUNK] = f[:, k]
     if T:
         del g, c0, y, rr, kk, cc, f, e
+    art_hit = False
+    if not geo["equal"]:
+        # with mixed radii a tetrahedron is kept by its tangent centre, which
+        # for a nearly flat one of unequal atoms can lie far from it: slivers
+        # on the outer surface of the padded points then count as kept, and
+        # the next padding has new ones (a molecular hydrate asked for 54, 76,
+        # 53, then 646 A).  Their circumspheres (what makes a tetrahedron a
+        # Delaunay one) are measured here, and a kept one whose circumsphere
+        # reaches past the padding and holds an atom of the crystal is no
+        # Delaunay tetrahedron of the crystal at all: it is dropped.  Once the
+        # padding suffices no kept tetrahedron reaches past it, so nothing is
+        # dropped where the analysis settled before.
+        rho_c, cc_all = _circumspheres(G, pts)
+        fcc = _frac(cc_all, inv)
+        past = rho_c - _depth(fcc, h, pbc)
+        cand = np.nonzero(inE & np.isfinite(rho_c) & (past > geo["pad"] * (1 + 1e-12) + 1e-12))[0]
+        if len(cand):
+            fw = np.where(pbc, fcc[cand] - np.floor(fcc[cand]), fcc[cand])
+            dn, _ = geo["tree"].query(_cart(fw, geo["cell"]), k=1)
+            art = cand[dn < rho_c[cand] * (1 - 1e-9) - 1e-9]
+            # kept tetrahedra beside a dropped one: their neighbour there is not the crystal's, so the
+            # padding must grow (flagged below)
+            art_mask = np.zeros(T, bool)
+            art_mask[art] = True
+            inE[art] = False
+            art_hit = bool(len(art))
+        fck_c = fcc[:, k].copy()
+        del fcc, past
     # a tetrahedron belongs to the slab of its centre, read on the grid of
     # _OWN_Q A along the slab axis: the tetrahedra of one degenerate hole
     # (same centre but for rounding) then all go to the same slab, even when
@@ -860,26 +917,13 @@ def _slab(geo, cut_lo, cut_hi, margin):
     if geo["equal"]:
         rho_c, fck_c, fo_c = rho, fck, fo
     else:
-        rho_c = np.empty(T)
-        cc_own = np.empty((T, 3))
-        for a in range(0, T, _CHUNK):
-            g = G[a:a + _CHUNK]
-            c0 = pts[g[:, 0]]
-            z = np.zeros(len(g))
-            y, rr, okc = tangent_spheres(c0, pts[g[:, 1]] - c0, pts[g[:, 2]] - c0, pts[g[:, 3]] - c0, z, z, z, z,
-                                         weighted=False)
-            # a flat tetrahedron (four atoms on one plane, split apart only by the jitter) has no
-            # circumsphere of its own: its atoms lie on the spheres of its neighbours, which are counted
-            rho_c[a:a + _CHUNK] = np.where(okc, rr, -np.inf)
-            cc_own[a:a + _CHUNK] = c0 + y
-        fck_c = _frac(cc_own, inv)[:, k] if T else np.zeros(0)
-        fo_c = _frac(cc_own[own_idx], inv)
-        del cc_own
-    depth = np.full(n_own, np.inf)
-    for ax in range(3):
-        if pbc[ax]:
-            depth = np.minimum(depth, h[ax] * np.minimum(fo_c[:, ax], 1 - fo_c[:, ax]))
-    need_pad = float(np.max(rho_c[own_idx] - depth)) if n_own else -np.inf
+        fo_c = _frac(cc_all[own_idx], inv)
+        del cc_all
+    need_pad = float(np.max(rho_c[own_idx] - _depth(fo_c, h, pbc))) if n_own else -np.inf
+    if art_hit and n_own and np.any(valid & art_mask[nbs]):
+        need_pad = max(need_pad, float(geo["pad"]) + float(geo["s"]))
+    if art_hit:
+        del art_mask
     # overlap: how far the sphere of every tetrahedron used (kept, or beside a
     # kept one) reaches beyond the slab
     ex = np.maximum(np.where(np.isfinite(cut_hi), (fck_c - cut_hi) * h[k] + rho_c, -np.inf),
@@ -1066,7 +1110,8 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
             sl = slice(a0, a0 + 4 * _QUERY_CHUNK)
             # only atoms nearer than r + their radius can lower r: the query stops there
             reach_r = (float(np.max(r[sl])) + float(radii_atoms.max())) * (1 + 1e-9) + 1e-6
-            dq, jq = tree.query(wc[sl], k=kq, distance_upper_bound=reach_r, workers=_workers(2))
+            dq, jq = _query_surfaces(tree, wc[sl], kq, reach_r, idx_t, radii_atoms,
+                                     lambda sk: np.minimum(r[sl], sk.min(axis=1)))
             rk[sl] = np.minimum(r[sl], (dq - radii_atoms[idx_t[np.minimum(jq, len(idx_t) - 1)]]).min(axis=1))
             del dq, jq
         lengths = np.linalg.norm(cell, axis=1)
@@ -1146,6 +1191,9 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     is_max = np.zeros(ng, bool)
     if good.any():
         is_max[gid_kept[good]] = True
+    # a point inside an atom is no hole (with mixed radii the tangent centre of
+    # a sliver between small and large atoms can fall inside a large one)
+    is_max &= g_r > 0
     del good, V, wc, r, rk, rep       # what the channels need is nb, group, canon and the parts
     if not equal:
         del centre, wrapped
@@ -1192,6 +1240,13 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
             nbr_all[sl, :w] = np.where(bound[:, :w], idx_t[np.minimum(j[:, :w], len(idx_t) - 1)], -1)
             del j
         else:
+            # a large atom can come nearer (surface to surface) than the nearest small ones (centre to
+            # centre): the query is widened until every atom that could bound the hole is in it
+            d, j = _query_surfaces(tree, g_pos[maxg[sl]], kq, reach_q, idx_t, radii_atoms,
+                                   lambda sk: np.minimum(gq, sk.min(axis=1)) + tolerance * rmean_all, d, j)
+            if d.shape[1] > nbr_all.shape[1]:
+                nbr_all = np.concatenate([nbr_all, np.full((M, d.shape[1] - nbr_all.shape[1]), -1,
+                                                           nbr_all.dtype)], axis=1)
             aj = idx_t[np.minimum(j, len(idx_t) - 1)]
             del j
             ra = radii_atoms[aj]
@@ -1203,7 +1258,8 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
             nc = bound.sum(1)
             rbar[sl] = np.where(bound, ra, 0.0).sum(1) / np.maximum(nc, 1)
             srt = np.argsort(~bound, axis=1, kind="stable")
-            nbr_all[sl] = np.take_along_axis(np.where(bound, aj, -1), srt, axis=1)
+            nbr_all[sl, :bound.shape[1]] = np.take_along_axis(np.where(bound, aj, -1), srt, axis=1)
+            nbr_all[sl, bound.shape[1]:] = -1
             del srt, aj, ra
         g_r_max[sl], ncont[sl] = gm, nc
         del bound
@@ -1228,6 +1284,41 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     method = ("exact tangent spheres of the Delaunay tetrahedra (scipy/Qhull), periodic images, "
               + ("equal radii" if equal else "per-atom radii") + "; maxima only")
     return Voids(g_pos[maxg], g_r_max, kinds, nbr_atoms, ratio, ch, bn, method, n)
+
+
+def _query_surfaces(tree, X, k, upper, idx_t, radii_atoms, limit, d=None, j=None):
+    """Nearest atoms of points ``X`` (centre distances ``d``, tree rows
+    ``j``, sorted by distance, padded with inf), as many per row as it takes
+    to hold every atom whose surface distance (d minus its radius) is at
+    most ``limit(slack)`` of that row: an atom beyond the last one listed is
+    at least its distance less the largest radius away.  With mixed radii a
+    large atom can be nearer, surface to surface, than the k nearest centres
+    (the holes of a hydrate among many H atoms were reported 0.38 A too big).
+
+    >>> from scipy.spatial import cKDTree
+    >>> pts = np.array([[0.5 * i, 0, 0] for i in range(1, 5)] + [[0, 3.0, 0]])
+    >>> rad = np.array([0.1, 0.1, 0.1, 0.1, 2.9])
+    >>> d, j = _query_surfaces(cKDTree(pts), np.zeros((1, 3)), 2, 10.0, np.arange(5), rad, lambda s: s.min(axis=1))
+    >>> float((d - rad[j]).min().round(3))
+    0.1
+    """
+    n = tree.n
+    if d is None:
+        d, j = tree.query(X, k=k, distance_upper_bound=upper, workers=_workers(2))
+    d, j = d.reshape(len(X), -1), j.reshape(len(X), -1)
+    rmax = float(radii_atoms.max())
+    while True:
+        slack = d - radii_atoms[idx_t[np.minimum(j, len(idx_t) - 1)]]
+        more = np.isfinite(d[:, -1]) & (d[:, -1] - rmax <= limit(slack))
+        del slack
+        k = d.shape[1]
+        if not more.any() or k >= n:
+            return d, j
+        k2 = min(2 * k, n)
+        d2, j2 = tree.query(X[more], k=k2, distance_upper_bound=upper, workers=_workers(2))
+        d = np.concatenate([d, np.full((len(X), k2 - k), np.inf)], axis=1)
+        j = np.concatenate([j, np.full((len(X), k2 - k), n, j.dtype)], axis=1)
+        d[more], j[more] = d2.reshape(-1, k2), j2.reshape(-1, k2)
 
 
 def _representatives(o, new, rr, canon):
@@ -1265,7 +1356,11 @@ def _channels(parts, offs_flat, K, NR, nb, group, gid_kept, is_max, canon):
     key_parts, width_parts = [], []
 
     def add(g1, g2, w):
-        g1, g2 = g1.astype(np.int64), g2.astype(np.int64)
+        # a passage through atoms that overlap across it (bonded atoms of
+        # covalent radii) is no channel; one where they just touch (width 0
+        # but for rounding) stays, as it always was
+        keep = w > -1e-9
+        g1, g2, w = g1[keep].astype(np.int64), g2[keep].astype(np.int64), w[keep]
         key_parts.append(np.minimum(g1, g2) * ng + np.maximum(g1, g2))
         width_parts.append(w)
 
@@ -1343,48 +1438,109 @@ def _widest(P, W):
 
 
 def _contract(P, W, is_max):
-    """Link maximum holes through non-maximum points: passage = narrower step."""
+    """Link maximum holes through non-maximum points.
+
+    A cluster of non-maximum points belongs to the hole it opens into most
+    widely: the pairs are taken widest first (Kruskal's order on a
+    union-find), and a cluster joins the one hole its widest passage leads
+    to; a passage between two parts that each hold a hole is a channel of
+    its width.  Where a cluster opens equally widely (to 1e-9 A) into
+    several holes (mirror images), it joins all of them, and what it meets
+    later is linked to each, so that symmetric holes get symmetric channels
+    whatever their numbering.  Between any two holes the widest path (the
+    largest sphere that can pass) is the same as when every pair of holes
+    around a non-maximum point is linked through it at the narrower step,
+    but a network of such points (a molecular crystal of mixed radii) no
+    longer links every hole with every other.
+
+    >>> P = np.array([[0, 2], [1, 2], [2, 3]]); W = np.array([0.5, 0.4, 0.3])
+    >>> Q, V = _contract(P, W, np.array([True, True, False, True]))
+    >>> Q.tolist(), V.tolist()
+    ([[0, 1], [0, 3]], [0.4, 0.3])
+    """
     nonmax = ~is_max
     touch = nonmax[P[:, 0]] | nonmax[P[:, 1]]
     direct_P, direct_W = P[~touch], W[~touch]
-    adj = {}
-    for (x, y), w in zip(P[touch].tolist(), W[touch].tolist()):
-        adj.setdefault(x, {})
-        adj.setdefault(y, {})
-        adj[x][y] = max(adj[x].get(y, -np.inf), w)
-        adj[y][x] = max(adj[y].get(x, -np.inf), w)
-    for sid in [k for k in list(adj) if nonmax[k]]:
-        nbrs = adj.pop(sid, {})
-        items = [(k, w) for k, w in nbrs.items() if k != sid]
-        for k, _ in items:
-            adj[k].pop(sid, None)
-        for ai in range(len(items)):
-            for bi in range(ai + 1, len(items)):
-                (x, wx), (y, wy) = items[ai], items[bi]
-                w = min(wx, wy)
-                if w > adj[x].get(y, -np.inf):
-                    adj[x][y] = w
-                    adj[y][x] = w
-    extra = [(x, y, w) for x, d in adj.items() for y, w in d.items() if x < y]
-    if extra:
-        EP = np.array([[x, y] for x, y, _ in extra], np.int64)
-        EW = np.array([w for _, _, w in extra])
-        if len(direct_P) == 0:
-            return _widest(EP, EW)
-        # the direct pairs are unique and sorted already: merge the few new ones in
-        ng = int(max(direct_P.max(), EP.max())) + 1
-        dk = direct_P[:, 0].astype(np.int64) * ng + direct_P[:, 1]
-        if np.all(dk[1:] > dk[:-1]):
-            ek, EW = _widest_keys(EP[:, 0] * ng + EP[:, 1], EW, ng)
-            ek = ek[:, 0] * ng + ek[:, 1]
-            at = np.searchsorted(dk, ek)
-            hit = at < len(dk)
-            hit[hit] = dk[at[hit]] == ek[hit]
-            W = direct_W.copy()
-            np.maximum.at(W, at[hit], EW[hit])
-            keys = np.insert(dk, at[~hit], ek[~hit])
-            return _pairs_of(keys, ng), np.insert(W, at[~hit], EW[~hit])
-        P = np.vstack([direct_P, EP])
-        W = np.concatenate([direct_W, EW])
-        return _widest(P, W)
-    return direct_P, direct_W
+    TP, TW = P[touch], W[touch]
+    if len(TP) == 0:
+        return direct_P, direct_W
+    WR = np.round(TW, 9)
+    order = np.argsort(-WR, kind="stable")
+    TP, TW, WR = TP[order].tolist(), TW[order].tolist(), WR[order]
+    cut = np.flatnonzero(np.r_[True, WR[1:] != WR[:-1], True]).tolist()
+    parent = {}
+    hubs = {}                  # root of a non-maximum part that opens equally into several holes -> those holes
+
+    def find(x):
+        root = x
+        while parent.get(root, root) != root:
+            root = parent[root]
+        while parent.get(x, x) != root:           # path compression
+            parent[x], x = root, parent[x]
+        return root
+
+    def owners(r):
+        return (r,) if is_max[r] else hubs.get(r, ())
+
+    ex, ey, ew = [], [], []
+
+    def link(A, B, w):
+        for a in A:
+            for b in B:
+                if a != b:
+                    ex.append(min(a, b))
+                    ey.append(max(a, b))
+                    ew.append(w)
+
+    for b0, b1 in zip(cut[:-1], cut[1:]):
+        # one width: parts with holes are linked; parts without any (fresh) are
+        # joined with each other, then to what they touch
+        fresh_edges, touches = [], []
+        for (x, y), w in zip(TP[b0:b1], TW[b0:b1]):
+            rx, ry = find(x), find(y)
+            if rx == ry:
+                continue
+            ox, oy = owners(rx), owners(ry)
+            if ox and oy:
+                link(ox, oy, w)
+            elif ox or oy:
+                touches.append((ry, rx, w) if ox else (rx, ry, w))
+            else:
+                fresh_edges.append((rx, ry))
+        for rx, ry in fresh_edges:
+            a, b = find(rx), find(ry)
+            if a != b:
+                parent[max(a, b)] = min(a, b)
+        met = {}
+        for f, o, w in touches:
+            d = met.setdefault(find(f), {})
+            d[o] = max(d.get(o, -np.inf), w)
+        for f, d in met.items():
+            parts = sorted(d)
+            if len(parts) == 1:
+                parent[f] = parts[0]               # opens into one hole (or one group of tied holes)
+                continue
+            for i in range(len(parts)):
+                for j in range(i + 1, len(parts)):
+                    link(owners(parts[i]), owners(parts[j]), min(d[parts[i]], d[parts[j]]))
+            hubs[f] = tuple(sorted({a for p in parts for a in owners(p)}))
+    if not ex:
+        return direct_P, direct_W
+    EP = np.column_stack([np.array(ex, np.int64), np.array(ey, np.int64)])
+    EW = np.array(ew)
+    if len(direct_P) == 0:
+        return _widest(EP, EW)
+    # the direct pairs are unique and sorted already: merge the new ones in
+    ng = int(max(direct_P.max(), EP.max())) + 1
+    dk = direct_P[:, 0].astype(np.int64) * ng + direct_P[:, 1]
+    if np.all(dk[1:] > dk[:-1]):
+        ek, EW = _widest_keys(EP[:, 0] * ng + EP[:, 1], EW, ng)
+        ek = ek[:, 0] * ng + ek[:, 1]
+        at = np.searchsorted(dk, ek)
+        hit = at < len(dk)
+        hit[hit] = dk[at[hit]] == ek[hit]
+        W = direct_W.copy()
+        np.maximum.at(W, at[hit], EW[hit])
+        keys = np.insert(dk, at[~hit], ek[~hit])
+        return _pairs_of(keys, ng), np.insert(W, at[~hit], EW[~hit])
+    return _widest(np.vstack([direct_P, EP]), np.concatenate([direct_W, EW]))
