@@ -16,7 +16,7 @@ Method (documented in docs/sections/sites-and-fit.md):
 4. A hole is kept when it is a maximum of the empty-sphere function: its
    centre lies inside the union of its tetrahedra (centres on the outer
    surface of that union are saddles, e.g. the old octahedral site beside a
-   vacancy).  A flat tetrahedron (four atoms on one circle, which Qhull's
+   vacancy), and not inside an atom.  A flat tetrahedron (four atoms on one circle, which Qhull's
    rounding sometimes leaves between two halves of one cell) is seen
    through.  Every kept hole is checked against all nearby atoms, so the
    radius reported is always a true free radius at the reported position.
@@ -28,9 +28,11 @@ Method (documented in docs/sections/sites-and-fit.md):
    the narrowest passage is the tangent circle of the three atoms in their
    plane (by mirror symmetry the empty-sphere function along the path
    between the two holes is smallest there) when the two hole centres lie on
-   opposite sides of that plane, else the smaller of the two holes.  Holes
-   joined through non-maximum points are linked through them (the passage is
-   the narrower of the two steps).  Between two holes the widest of their
+   opposite sides of that plane, else the smaller of the two holes; a
+   passage through overlapping atoms is none.  A cluster of non-maximum
+   points belongs to the hole it opens into most widely (to each, where
+   openings tie), and what it meets further is linked to that hole at the
+   narrower step (:func:`_contract`).  Between two holes the widest of their
    passages is kept: the bottleneck radius of the channel.
 
 With mixed radii the exact tangent spheres are solved on the ordinary
@@ -584,7 +586,8 @@ def _triangulate_and_reduce(crystal, n, pad, pad0, pts_t, _idx_t, tree, margin, 
         cuts = lo_e[k] + (hi_e[k] - lo_e[k]) * np.arange(nsl + 1) / nsl
         cuts[0], cuts[-1] = -np.inf, np.inf
         geo = dict(pts=pts, pert=pert, fpts=fpts, rad=rad, inv=inv, pbc=pbc, h=h, lo_e=lo_e, hi_e=hi_e, k=k,
-                   equal=equal, channels=channels, cell=cell, pad=max(pad, 0.0), s=s, tree=tree)
+                   equal=equal, channels=channels, cell=cell, pad=max(pad, 0.0), s=s, tree=tree,
+                   rmax=float(radii_atoms.max()))
         if pb is None:
             pb = stack.enter_context(bar(f"hole analysis of {n:,} atoms: triangulating", nsl + 1))
         # each slab is checked on its own: one whose overlap was too thin is
@@ -918,7 +921,13 @@ def _slab(geo, cut_lo, cut_hi, margin):
         rho_c, fck_c, fo_c = rho, fck, fo
     else:
         fo_c = _frac(cc_all[own_idx], inv)
-        del cc_all
+        # no atom centre lies inside the circumsphere of a Delaunay tetrahedron, so no atom can come
+        # nearer the tangent centre (surface to surface) than its own four when
+        #     rho_c - |tangent centre - circumcentre| - r >= the largest radius
+        # (every all-host tetrahedron of a solid solution): its free radius needs no query
+        dl = centre[own_idx] - cc_all[own_idx]
+        rk_safe = rho_c[own_idx] - np.sqrt(_dot(dl, dl)) - r[own_idx] >= geo["rmax"] - 1e-9
+        del cc_all, dl
     need_pad = float(np.max(rho_c[own_idx] - _depth(fo_c, h, pbc))) if n_own else -np.inf
     if art_hit and n_own and np.any(valid & art_mask[nbs]):
         need_pad = max(need_pad, float(geo["pad"]) + float(geo["s"]))
@@ -947,10 +956,12 @@ def _slab(geo, cut_lo, cut_hi, margin):
     del nbr, nbl, valid, nbs, pend, touch, rowmap
     if not geo["equal"]:
         out["centre"] = centre[own_idx]
+        out["rk_safe"] = rk_safe
         out["wrapped"] = wrapped
     del wrapped
-    # union test of step 4 (equal radii: the point tested is the tetrahedron's own centre)
-    if geo["equal"] and n_own:
+    # union test of step 4 at the tetrahedron's own centre (with mixed radii the point tested is the
+    # representative's centre, which is this one's unless its hole has other tetrahedra: those are redone)
+    if n_own:
         inside = np.empty(n_own, bool)
         on_face = np.empty((n_own, 4), bool)
         for a0 in range(0, n_own, _CHUNK):
@@ -1038,6 +1049,7 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
     if not equal:
         centre = np.empty((K, 3))
         wrapped = np.empty((K, 3))
+        rk_safe = np.empty(K, bool)
     # neighbours owned by another slab: matched by their four atoms (sorted keys)
     pend = [(j, p) for j, p in enumerate(parts) if len(p["pend_rows"])]
     found = None
@@ -1068,6 +1080,7 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
         canon[so] = p.pop("canon")
         if not equal:
             centre[so] = p.pop("centre")
+            rk_safe[so] = p.pop("rk_safe")
             wrapped[so] = p.pop("wrapped")
         loc = p.pop("nb")
         g = np.where(loc >= 0, glob(p, j, np.maximum(loc, 0)), -1)
@@ -1106,27 +1119,41 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
         from scipy.sparse.csgraph import connected_components
 
         rk = np.array(r)
-        for a0 in range(0, K, 4 * _QUERY_CHUNK):       # in chunks: (K, kq) arrays are large
-            sl = slice(a0, a0 + 4 * _QUERY_CHUNK)
+        ask = np.flatnonzero(~rk_safe)          # the tetrahedra whose free radius another atom may lower
+        del rk_safe
+        for a0 in range(0, len(ask), 4 * _QUERY_CHUNK):       # in chunks: (K, kq) arrays are large
+            sl = ask[a0:a0 + 4 * _QUERY_CHUNK]
             # only atoms nearer than r + their radius can lower r: the query stops there
             reach_r = (float(np.max(r[sl])) + float(radii_atoms.max())) * (1 + 1e-9) + 1e-6
             dq, jq = _query_surfaces(tree, wc[sl], kq, reach_r, idx_t, radii_atoms,
                                      lambda sk: np.minimum(r[sl], sk.min(axis=1)))
             rk[sl] = np.minimum(r[sl], (dq - radii_atoms[idx_t[np.minimum(jq, len(idx_t) - 1)]]).min(axis=1))
             del dq, jq
+        del ask
+        # tangent centres closer than a quarter of the smallest radius are one
+        # hole: the pairs are sought among the 1e-5 A cells (one point each, the
+        # lowest row; the rows of a cell lie within 2e-5 A of it), and the holes
+        # numbered by their lowest row, as if every row had been a point
+        qrep = o[new]
         lengths = np.linalg.norm(cell, axis=1)
         span = np.where(pbc, lengths, 1e9)
-        xs = np.where(pbc, wrapped, wrapped - np.floor(wrapped.min(axis=0))) * lengths
+        wq = wrapped[qrep]
+        xs = np.where(pbc, wq, wq - np.floor(wq.min(axis=0))) * lengths
         xs = np.where(pbc, np.mod(xs, span), xs)
+        del wq
         pairs = cKDTree(xs, boxsize=np.where(pbc, span, 0) if pbc.all() else None).query_pairs(
             0.25 * float(radii_atoms.min()), output_type="ndarray")
-        ng0 = int(gid_kept.max()) + 1
-        rows = np.concatenate([pairs[:, 0], np.arange(K)])
-        cols = np.concatenate([pairs[:, 1], K + gid_kept])
-        graph = coo_matrix((np.ones(len(rows)), (rows, cols)), shape=(K + ng0, K + ng0))
-        _, lab = connected_components(graph, directed=False)
-        _, gid_kept = np.unique(lab[:K], return_inverse=True)
-        gid_kept = gid_kept.reshape(-1)
+        del xs
+        ng0 = len(qrep)
+        graph = coo_matrix((np.ones(len(pairs)), (pairs[:, 0], pairs[:, 1])), shape=(ng0, ng0))
+        nc0, lab = connected_components(graph, directed=False)
+        del graph, pairs
+        low = np.full(nc0, K, np.int64)
+        np.minimum.at(low, lab, qrep)
+        rank = np.empty(nc0, np.int64)
+        rank[np.argsort(low, kind="stable")] = np.arange(nc0)
+        gid_kept = rank[lab[gid_kept]]
+        del low, rank, lab, qrep
     ng = int(gid_kept.max()) + 1
     group = np.full(NR + 1, -1, _index_type(max(ng, NR) + 1))   # the last entry stands for "no neighbour"
     group[:K] = gid_kept
@@ -1141,11 +1168,19 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
         # images of one another tie on the radius: the tie goes to the
         # smallest wrapped position, computed to the same bits in every slab,
         # so that the hole reported does not depend on the slab count
-        order = np.lexsort((wc[:, 2], wc[:, 1], wc[:, 0], ~canon, -np.round(rk, 9), gid_kept))
+        # (a group of one row is its own representative: only the others are sorted)
+        rep = np.empty(ng, np.int64)
+        multi = np.bincount(gid_kept, minlength=ng)[gid_kept] > 1
+        one = np.flatnonzero(~multi)
+        rep[gid_kept[one]] = one
+        sub = np.flatnonzero(multi)
+        del multi, one
+        order = sub[np.lexsort((wc[sub, 2], wc[sub, 1], wc[sub, 0], ~canon[sub], -np.round(rk[sub], 9),
+                                gid_kept[sub]))]
         first = np.ones(len(order), bool)
         first[1:] = gid_kept[order][1:] != gid_kept[order][:-1]
-        rep = order[first]
-        del order, first
+        rep[gid_kept[order[first]]] = order[first]
+        del order, first, sub
     del o, new
     g_pos = wc[rep]
     g_r = rk[rep]
@@ -1168,15 +1203,15 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
             internal[tt, ii] = same.sum(axis=1) >= 2
             del fn, fg, same
         del tt, ii
-    if equal:
-        inside = np.concatenate([p.pop("inside") for p in parts])
-        on_face = np.concatenate([p.pop("on_face") for p in parts])
-    else:
-        wf = _frac(wc, np.linalg.inv(cell))
-        df = wf[rep[gid_kept]] - wf
+    inside = np.concatenate([p.pop("inside") for p in parts])
+    on_face = np.concatenate([p.pop("on_face") for p in parts])
+    if not equal:
+        redo = np.flatnonzero(rep[gid_kept] != np.arange(K))
+        wf = _frac(wc[redo], np.linalg.inv(cell))
+        df = _frac(wc[rep[gid_kept[redo]]], np.linalg.inv(cell)) - wf
         df = np.where(pbc, df - np.round(df), df)
-        point = centre + df @ cell
-        Vk = V[:K]
+        point = centre[redo] + df @ cell
+        Vk = V[redo]
         c0 = pts[Vk[:, 0]]
         a_, b_, c_ = pts[Vk[:, 1]] - c0, pts[Vk[:, 2]] - c0, pts[Vk[:, 3]] - c0
         bc, ca, ab = np.cross(b_, c_), np.cross(c_, a_), np.cross(a_, b_)
@@ -1184,8 +1219,9 @@ def _reduce(crystal, parts, pts, idx, rad, tree, idx_t, radii_atoms, cell, pbc, 
         rel = point - c0
         l1, l2, l3 = _dot(rel, bc) / det, _dot(rel, ca) / det, _dot(rel, ab) / det
         lam = np.column_stack([1 - (l1 + l2 + l3), l1, l2, l3])
-        inside = np.all(lam > -_LAM_TOL, axis=1)
-        on_face = np.abs(lam) <= _LAM_TOL
+        inside[redo] = np.all(lam > -_LAM_TOL, axis=1)
+        on_face[redo] = np.abs(lam) <= _LAM_TOL
+        del redo, wf, df, point, Vk, c0, a_, b_, c_, bc, ca, ab, det, rel, l1, l2, l3, lam
     good = inside & np.all(~on_face | internal, axis=1)
     del inside, on_face, internal, nbg, nbk
     is_max = np.zeros(ng, bool)
