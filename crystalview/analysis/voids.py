@@ -74,9 +74,14 @@ holes and channels 9 s.  What was done, and why:
   flat tetrahedron of unequal atoms can be far larger), with a first
   padding guess that solutes beside vacancies do not overrun (a second
   padding is a whole second triangulation).  The reduction stays the
-  costlier one (free radius of every tetrahedron, grouping of nearby
-  tangent centres, union test): 1,000,000 atoms of Cu-10 % Ni with 1 %
-  vacancies take about 2.5 min on the shared machine (150 s, 4.6 GB).
+  costlier one (grouping of nearby tangent centres, a representative per
+  hole, the union test at it), but only where it can matter: the free
+  radius is queried only for tetrahedra that an atom other than their own
+  four could come nearer to (bounded by the empty circumsphere), the
+  grouping runs on the 1e-5 A cells, and the union test at a tetrahedron's
+  own centre is done in the slab workers.  1,000,000 atoms of Cu-10 % Ni
+  with 1 % vacancies: 67 s and 3.8 GB (triangulations 41 s, join and holes
+  24 s; was 150 s and 4.6 GB), bench/bench_voids.py --big-alloy.
 * Not chosen: taking the holes of the perfect regions from the recognised
   lattice's named sites and triangulating only around non-lattice atoms.
   That pays only when nearly every atom sits unmoved on the lattice with
