@@ -25,6 +25,9 @@ EXPECTED = {
     "Ti_alpha_cod9008517.cif": ("hcp", "Ti"), "Zn_cod9008522.cif": ("hcp", "Zn"),
     "FeNi3_L12_P1_xrayutilities.cif": ("L1_2", None),
     "FeNi_fcc_solid_solution_xrayutilities.cif": ("fcc", None),
+    # a computed Co cell in P 1 that names no type; spglib (symprec 0.01) gives I4/mmm (139): body-centred
+    # tetragonal of c/a 1.440, near fcc's 1.414 (at symprec 1e-4 it is monoclinic C2/m)
+    "Co8_P1_pymatgen.cif": ("bct", None),
 }
 #: files that are refused, with what the one-line error must say
 REFUSED = {
@@ -32,6 +35,7 @@ REFUSED = {
     "gemmi_misc_syntax_blocks.cif": "no data block with a unit cell",
     "graphite_partial_symops_diffpy.cif": "complete space group",  # 6 operations that do not close into a group
     "grunerite_galena_2blocks_codtools.cif": "--block",            # two structures: the user must choose
+    "V23Ni_superflat_pymatgen.cif": "not a crystal's cell",        # angles that leave the cell nearly no volume
 }
 
 
@@ -87,6 +91,9 @@ def test_composition_is_formula_units_times_formula(path):
     if path.name.startswith("CuMnAs"):
         pytest.skip("its formula As0.84 Cu1.08 Mn0.94 disagrees with its own atom sites (As 0.96, Mn 0.86, Cu 1); "
                     "the sites are read")
+    if path.name.startswith("Co8_P1"):
+        pytest.skip("its formula Co8 with Z = 8 counts 64 atoms for its 8 sites (pymatgen writes the cell's "
+                    "formula beside the reduced formula's Z); the sites are read")
     c = cv.read_cif(path)
     comp = c.counts()
     for el, n in re.findall(r"([A-Z][a-z]?)\s*([\d.]*)", form):
@@ -301,7 +308,7 @@ def test_every_command_on_every_readable_file(path, tmp_path, cli):
         if rc == 2:
             assert err.count("\n") == 1 and argv[0] in ("slip", "fit"), (argv, err)
             if argv[0] == "slip":
-                assert "not one of the lattice types" in err
+                assert "not one of the lattice types" in err or "no slip systems are tabulated" in err
         else:
             assert out
 

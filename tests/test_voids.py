@@ -93,6 +93,18 @@ def test_bad_input():
     dup = c.add_atoms(c.positions[:1], "Cu")
     with pytest.raises(UserError, match="same place"):
         cv.find_voids(dup)
+    # the message names the two atoms, not one atom twice
+    with pytest.raises(UserError, match=r"atoms 0 \(Cu\) and 32 \(Ni\) sit at the same place"):
+        cv.find_voids(c.add_atoms(c.positions[:1], "Ni"))
+    # the average structure of shared sites (what read_cif gives) is refused with the way out
+    from pathlib import Path
+
+    avg = cv.read_cif(Path(__file__).parent / "data" / "cif" / "FeNiP_rhabdite_cod8100503.cif")
+    with pytest.raises(UserError, match="average structure.*realise"):
+        cv.find_voids(avg)
+    from crystalview.occupancy import realise
+
+    assert len(cv.find_voids(realise(avg, seed=0))) > 0
     close = c.add_atoms(c.positions[:1] + 0.3, "Cu")
     with pytest.raises(UserError, match="closer than physically possible"):
         cv.find_voids(close)

@@ -239,9 +239,89 @@ def site_kinds(lattice, species_radii):
         for label, e in by_label.items():
             radii = np.array(e["radii"])
             r = float(radii.min())
+            if abs(r) < 1e-9:
+                r = 0.0
             out.append(SiteKind(kind, label, coord, np.array(e["frac"]), r, r / e["rbar"], e["nsym"],
                                 tuple(float(v) for v in e["nd"]), note, radii))
+    if proto in _FREE_AXIS:
+        _, saddles = template_gaps(lattice, species_radii, out)
+        for k in out:
+            if k.label in saddles and "saddle" not in k.note:
+                k.note = (k.note + "; " if k.note else "") + _SADDLE_AT % (cell_ratio(cell))
     return out
+
+
+#: Lattice types whose axial ratio c/a is free: their named sites are
+#: checked against the holes the void analysis finds in the perfect cell.
+_FREE_AXIS = ("bct", "L1_0", "hex", "hcp")
+_SADDLE_AT = "a saddle of the empty-sphere function at c/a = %.3f, not a hole of its own"
+
+
+def cell_ratio(cell):
+    """c/a of a conventional cell (length of the third edge over the first).
+
+    >>> round(cell_ratio(np.diag([2.0, 2.0, 3.0])), 3)
+    1.5
+    """
+    cell = np.asarray(cell, float)
+    return float(np.linalg.norm(cell[2]) / np.linalg.norm(cell[0]))
+
+
+_GAPS = {}
+
+
+def _named_sites_fall_short(crystal):
+    lat = crystal.lattice
+    if lat is None or lat.prototype not in _FREE_AXIS:
+        return []
+    return template_gaps(lat, {s: crystal.radius_of(s) for s in set(lat.basis_symbols)})[0]
+
+
+def template_gaps(lattice, species_radii, kinds=None):
+    """How the named sites of a lattice type with a free axial ratio fall
+    short at this lattice's c/a: (holes of the perfect cell that no named
+    site stands for, as (kind, radius) pairs; labels of named site kinds
+    that are not holes but saddles).  Worked out once per cell and radii by
+    the void analysis of the perfect conventional cell.  A body-centred
+    tetragonal cell of c/a 1.3 has tetrahedral holes of r = 0.50 A (Fe
+    radii) at none of its named sites.
+
+    >>> import crystalview as cv
+    >>> fe = cv.build("bct", element="Fe", a=2.85, c=2.85 * 1.3)
+    >>> missing, saddles = template_gaps(fe.lattice, fe.species_radii)
+    >>> sorted({k for k, _ in missing}), sorted(saddles)
+    (['tetrahedral'], ['octahedral', 'octahedral-xy'])
+    """
+    from ..crystal import Crystal
+    from .voids import find_voids
+
+    cell = np.asarray(lattice.cell, float)
+    basis = np.asarray(lattice.basis_frac, float)
+    syms = list(lattice.basis_symbols)
+    rad = {s: float(species_radii[s]) for s in set(syms)}
+    key = (lattice.prototype, np.round(cell, 9).tobytes(), np.round(basis, 9).tobytes(), tuple(syms),
+           tuple(sorted(rad.items())))
+    if key in _GAPS:
+        return _GAPS[key]
+    if kinds is None:
+        kinds = site_kinds(lattice, species_radii)
+    conv = Crystal(cell, basis @ cell, symbols=syms, species_radii=rad)
+    v = find_voids(conv, channels=False)
+    inv = np.linalg.inv(cell)
+
+    def hits(points, targets):
+        if not len(points) or not len(targets):
+            return np.zeros(len(points), bool)
+        df = (points[:, None, :] - targets[None, :, :]) @ inv
+        df -= np.round(df)
+        return (np.linalg.norm(df @ cell, axis=2) < 1e-4).any(axis=1)
+
+    named = np.vstack([k.frac @ cell for k in kinds]) if kinds else np.zeros((0, 3))
+    hole = hits(v.positions, named)
+    missing = [(str(k), float(r)) for k, r, h in zip(v.kinds, v.radii, hole) if not h]
+    saddles = {k.label for k in kinds if not hits(k.frac @ cell, v.positions).any()}
+    _GAPS[key] = (missing, saddles)
+    return missing, saddles
 
 
 # ---------------------------------------------------------------------- mapping into a crystal
@@ -381,10 +461,17 @@ def interstitial_sites(crystal, kinds=None, max_atoms=None):
     want = None if kinds is None else ({kinds} if isinstance(kinds, str) else set(kinds))
     lat = crystal.lattice
     sites = None
+    note = ""
     if lat is not None and lat.prototype in TEMPLATES:
-        sites = _lattice_sites(crystal, max_atoms)
+        missing = _named_sites_fall_short(crystal)
+        if missing:
+            # the named sites do not hold at this axial ratio: the holes the crystal has instead
+            note = (f"found by the generic void analysis: at c/a = {cell_ratio(lat.cell):.3f} the named {lat.prototype} "
+                    f"sites miss holes of the perfect cell (largest r = {max(r for _, r in missing):.4f} A)")
+        else:
+            sites = _lattice_sites(crystal, max_atoms)
     if sites is None:
-        sites = _void_sites(crystal, max_atoms=max_atoms)
+        sites = _void_sites(crystal, note=note, max_atoms=max_atoms)
     if want is not None:
         sites = [s for s in sites if s.kind in want]
     return sites
@@ -487,7 +574,7 @@ def site_table(crystal, max_atoms=None):
     lat = crystal.lattice
     perfect = is_perfect(crystal)
     rows = []
-    if lat is not None and lat.prototype in TEMPLATES and perfect:
+    if lat is not None and lat.prototype in TEMPLATES and perfect and not _named_sites_fall_short(crystal):
         kinds = site_kinds(lat, {s: crystal.radius_of(s) for s in set(lat.basis_symbols)})
         vol_ratio = crystal.volume / abs(np.linalg.det(lat.cell))
         atoms_per_cell = lat.atoms_per_cell

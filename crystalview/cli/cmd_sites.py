@@ -75,7 +75,7 @@ def run(args):
     print("host hard-sphere radius R: " + ", ".join(f"{k} {v:.4f} A" for k, v in head["host_radius_A"].items())
           + f"; {len(c)} atoms" + ("" if perfect else _why_measured(c)))
     print()
-    if perfect:
+    if perfect and rows and "radius_min_A" not in rows[0]:          # the named sites of a perfect lattice
         trows = [(r["label"], f"{r['radius_A']:.4f}", f"{r['ratio']:.3f}", r["per_cell"], f"{r['per_atom']:g}",
                   r["in_crystal"], r["bounded_by"]) for r in rows]
         print(table(trows, ["site", "r (A)", "r/R", "per cell", "per atom", "in crystal", "bounded by"]))
@@ -90,8 +90,11 @@ def run(args):
     notes = [(r["label"], r["note"]) for r in rows if r["note"]]
     if notes:
         print()
-        for lab, n in dict(notes).items():
-            print(f"  note, {lab}: {n}")
+        if len(notes) == len(rows) > 1 and len({n for _, n in notes}) == 1:
+            print(f"  note: {notes[0][1]}")                  # one note for every row: said once
+        else:
+            for lab, n in dict(notes).items():
+                print(f"  note, {lab}: {n}")
     if args.voids:
         print()
         print(f"void analysis: {out['voids']['count']} holes, {out['voids']['channels']} channels ({out['voids']['method']})")
