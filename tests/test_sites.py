@@ -273,32 +273,42 @@ def test_defected_hole_measurement_is_capped():
 def test_body_centred_tetragonal_named_sites_checked_against_the_holes():
     """The named bct sites are those of a martensite-like cell.  Checked against the void analysis of the
     perfect cell (tests/test_voids.py checks that against brute force): at c/a 1.07 both octahedral kinds are
-    saddles, as in bcc (said in their notes); by c/a 1.3 tetrahedral holes of r = 0.50 A (Fe radii) lie at
-    none of the named sites, so the holes come from the void analysis, which says why."""
+    saddles, as in bcc (said in their notes), and the tetrahedral sites fall into two classes of different
+    size (one kind before, reported at the smaller radius); at c/a 1.3 the z octahedral hole splits 0.22 A
+    off-centre (said, with its radius); at c/a 1.8 there are holes at no named site, so the holes come from
+    the void analysis, which says why."""
     from crystalview.analysis.sites import interstitial_sites, site_table
 
     m = cv.build("bct", element="Fe", a=2.85, c=2.85 * 1.07)
-    notes = {r["label"]: r["note"] for r in site_table(m)}
-    assert "saddle" in notes["octahedral"] and "saddle" in notes["octahedral-xy"]
-    assert "saddle" not in notes["tetrahedral"]
-    open_cell = cv.build("bct", element="Fe", a=2.85, c=2.85 * 1.3, repeat=(2, 2, 2))
-    sites = interstitial_sites(open_cell)
+    rows = {r["label"]: r for r in site_table(m)}
+    assert "saddle" in rows["octahedral"]["note"] and "saddle" in rows["octahedral-xy"]["note"]
+    assert "saddle" not in rows["tetrahedral"]["note"] and "saddle" not in rows["tetrahedral-xy"]["note"]
+    v = cv.find_voids(m)
+    assert sorted({round(float(r), 4) for r in v.radii}) == sorted(
+        round(rows[k]["radius_A"], 4) for k in ("tetrahedral", "tetrahedral-xy"))
+    assert rows["tetrahedral"]["per_cell"] + rows["tetrahedral-xy"]["per_cell"] == 12     # bcc's 12 (6 per atom)
+    split = {r["label"]: r["note"] for r in site_table(cv.build("bct", element="Fe", a=2.85, c=2.85 * 1.3))}
+    assert "splits into 4, each 0.221 A off the centre with r = 0.4970 A" in split["octahedral"]
+    tall = cv.build("bct", element="Fe", a=2.85, c=2.85 * 1.8, repeat=(2, 2, 2))
+    sites = interstitial_sites(tall)
     assert all("named bct sites miss holes" in s.note for s in sites)
-    v = cv.find_voids(open_cell)
+    v = cv.find_voids(tall)
     assert len(sites) == len(v) and max(s.radius for s in sites) == pytest.approx(v.radii.max(), abs=1e-9)
-    assert v.radii.max() == pytest.approx(0.497, abs=1e-3)
 
 
 def test_bct_cell_from_a_calculation_gets_its_real_holes(cli):
     """A computed Co cell (pymatgen's test file, bct of c/a 1.440 near fcc): its holes are those of a slightly
-    distorted fcc (tetrahedral r/R 0.233 about fcc's 0.225, octahedral 0.415 about 0.414: Smallman & Ngan),
-    not the named bct sites (whose 'tetrahedral' r/R would be 0.118)."""
+    distorted fcc (tetrahedral r/R 0.233 about fcc's 0.225, octahedral 0.415 about 0.414: Smallman & Ngan);
+    the other named bct sites are saddles and say so (one lumped 'tetrahedral' kind used to report r/R 0.118
+    for all twelve)."""
     from pathlib import Path
 
     path = Path(__file__).parent / "data" / "cif" / "Co8_P1_pymatgen.cif"
     rc, out, err = cli("sites", path)
     assert rc == 0, err
-    assert "found by the generic void analysis: at c/a = 1.440" in out
-    rows = {r["kind"]: r for r in __import__("json").loads(cli("sites", path, "--json")[1])["sites"]}
+    rows = {r["label"]: r for r in __import__("json").loads(cli("sites", path, "--json")[1])["sites"]}
     assert rows["tetrahedral"]["ratio"] == pytest.approx(0.233, abs=0.005)
     assert rows["octahedral"]["ratio"] == pytest.approx(0.415, abs=0.005)
+    assert "not a hole of its own" in rows["tetrahedral-xy"]["note"]          # r/R 0.118: a saddle here
+    assert "not a hole of its own" in rows["octahedral-xy"]["note"]           # r = 0: two atoms touching
+    assert "-0.0000" not in out

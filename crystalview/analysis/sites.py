@@ -44,6 +44,9 @@ _BCC_TET = tuple(
     tuple(v) for k in range(3) for v in
     [np.insert(np.array(p, float), k, 0.0) for p in ((0.5, 0.25), (0.5, 0.75), (0.25, 0.5), (0.75, 0.5))]
 )
+# the bcc tetrahedral sites fall into two classes once c differs from a
+_BCT_TET_Z = tuple(p for p in _BCC_TET if p[2] in (0.25, 0.75))
+_BCT_TET_XY = tuple(p for p in _BCC_TET if p[2] not in (0.25, 0.75))
 _DIA_TET = ((0.5, 0.5, 0.5), (0.5, 0, 0), (0, 0.5, 0), (0, 0, 0.5),
             (0.75, 0.75, 0.75), (0.75, 0.25, 0.25), (0.25, 0.75, 0.25), (0.25, 0.25, 0.75))
 
@@ -88,7 +91,9 @@ TEMPLATES = {
              "z sites: the two nearest atoms lie along c (the sites carbon takes in martensite)"),
             ("octahedral-xy", 6, ((0.5, 0, 0.5), (0, 0.5, 0.5), (0.5, 0, 0), (0, 0.5, 0)),
              "x and y sites: the two nearest atoms lie along a or b"),
-            ("tetrahedral", 4, _BCC_TET, "")],
+            ("tetrahedral", 4, _BCT_TET_Z, "z sites: at a quarter and three quarters of c on the side faces"),
+            ("tetrahedral-xy", 4, _BCT_TET_XY, "x and y sites: half-way up c on the side faces, and on the "
+             "top and bottom faces")],
 }
 
 
@@ -219,8 +224,11 @@ def site_kinds(lattice, species_radii):
             x = np.asarray(p, float) @ cell
             d = np.linalg.norm(img - x, axis=1)
             o = np.argsort(d, kind="stable")[:coord]
-            if kind == "tetrahedral":
-                centre, _ = tangent_sphere(img[o], brad[which[o]])
+            if kind.startswith("tetrahedral"):
+                try:
+                    centre, _ = tangent_sphere(img[o], brad[which[o]])
+                except UserError:       # its four nearest atoms lie in one plane (a very tall cell): stays put
+                    centre = x + np.inf
                 if np.linalg.norm(centre - x) < 0.25 * d[o].min():
                     x = centre
                     d = np.linalg.norm(img - x, axis=1)
@@ -244,10 +252,16 @@ def site_kinds(lattice, species_radii):
             out.append(SiteKind(kind, label, coord, np.array(e["frac"]), r, r / e["rbar"], e["nsym"],
                                 tuple(float(v) for v in e["nd"]), note, radii))
     if proto in _FREE_AXIS:
-        _, saddles = template_gaps(lattice, species_radii, out)
+        _, saddles, splits = template_gaps(lattice, species_radii, out)
         for k in out:
             if k.label in saddles and "saddle" not in k.note:
-                k.note = (k.note + "; " if k.note else "") + _SADDLE_AT % (cell_ratio(cell))
+                if k.label in splits:
+                    per, off, rr = splits[k.label]
+                    said = (_SPLIT_AT % (cell_ratio(cell), per, off, rr) if per > 1 else
+                            _MOVED_AT % (cell_ratio(cell), off, rr))
+                else:
+                    said = _SADDLE_AT % cell_ratio(cell)
+                k.note = (k.note + "; " if k.note else "") + said
     return out
 
 
@@ -255,6 +269,9 @@ def site_kinds(lattice, species_radii):
 #: checked against the holes the void analysis finds in the perfect cell.
 _FREE_AXIS = ("bct", "L1_0", "hex", "hcp")
 _SADDLE_AT = "a saddle of the empty-sphere function at c/a = %.3f, not a hole of its own"
+_MOVED_AT = "a saddle of the empty-sphere function at c/a = %.3f: the hole lies %.3f A off the centre, r = %.4f A"
+_SPLIT_AT = ("a saddle of the empty-sphere function at c/a = %.3f: the hole there splits into %d, each %.3f A "
+             "off the centre with r = %.4f A")
 
 
 def cell_ratio(cell):
@@ -281,16 +298,18 @@ def template_gaps(lattice, species_radii, kinds=None):
     """How the named sites of a lattice type with a free axial ratio fall
     short at this lattice's c/a: (holes of the perfect cell that no named
     site stands for, as (kind, radius) pairs; labels of named site kinds
-    that are not holes but saddles).  Worked out once per cell and radii by
-    the void analysis of the perfect conventional cell.  A body-centred
-    tetragonal cell of c/a 1.3 has tetrahedral holes of r = 0.50 A (Fe
-    radii) at none of its named sites.
+    that are not holes but saddles; for a saddle kind whose hole splits
+    off-centre, label -> (holes per site, offset A, radius A)).  Worked out
+    once per cell and radii by the void analysis of the perfect
+    conventional cell.  In a body-centred tetragonal cell of c/a 1.3 (Fe
+    radii) the z octahedral site is a saddle and its hole, r = 0.497 A,
+    lies 0.22 A off-centre on either side.
 
     >>> import crystalview as cv
     >>> fe = cv.build("bct", element="Fe", a=2.85, c=2.85 * 1.3)
-    >>> missing, saddles = template_gaps(fe.lattice, fe.species_radii)
-    >>> sorted({k for k, _ in missing}), sorted(saddles)
-    (['tetrahedral'], ['octahedral', 'octahedral-xy'])
+    >>> missing, saddles, splits = template_gaps(fe.lattice, fe.species_radii)
+    >>> missing, sorted(saddles), splits["octahedral"][0]
+    ([], ['octahedral', 'octahedral-xy', 'tetrahedral-xy'], 4)
     """
     from ..crystal import Crystal
     from .voids import find_voids
@@ -318,10 +337,30 @@ def template_gaps(lattice, species_radii, kinds=None):
 
     named = np.vstack([k.frac @ cell for k in kinds]) if kinds else np.zeros((0, 3))
     hole = hits(v.positions, named)
-    missing = [(str(k), float(r)) for k, r, h in zip(v.kinds, v.radii, hole) if not h]
     saddles = {k.label for k in kinds if not hits(k.frac @ cell, v.positions).any()}
-    _GAPS[key] = (missing, saddles)
-    return missing, saddles
+    # a hole that is not at a named site but near a saddle one (within half its radius) is that site's hole
+    # split off-centre (a compressed octahedron: CuAu's by 0.20 A); any other is a hole the names miss
+    missing, splits = [], {}
+    for p, kind, r in zip(v.positions[~hole], v.kinds[~hole], v.radii[~hole]):
+        best = None
+        for k in kinds:
+            if k.label not in saddles:
+                continue
+            df = (p - k.frac @ cell) @ inv
+            df -= np.round(df)
+            dmin = float(np.linalg.norm(df @ cell, axis=1).min())
+            if dmin < 0.5 * max(k.radius, 0.0) and (best is None or dmin < best[1]):
+                best = (k, dmin)
+        if best is None:
+            missing.append((str(kind), float(r)))
+        else:
+            k, dmin = best
+            n, off, rr = splits.get(k.label, (0, dmin, float(r)))
+            splits[k.label] = (n + 1, max(off, dmin), max(rr, float(r)))
+    splits = {lab: (max(1, round(n / len(next(k for k in kinds if k.label == lab).frac))), off, rr)
+              for lab, (n, off, rr) in splits.items()}
+    _GAPS[key] = (missing, saddles, splits)
+    return missing, saddles, splits
 
 
 # ---------------------------------------------------------------------- mapping into a crystal
