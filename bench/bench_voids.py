@@ -19,7 +19,7 @@ and images, slab triangulations in the workers, join and holes).  --big also
 runs find_voids once on 1,000,000 atoms (about 50 s on two free cores, 70-85 s
 when other jobs hold a core; 3.4 GB) and prints its time, split and peak;
 --big-alloy the same for 1,000,000 atoms of Cu-10 % Ni with 1 % vacancies
-(mixed radii: about 70 s and 3 GB).
+(mixed radii: about 75-90 s and 3.8 GB).
 
     .venv/bin/python bench/bench_voids.py [--runs 3] [--atoms 100000] [--big] [--big-alloy]
 """

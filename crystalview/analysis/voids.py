@@ -83,8 +83,10 @@ holes and channels 9 s.  What was done, and why:
   four could come nearer to (bounded by the empty circumsphere), the
   grouping runs on the 1e-5 A cells, and the union test at a tetrahedron's
   own centre is done in the slab workers.  1,000,000 atoms of Cu-10 % Ni
-  with 1 % vacancies: 67 s and 3.8 GB (triangulations 41 s, join and holes
-  24 s; was 150 s and 4.6 GB), bench/bench_voids.py --big-alloy.
+  with 1 % vacancies: 73-88 s and 3.8 GB (triangulations 38-45 s, join and
+  holes 33-40 s, some 7 s of it certifying every hole and moving the 6 %
+  that are not true maxima; was 150 s and 4.6 GB), bench/bench_voids.py
+  --big-alloy.
 * Not chosen: taking the holes of the perfect regions from the recognised
   lattice's named sites and triangulating only around non-lattice atoms.
   That pays only when nearly every atom sits unmoved on the lattice with
@@ -1467,7 +1469,13 @@ def _polish(tree, idx_t, radii_atoms, cell, pbc, pos, g_r_max, ncont, rbar, nbr_
     box = np.where(pbc, lengths, 0.0) if pbc.all() else None
     if box is not None:
         xs = np.mod(xs, lengths)
-    pairs = cKDTree(xs[bad], boxsize=box).query_ball_tree(cKDTree(xs, boxsize=box), 1e-6)
+    # (a tree of the moved holes only: every hole is looked up in it, and the moved ones among themselves)
+    moved = cKDTree(xs[bad], boxsize=box)
+    dq, jq = moved.query(xs, k=1, distance_upper_bound=1e-6, workers=_workers(2))
+    met = np.flatnonzero(np.isfinite(dq))
+    pairs = np.column_stack([met, bad[jq[met]]])
+    pp = moved.query_pairs(1e-6, output_type="ndarray")
+    pairs = np.vstack([pairs, bad[pp]]) if len(pp) else pairs
     same = np.arange(len(pos))
 
     def root(x):
@@ -1475,11 +1483,10 @@ def _polish(tree, idx_t, radii_atoms, cell, pbc, pos, g_r_max, ncont, rbar, nbr_
             x = same[x]
         return x
 
-    for i, hits in zip(bad.tolist(), pairs):
-        for k in hits:
-            a, b = root(i), root(k)
-            if a != b:
-                same[max(a, b)] = min(a, b)
+    for i, k in pairs.tolist():
+        a, b = root(i), root(k)
+        if a != b:
+            same[max(a, b)] = min(a, b)
     while True:                     # every hole to the smallest of those it met (pointer jumping)
         nxt = same[same]
         if np.array_equal(nxt, same):
