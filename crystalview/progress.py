@@ -65,6 +65,9 @@ class _Bar:
             self.prog = Progress(TextColumn("{task.description}"), BarColumn(), TextColumn("{task.percentage:>3.0f}%"),
                                  TimeElapsedColumn(), transient=True, console=_console(), auto_refresh=False)
             self.task = self.prog.add_task(self.description, total=self.total, completed=self.done)
+            for t in self.prog.tasks:      # the clock counts from when the job began, not from the first redraw
+                if t.id == self.task:
+                    t.start_time = self.prog.get_time() - (time.perf_counter() - self.t0)
             self.prog.start()
         self.prog.update(self.task, completed=self.done, description=self.description)
         self.prog.refresh()

@@ -745,7 +745,7 @@ def _run_slabs(geo, jobs, pb):
             if pb is not None:
                 pb.update()
         return parts
-    from concurrent.futures import ProcessPoolExecutor
+    from concurrent.futures import ProcessPoolExecutor, wait
 
     _GEO = geo
     try:
@@ -754,6 +754,10 @@ def _run_slabs(geo, jobs, pb):
             futs = [ex.submit(_slab_job, *job) for job in jobs]
             parts = []
             for f in futs:
+                # wait in short steps, so the bar shows and its clock runs while the workers triangulate
+                while pb is not None and not f.done():
+                    wait([f], timeout=0.25)
+                    pb.update(0)
                 parts.append(f.result())
                 if pb is not None:
                     pb.update()
