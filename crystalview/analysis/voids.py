@@ -257,14 +257,15 @@ def _check_padding(n, h, pbc, pad, max_atoms=None):
 
 
 # ---------------------------------------------------------------------- geometry
-def tangent_spheres(c0, a, b, c, r0, ra, rb, rc, weighted=None):
+def tangent_spheres(c0, a, b, c, r0, ra, rb, rc, weighted=None, root=0):
     """Exact tangent spheres of tetrahedra (vectorised).
 
     ``c0`` (T, 3) first atom centre; ``a, b, c`` (T, 3) the other three
     centres *relative to c0*; radii (T,).  Returns (centre relative to c0,
     free radius, ok) where ok is False for flat (zero-volume) tetrahedra.
     ``weighted`` forces (True) or skips (False) the unequal-radii solution;
-    by default it is used when the radii differ.
+    by default it is used when the radii differ; ``root`` 1 takes the
+    smaller root of its quadratic instead of the larger.
     """
     bc = np.cross(b, c)
     ca = np.cross(c, a)
@@ -281,7 +282,7 @@ def tangent_spheres(c0, a, b, c, r0, ra, rb, rc, weighted=None):
     w0, w1, w2 = -(ra - r0), -(rb - r0), -(rc - r0)
     if weighted if weighted is not None else (np.any(w0) or np.any(w1) or np.any(w2)):
         q = (w0[:, None] * bc + w1[:, None] * ca + w2[:, None] * ab) / det[:, None]
-        r = _solve_radius(p, q, r0)
+        r = _solve_radius(p, q, r0, root)
         y = p + q * r[:, None]
     else:
         y = p
@@ -289,8 +290,8 @@ def tangent_spheres(c0, a, b, c, r0, ra, rb, rc, weighted=None):
     return y, r, ok
 
 
-def _solve_radius(p, q, r0):
-    """Largest root r of |p + q r|^2 = (r + r0)^2."""
+def _solve_radius(p, q, r0, root=0):
+    """Largest root r of |p + q r|^2 = (r + r0)^2 (``root`` 1: the smallest)."""
     alpha = _dot(q, q) - 1.0
     beta = 2.0 * (_dot(p, q) - r0)
     gamma = _dot(p, p) - r0 ** 2
@@ -299,7 +300,7 @@ def _solve_radius(p, q, r0):
         s1 = (-beta + disc) / (2 * alpha)
         s2 = (-beta - disc) / (2 * alpha)
         lin = -gamma / beta
-    r = np.where(np.abs(alpha) > 1e-12, np.fmax(s1, s2), lin)
+    r = np.where(np.abs(alpha) > 1e-12, np.fmax(s1, s2) if root == 0 else np.fmin(s1, s2), lin)
     return r
 
 
@@ -1565,30 +1566,15 @@ def _nearest_maxima(tree, idx_t, radii_atoms, X, rho0):
 def _tangent_roots(c0, a, b, c, r0, ra, rb, rc, root):
     """Like :func:`tangent_spheres` with unequal radii, but either root of
     the quadratic (``root`` 0 the larger, 1 the smaller): four spheres can
-    have two externally tangent spheres, and the smaller can be the hole."""
-    bc, ca, ab = np.cross(b, c), np.cross(c, a), np.cross(a, b)
-    det = _dot(a, bc)
-    scale = (_dot(a, a) * _dot(b, b) * _dot(c, c)) ** 0.5
-    ok = np.abs(det) > 1e-10 * np.maximum(scale, 1e-300)
-    det = np.where(ok, det, 1.0)
-    v0 = (_dot(a, a) - ra ** 2 + r0 ** 2) / 2.0
-    v1 = (_dot(b, b) - rb ** 2 + r0 ** 2) / 2.0
-    v2 = (_dot(c, c) - rc ** 2 + r0 ** 2) / 2.0
-    p = (v0[:, None] * bc + v1[:, None] * ca + v2[:, None] * ab) / det[:, None]
-    q = (-(ra - r0)[:, None] * bc - (rb - r0)[:, None] * ca - (rc - r0)[:, None] * ab) / det[:, None]
-    alpha = _dot(q, q) - 1.0
-    beta = 2.0 * (_dot(p, q) - r0)
-    gamma = _dot(p, p) - r0 ** 2
-    disc = beta ** 2 - 4 * alpha * gamma
-    ok &= disc >= 0
-    sq = np.sqrt(np.maximum(disc, 0.0))
-    with np.errstate(divide="ignore", invalid="ignore"):
-        s1 = (-beta + sq) / (2 * alpha)
-        s2 = (-beta - sq) / (2 * alpha)
-        lin = -gamma / beta
-    big, small = np.fmax(s1, s2), np.fmin(s1, s2)
-    r = np.where(np.abs(alpha) > 1e-12, big if root == 0 else small, lin)
-    return p + q * r[:, None], r, ok
+    have two externally tangent spheres, and the smaller can be the hole.
+    ``ok`` also requires the sphere to touch all four (no real root, none)."""
+    y, r, ok = tangent_spheres(c0, a, b, c, r0, ra, rb, rc, weighted=True, root=root)
+    tol = 1e-9 * (1.0 + np.abs(r))
+    with np.errstate(invalid="ignore"):
+        for rel, ri in ((np.zeros_like(a), r0), (a, ra), (b, rb), (c, rc)):
+            d = y - rel
+            ok &= np.abs(np.sqrt(_dot(d, d)) - ri - r) <= tol
+    return y, r, ok
 
 
 def _climb(tree, idx_t, radii_atoms, X, steps=1500):
