@@ -1373,6 +1373,10 @@ def _bounding(tree, idx_t, radii_atoms, pos, rq, kq, tolerance, equal, n):
 #: Atoms considered around a point when certifying or polishing a hole of
 #: mixed radii: the nearest by surface distance, every four of them tried.
 _POLISH_ATOMS = 8
+#: Holes placed one by one (Nelder-Mead, some 25 ms each) at most, after the
+#: climb of all at once has placed what it can (none of 2,403 atoms of a
+#: molecular hydrate needed it).
+_MAX_CLIMBS = 2000
 _TIE = 1e-9
 
 
@@ -1437,13 +1441,16 @@ def _polish(tree, idx_t, radii_atoms, cell, pbc, pos, g_r_max, ncont, rbar, nbr_
     Y, R, found = _nearest_maxima(tree, idx_t, radii_atoms, pos[bad], g_r_max[bad])
     lost = np.flatnonzero(~found)
     Z = pos[bad[lost]]
-    for _ in range(4):
+    for attempt in range(5):
         if not len(lost):
             break
-        # the nearest maximum lies beyond the atoms tried: climb towards it first (rare; a climb can stall on
-        # a ridge, so it is resumed)
-        Z = _climb(tree, idx_t, radii_atoms, Z)
-        Y2, R2, f2 = _nearest_maxima(tree, idx_t, radii_atoms, Z, g_r_max[bad[lost]])
+        # the nearest maximum lies beyond the atoms tried: climb towards it first, all points at once, then
+        # (rare) one by one; a climb can stall on a ridge, so it is resumed
+        if attempt >= 2 and len(lost) > _MAX_CLIMBS:
+            break           # one by one would take minutes: said below
+        Z = _ascend(tree, idx_t, radii_atoms, Z) if attempt < 2 else _climb(tree, idx_t, radii_atoms, Z)
+        Y2, R2, f2 = _nearest_maxima(tree, idx_t, radii_atoms, Z, g_r_max[bad[lost]],
+                                     m=_POLISH_ATOMS + (4 if attempt else 0))
         Y[lost[f2]], R[lost[f2]] = Y2[f2], R2[f2]
         lost, Z = lost[~f2], Z[~f2]
     if len(lost):
@@ -1503,18 +1510,18 @@ def _polish(tree, idx_t, radii_atoms, cell, pbc, pos, g_r_max, ncont, rbar, nbr_
     return pos[keep], g_r_max[keep], ncont[keep], rbar[keep], nbr_all[keep], hole_of
 
 
-def _nearest_maxima(tree, idx_t, radii_atoms, X, rho0):
+def _nearest_maxima(tree, idx_t, radii_atoms, X, rho0, m=_POLISH_ATOMS):
     """For points ``X``: the true maximum of the free radius nearest each,
     among the tangent spheres of every four of its nearest atoms (by
     surface distance) that are free of all atoms and surround their centre.
     Returns centres, radii and whether one was found."""
     Q = len(X)
-    kk = min(24, tree.n)
+    kk = min(3 * m, tree.n)
     d, j = tree.query(X, k=kk, workers=_workers(2))
     d, j = d.reshape(Q, -1), j.reshape(Q, -1)
     rad_t = radii_atoms[idx_t[np.minimum(j, len(idx_t) - 1)]]
     slack = d - rad_t
-    m = min(_POLISH_ATOMS, kk)
+    m = min(m, kk)
     srt = np.argsort(slack, axis=1, kind="stable")[:, :m]
     jj = np.take_along_axis(j, srt, axis=1)
     P = tree.data[jj]                                   # (Q, m, 3)
@@ -1575,6 +1582,45 @@ def _tangent_roots(c0, a, b, c, r0, ra, rb, rc, root):
             d = y - rel
             ok &= np.abs(np.sqrt(_dot(d, d)) - ri - r) <= tol
     return y, r, ok
+
+
+def _ascend(tree, idx_t, radii_atoms, X, iters=80):
+    """Climb the free radius from every point at once: steps along the
+    direction that moves away from the nearest atoms (their unit vectors,
+    weighted by how near each is, softly), lengthened after a gain and
+    halved after a loss, until the steps are below 1e-6 A."""
+    X = np.array(X, float)
+    k = min(48, tree.n)           # generous: a large atom can be nearer, surface to surface, than small ones
+
+    def look(P):
+        d, j = tree.query(P, k=k, workers=_workers(2))
+        d, j = d.reshape(len(P), -1), j.reshape(len(P), -1)
+        sl = d - radii_atoms[idx_t[np.minimum(j, len(idx_t) - 1)]]
+        return sl, tree.data[j]
+
+    step = np.full(len(X), 0.05)
+    sl, C = look(X)
+    f = sl.min(axis=1)
+    for _ in range(iters):
+        live = step > 1e-6
+        if not live.any():
+            break
+        i = np.flatnonzero(live)
+        tau = np.maximum(step[i], 1e-4)[:, None]
+        w = np.exp(-(sl[i] - f[i, None]) / tau)
+        u = X[i, None, :] - C[i]
+        with np.errstate(invalid="ignore", divide="ignore"):
+            u /= np.linalg.norm(u, axis=2, keepdims=True)
+        g = np.nansum(w[:, :, None] * u, axis=1)
+        gn = np.linalg.norm(g, axis=1)
+        g = np.where(gn[:, None] > 1e-12, g / np.where(gn > 1e-12, gn, 1.0)[:, None], 0.0)
+        Y = X[i] + step[i, None] * g
+        sy, cy = look(Y)
+        fy = sy.min(axis=1)
+        up = fy > f[i]
+        X[i[up]], f[i[up]], sl[i[up]], C[i[up]] = Y[up], fy[up], sy[up], cy[up]
+        step[i] = np.where(up, step[i] * 1.3, step[i] * 0.5)
+    return X
 
 
 def _climb(tree, idx_t, radii_atoms, X, steps=1500):
