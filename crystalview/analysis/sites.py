@@ -323,7 +323,9 @@ def template_gaps(lattice, species_radii, kinds=None):
     if key in _GAPS:
         return _GAPS[key]
     if kinds is None:
-        kinds = site_kinds(lattice, species_radii)
+        kinds = site_kinds(lattice, species_radii)      # (which works the gaps out on its way, for its notes)
+        if key in _GAPS:
+            return _GAPS[key]
     conv = Crystal(cell, basis @ cell, symbols=syms, species_radii=rad)
     v = find_voids(conv, channels=False)
     inv = np.linalg.inv(cell)
