@@ -312,3 +312,14 @@ def test_bct_cell_from_a_calculation_gets_its_real_holes(cli):
     assert "not a hole of its own" in rows["tetrahedral-xy"]["note"]          # r/R 0.118: a saddle here
     assert "not a hole of its own" in rows["octahedral-xy"]["note"]           # r = 0: two atoms touching
     assert "-0.0000" not in out
+
+
+def test_fit_says_which_named_sites_are_saddles(cli):
+    """fit lists every named site; those the check against the perfect cell found to be saddles, or whose
+    hole moved off-centre, are said so below the table (sites gives where and how large)."""
+    from pathlib import Path
+
+    rc, out, err = cli("fit", "C", Path(__file__).parent / "data" / "cif" / "Co8_P1_pymatgen.cif")
+    assert rc == 0, err
+    assert "note: octahedral-xy, tetrahedral-xy: saddle(s) of the empty-sphere function" in out
+    assert "note: octahedral: at this c/a the hole lies off the site's centre" in out

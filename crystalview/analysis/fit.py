@@ -198,6 +198,15 @@ def _interstitial(sym, crystal, max_atoms=None):
     if vac:
         notes.append(f"{vac[0]['sites_in_crystal']} vacancy hole(s) of radius up to {vac[0]['hole_radius_max_A']:.3f} A "
                      f"can trap the solute")
+    # named sites that the check against the perfect cell found to be saddles at this c/a (the site table's notes)
+    saddle = [r for r in out_rows if "saddle of the empty-sphere function at c/a" in (r["note"] or "")]
+    closed = [r["label"] for r in saddle if "not a hole of its own" in r["note"]]
+    moved = [r["label"] for r in saddle if "not a hole of its own" not in r["note"]]
+    if closed:
+        notes.append(f"{', '.join(closed)}: saddle(s) of the empty-sphere function at this c/a, not holes of their own")
+    if moved:
+        notes.append(f"{', '.join(moved)}: at this c/a the hole lies off the site's centre, a little larger "
+                     f"(where and how large: crystalview sites)")
     return FitReport(
         mode="interstitial", solute=sym, solute_radius_A=rs, solute_radius_source=sol.source,
         host=_host_description(crystal), host_radius_A=R, perfect=perfect,
